@@ -1,0 +1,215 @@
+"""The optimality certificate, computed by learnopt itself from its own conjugates.
+
+Task (theta = coefficients w and intercept b; z = M theta - q is the loss argument per row):
+
+    P(theta) = sum_i a_i f(z_i) + R(w)   subject to the requirements.
+
+Weak duality gives, for any u_i in dom f*, multipliers mu >= 0 for "<=" rows, any nu for
+"==" rows and lambda >= 0 for norm rules (with v in the dual-norm unit ball),
+
+    P(theta) >= D = -sum_i a_i f*(u_i) - (a*u).q - mu.rhs - nu.rhs + lambda (v.c - bound)
+                   + inf_theta [ g.theta + R(w) ],     g = M'(a*u) + A'mu + A'nu + lambda (A'v + f)
+
+for every feasible theta, so P(theta_hat) - D bounds the suboptimality of theta_hat.
+The infimum is finite only when g vanishes along every direction where R is constant (the
+intercept, unpenalised coefficients); learnopt makes it vanish exactly by a least-norm
+correction of u on the rows where u is inside dom f*, then scales the whole dual point by
+s in (0, 1] until -g_w lies in dom R* (the usual rescaling for l1-type penalties), and
+evaluates inf = -R*(-g_w) in closed form (a small exact solve for mixtures of penalties).
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import cvxpy as cp
+import numpy as np
+import scipy.linalg as sla
+
+from .penalties import CustomPenalty, Separable, separable_conjugate, separable_shrink
+from .rules import Requirement
+
+
+@dataclass(frozen=True)
+class Certificate:
+    """Primal value, dual bound and the gap between them, all in objective units."""
+
+    primal: float
+    dual: float
+    gap: float
+    rel_gap: float
+    violation: float        # worst absolute requirement violation at the returned point
+    rel_violation: float    # the same, relative to the size of each requirement's numbers
+    stationarity: float     # size of the stationarity residual before the dual point was repaired
+    note: str = ""
+
+    def passes(self, gap_tol: float, feas_tol: float) -> bool:
+        return bool(np.isfinite(self.gap) and self.rel_gap <= gap_tol and self.rel_violation <= feas_tol)
+
+
+def _null_space(penalties, names, d: int, intercept: bool) -> np.ndarray:
+    """Orthonormal basis of directions in theta where the penalty sum is constant."""
+    basis = np.eye(d)
+    for pen in penalties:
+        n_k = pen.null_space(names)
+        if basis.shape[1] == 0:
+            break
+        # intersect span(basis) with span(n_k)
+        proj = n_k @ n_k.T if n_k.shape[1] else np.zeros((d, d))
+        resid = basis - proj @ basis
+        coef = sla.null_space(resid) if resid.size else np.zeros((basis.shape[1], 0))
+        basis = basis @ coef
+        if basis.shape[1]:
+            basis, _ = np.linalg.qr(basis)
+    p = d + int(intercept)
+    N = np.zeros((p, basis.shape[1] + int(intercept)))
+    N[:d, :basis.shape[1]] = basis
+    if intercept:
+        N[d, -1] = 1.0
+    return N
+
+
+def _inf_penalty(g_w, penalties, names) -> tuple[float, float]:
+    """(s, inf_w s*g_w.w + R(w)) with the shrink factor s that makes it finite."""
+    if not penalties:
+        return 1.0, 0.0 if np.allclose(g_w, 0.0, atol=0.0) else -np.inf
+    if all(isinstance(p, Separable) for p in penalties):
+        a = sum(p.separable(names)[0] for p in penalties)
+        c = sum(p.separable(names)[1] for p in penalties)
+        s = separable_shrink(-g_w, a, c)
+        return s, -separable_conjugate(-s * g_w, a, c)
+    if len(penalties) == 1 and not isinstance(penalties[0], CustomPenalty):
+        pen = penalties[0]
+        s = pen.shrink(-g_w, names)
+        return s, -pen.conjugate(-s * g_w, names)
+    # a mixture: R* is the infimal convolution of the parts' conjugates. Find the largest
+    # s <= 1 with -s g in dom R* = sum of the parts' domains, then the best split of -s g.
+    parts = [p.conjugate_expr(cp.Variable(len(g_w)), names) for p in penalties]
+    if any(part is None for part in parts):
+        return _inf_by_primal_solve(g_w, penalties, names)
+    d = len(g_w)
+    vs = [cp.Variable(d) for _ in penalties]
+    cons, conj = [], 0
+    for pen, v in zip(penalties, vs):
+        expr, c = pen.conjugate_expr(v, names)
+        cons += c
+        conj = conj + expr
+    s = cp.Variable()
+    feas = cp.Problem(cp.Maximize(s), cons + [sum(vs) == -s * g_w, s <= 1, s >= 0])
+    if not _solve_small(feas) or s.value is None or s.value <= 0:
+        return 1.0, -np.inf
+    s_val = float(min(1.0, s.value * (1 - 1e-7)))
+    split = cp.Problem(cp.Minimize(conj), cons + [sum(vs) == -s_val * g_w])
+    if not _solve_small(split):
+        return s_val, -np.inf
+    # any feasible split gives a valid (possibly weaker) bound
+    return s_val, -float(split.value)
+
+
+def _solve_small(prob) -> bool:
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            prob.solve(solver="CLARABEL", tol_gap_abs=1e-10, tol_gap_rel=1e-10, tol_feas=1e-10)
+    except cp.error.SolverError:
+        return False
+    return prob.status == cp.OPTIMAL
+
+
+def _inf_by_primal_solve(g_w, penalties, names):
+    """inf_w g.w + R(w) by one small solve (custom penalties have no conjugate)."""
+    w = cp.Variable(len(g_w))
+    prob = cp.Problem(cp.Minimize(g_w @ w + sum(p.expr(w, names) for p in penalties)))
+    if not _solve_small(prob):
+        return 1.0, -np.inf
+    return 1.0, float(prob.value)
+
+
+def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement], theta, u,
+            multipliers, intercept: bool) -> Certificate:
+    """Certificate for the point ``theta`` with dual point ``u`` and requirement multipliers."""
+    theta = np.asarray(theta, float)
+    d = len(names)
+    w = theta[:d]
+    z = M @ theta - q
+    primal = float(a @ loss.value(z) + sum(p.value(w, names) for p in penalties))
+    viol = [r.violation(theta) for r in requirements]
+    violation = max(viol, default=0.0)
+    rel_violation = max((v / r.scale() for v, r in zip(viol, requirements)), default=0.0)
+
+    try:
+        loss.conjugate(np.zeros(1))
+    except NotImplementedError:
+        return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, np.nan,
+                           f"the loss {loss.describe()} has no conjugate, so no dual bound can be computed; "
+                           f"give custom(..., conjugate=...) to certify it")
+
+    low, high = loss.dual_domain()
+    u = np.clip(np.asarray(u, float), low, high)
+
+    # fixed part of g from the requirements
+    g_req = np.zeros(len(theta))
+    const_req = 0.0
+    for r, m in zip(requirements, multipliers):
+        if r.sense == "norm":
+            lam = max(float(m), 0.0)
+            y = r.A @ theta + r.rhs
+            if r.order == 2:
+                nrm = np.linalg.norm(y)
+                v = y / nrm if nrm > 0 else np.zeros_like(y)
+            else:
+                v = np.sign(y)
+            g_req += lam * (r.A.T @ v + r.f)
+            const_req += lam * (v @ r.rhs - r.bound)
+        else:
+            m = np.asarray(m, float).ravel()
+            if r.sense == "<=":
+                m = np.maximum(m, 0.0)
+            g_req += r.A.T @ m
+            const_req -= m @ r.rhs
+
+    def gradient(uu):
+        return M.T @ (a * uu) + g_req
+
+    N = _null_space(penalties, names, d, intercept)
+    g = gradient(u)
+    stationarity = float(np.linalg.norm(N.T @ g)) if N.shape[1] else 0.0
+    note = ""
+    if N.shape[1]:
+        for _ in range(5):
+            resid = N.T @ gradient(u)
+            if np.linalg.norm(resid) == 0.0:
+                break
+            # room to move each u_i inside dom f*; rows with more room take more of the correction
+            room = np.minimum(u - low, high - u)
+            room = np.where(np.isfinite(room), np.minimum(room, 1.0 + np.abs(u)), 1.0 + np.abs(u))
+            rows = np.flatnonzero((room > 0) & (a > 0))
+            if rows.size == 0:
+                break
+            Mr = M[rows].toarray() if hasattr(M, "tocsr") else M[rows]
+            K = (N.T @ Mr.T) * a[rows]                       # r x |rows|
+            h = room[rows]
+            lam, *_ = np.linalg.lstsq((K * h) @ K.T, -resid, rcond=None)
+            u = u.copy()
+            u[rows] = np.clip(u[rows] + h * (K.T @ lam), low, high)
+        resid = N.T @ gradient(u)
+        scale_g = float(np.abs(M.T @ (a * np.abs(u))).max(initial=0.0) + np.abs(g_req).max(initial=0.0) + 1.0)
+        if np.linalg.norm(resid, np.inf) > 1e-11 * scale_g:
+            note = ("the dual point could not be made exactly stationary along the free directions "
+                    "(intercept and unpenalised coefficients); no finite dual bound")
+            return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, stationarity, note)
+    g = gradient(u)
+    if N.shape[1]:
+        # what is left along the free directions is round-off (checked above); drop it
+        g = g - N @ (N.T @ g)
+    s, inner_val = _inf_penalty(g[:d], penalties, names)
+    if intercept and abs(g[d]) > 0:
+        inner_val = -np.inf if abs(g[d]) > 1e-12 * (1 + abs(g).max()) else inner_val
+    su = s * u
+    dual = float(-a @ loss.conjugate(su) - (a * su) @ q + s * const_req + inner_val)
+    if not np.isfinite(dual):
+        note = note or "the dual bound is not finite at this point"
+        return Certificate(primal, dual, np.inf, np.inf, violation, rel_violation, stationarity, note)
+    gap = max(primal - dual, 0.0)
+    return Certificate(primal, dual, gap, gap / max(1.0, abs(primal)), violation, rel_violation,
+                       stationarity, note)

@@ -1,0 +1,43 @@
+"""Errors raised by learnopt.
+
+Every mistake a user can make ends in a subclass of :class:`LearnoptError`. Each error
+names the user's own object (column, rule, parameter) and says how to fix it, and knows
+the exit code the command line uses for it.
+"""
+from __future__ import annotations
+
+
+class LearnoptError(Exception):
+    """Base class of every error learnopt raises on purpose."""
+
+    exit_code: int = 1
+
+    def __init__(self, message: str, *, problems: list[str] | None = None) -> None:
+        self.problems = list(problems) if problems else [message]
+        if problems and len(problems) > 1:
+            message = message + "\n" + "\n".join(f"  - {p}" for p in problems)
+        super().__init__(message)
+
+
+class DataError(LearnoptError, ValueError):
+    """The data, a column name or a name in a rule is unusable as given."""
+
+    exit_code = 2
+
+
+class ParameterError(LearnoptError, ValueError):
+    """A parameter of a loss, penalty, rule or solve call is out of its allowed range."""
+
+    exit_code = 2
+
+
+class NotConvexError(LearnoptError, ValueError):
+    """A piece of the task is not convex; the message names the piece and a convex alternative."""
+
+    exit_code = 3
+
+
+class SolverError(LearnoptError, RuntimeError):
+    """No usable solver, an unknown solver name, or every capable solver failed."""
+
+    exit_code = 4

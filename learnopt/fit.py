@@ -1,0 +1,150 @@
+"""The fit: one result type with fixed fields, verdict first.
+
+Prices: ``fit.prices[rule]`` is the fall in the optimal objective per unit relaxation of the
+rule, in objective units (for "<=" and ">=" rules: per unit the bound moves outward, always
+>= 0; for "==" rules: per unit increase of the right-hand side, signed; for prediction rules
+over many rows: all selected rows relaxed together). ``fit.binding[rule]`` is True when the
+rule holds with equality (within tolerance) at the returned point.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .certify import Certificate
+from .errors import DataError
+
+STATUSES = ("optimal", "unverified", "infeasible", "unbounded", "failed")
+
+DISCLAIMER = ("This fit is a statistical estimate; decisions based on it follow local rules "
+              "and professional judgement.")
+
+
+@dataclass(frozen=True)
+class Attempt:
+    """One solver run: what was tried and what came of it."""
+
+    solver: str
+    outcome: str          # solver status, certificate verdict or the error
+    objective: float = np.nan
+    gap: float = np.nan
+    seconds: float = 0.0
+
+
+@dataclass
+class Timings:
+    """Seconds spent, measured by learnopt: build, compile, solve, certify, total."""
+
+    build: float = 0.0
+    compile: float = 0.0
+    solve: float = 0.0
+    certify: float = 0.0
+    total: float = 0.0
+
+    def as_dict(self) -> dict[str, float]:
+        return dict(build=self.build, compile=self.compile, solve=self.solve,
+                    certify=self.certify, total=self.total)
+
+    def __repr__(self) -> str:
+        return "Timings(" + ", ".join(f"{k}={v:.4f}s" for k, v in self.as_dict().items()) + ")"
+
+
+@dataclass
+class Fit:
+    """The answer to a task, with its evidence.
+
+    Attributes
+    ----------
+    status : one of "optimal", "unverified", "infeasible", "unbounded", "failed".
+        "optimal" only when learnopt's own certificate shows a relative gap <= gap_tol and
+        every requirement holds within feas_tol.
+    message : one sentence explaining the status.
+    objective : the objective recomputed in numpy at the returned point.
+    gap : certified duality gap (absolute, objective units); ``rel_gap`` = gap / max(1, |objective|).
+    violation : worst requirement violation at the returned point (absolute).
+    coef : pandas Series of coefficients by feature name; ``intercept`` a float (0 without one).
+    prices, binding : pandas Series by rule text (see module docstring for the sign convention).
+    conflicts : for infeasible tasks, Series rule -> amount it must give for the rest to hold.
+    timings : :class:`Timings`; solver : name of the solver that produced the point;
+    route : how the task was solved; attempts : every solver tried, with its outcome.
+    """
+
+    status: str
+    message: str
+    objective: float
+    gap: float
+    rel_gap: float
+    violation: float
+    coef: pd.Series
+    intercept: float
+    prices: pd.Series
+    binding: pd.Series
+    conflicts: pd.Series
+    timings: Timings
+    solver: str | None
+    route: str
+    attempts: list[Attempt]
+    certificate: Certificate | None
+    task: Any = field(repr=False, default=None)
+    extras: dict = field(default_factory=dict, repr=False)
+
+    # ---- predictions
+    def decision(self, data) -> np.ndarray:
+        """Raw predictions X w + b on new data (for classification: the score, sign = class)."""
+        from .data import new_design
+        self._need_point()
+        X = new_design(self.task.dataset, data)
+        return np.asarray(X @ self.coef.to_numpy() + self.intercept).ravel()
+
+    def predict(self, data) -> np.ndarray:
+        """Predictions on new data: values for regression, labels for classification."""
+        score = self.decision(data)
+        labels = self.task.dataset.labels
+        if self.task.kind == "classification":
+            return np.where(score > 0, labels[1], labels[0])
+        return score
+
+    def probability(self, data) -> np.ndarray:
+        """P(positive label) for logistic fits: 1 / (1 + exp(-score))."""
+        if self.task.loss.name != "logistic":
+            raise DataError("probability() needs a logistic fit; hinge-type scores are not probabilities.")
+        from scipy.special import expit
+        return expit(self.decision(data))
+
+    def evaluate(self, data, target=None) -> "Evaluation":
+        """Metrics on (usually held-out) data, with the target in the same column as in training."""
+        from .evaluate import evaluate
+        self._need_point()
+        return evaluate(self, data, target)
+
+    def _need_point(self):
+        if self.status in ("infeasible", "unbounded", "failed") and not np.all(np.isfinite(self.coef)):
+            raise DataError(f"This fit has status {self.status!r} and no coefficients to predict with: "
+                            f"{self.message}")
+
+    # ---- display
+    def summary(self) -> str:
+        lines = [f"status     {self.status}  ({self.message})",
+                 f"objective  {self.objective:.10g}",
+                 f"gap        {self.gap:.3g} (relative {self.rel_gap:.3g}), worst violation {self.violation:.3g}",
+                 f"solver     {self.solver}  route {self.route}",
+                 f"timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items())]
+        table = pd.DataFrame({"coef": self.coef})
+        lines.append(table.to_string(float_format=lambda v: f"{v:.6g}"))
+        if self.task is not None and self.task.intercept:
+            lines.append(f"intercept  {self.intercept:.6g}")
+        if len(self.prices):
+            pr = pd.DataFrame({"price": self.prices, "binding": self.binding})
+            lines.append(pr.to_string(float_format=lambda v: f"{v:.6g}"))
+        if len(self.conflicts):
+            lines.append("conflicting rules (amount each must give):")
+            lines.append(self.conflicts.to_string())
+        lines.append(DISCLAIMER)
+        return "\n".join(lines)
+
+    def __repr__(self) -> str:
+        return (f"Fit(status={self.status!r}, objective={self.objective:.8g}, gap={self.gap:.3g}, "
+                f"solver={self.solver!r}, route={self.route!r})")
