@@ -125,6 +125,45 @@ def _inf_by_primal_solve(g_w, penalties, names):
     return 1.0, float(prob.value)
 
 
+def _active_targets(w, penalties, names, N, d, p):
+    """Rows e_j' with targets -R'_j(w_j) for coefficients away from zero (separable penalties only)."""
+    if not penalties or not all(isinstance(pen, Separable) for pen in penalties):
+        return None
+    a = sum(pen.separable(names)[0] for pen in penalties)
+    c = sum(pen.separable(names)[1] for pen in penalties)
+    scale = 1e-9 * (1.0 + np.abs(w).max(initial=0.0))
+    idx = np.flatnonzero((np.abs(w) > scale) & ((a > 0) | (c > 0)))
+    if idx.size == 0:
+        return None
+    T = np.zeros((idx.size, p))
+    T[np.arange(idx.size), idx] = 1.0
+    return T, -(a[idx] * np.sign(w[idx]) + 2.0 * c[idx] * w[idx])
+
+
+def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
+    """Least-change correction of u (inside dom f*) so that T g(u) = t.
+
+    Each row moves in proportion to its room inside dom f*, so rows at the edge of the domain
+    (hinge rows outside the margin, say) stay where they are.
+    """
+    for _ in range(rounds):
+        resid = T @ gradient(u) - t
+        if np.linalg.norm(resid) == 0.0:
+            break
+        room = np.minimum(u - low, high - u)
+        room = np.where(np.isfinite(room), np.minimum(room, 1.0 + np.abs(u)), 1.0 + np.abs(u))
+        rows = np.flatnonzero((room > 0) & (a > 0))
+        if rows.size == 0:
+            break
+        Mr = M[rows].toarray() if hasattr(M, "tocsr") else M[rows]
+        K = (T @ Mr.T) * a[rows]                       # k x |rows|
+        h = room[rows]
+        lam, *_ = np.linalg.lstsq((K * h) @ K.T, -resid, rcond=None)
+        u = u.copy()
+        u[rows] = np.clip(u[rows] + h * (K.T @ lam), low, high)
+    return u
+
+
 def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement], theta, u,
             multipliers, intercept: bool) -> Certificate:
     """Certificate for the point ``theta`` with dual point ``u`` and requirement multipliers."""
@@ -175,26 +214,25 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     g = gradient(u)
     stationarity = float(np.linalg.norm(N.T @ g)) if N.shape[1] else 0.0
     note = ""
+    # conditions the dual point should meet exactly: T g = t. Free directions (T = N', t = 0)
+    # must hold or the bound is -inf; active separable coordinates (g_j = -R'_j(w_j)) make the
+    # later rescaling unnecessary, so the bound stays tight.
+    T, t = N.T, np.zeros(N.shape[1])
+    active = _active_targets(theta[:d], penalties, names, N, d, len(theta))
+    if active is not None:
+        T, t = np.vstack([T, active[0]]), np.concatenate([t, active[1]])
+    scale_g = float(np.abs(M.T @ (a * np.abs(u))).max(initial=0.0) + np.abs(g_req).max(initial=0.0) + 1.0)
+
+    def free_ok(uu):
+        return not N.shape[1] or np.linalg.norm(N.T @ gradient(uu), np.inf) <= 1e-11 * scale_g
+
+    if T.shape[0]:
+        repaired = _repair(u, T, t, M, a, gradient, low, high)
+        if not free_ok(repaired) and T.shape[0] > N.shape[1] and N.shape[1]:
+            repaired = _repair(u, N.T, np.zeros(N.shape[1]), M, a, gradient, low, high)
+        u = repaired
     if N.shape[1]:
-        for _ in range(5):
-            resid = N.T @ gradient(u)
-            if np.linalg.norm(resid) == 0.0:
-                break
-            # room to move each u_i inside dom f*; rows with more room take more of the correction
-            room = np.minimum(u - low, high - u)
-            room = np.where(np.isfinite(room), np.minimum(room, 1.0 + np.abs(u)), 1.0 + np.abs(u))
-            rows = np.flatnonzero((room > 0) & (a > 0))
-            if rows.size == 0:
-                break
-            Mr = M[rows].toarray() if hasattr(M, "tocsr") else M[rows]
-            K = (N.T @ Mr.T) * a[rows]                       # r x |rows|
-            h = room[rows]
-            lam, *_ = np.linalg.lstsq((K * h) @ K.T, -resid, rcond=None)
-            u = u.copy()
-            u[rows] = np.clip(u[rows] + h * (K.T @ lam), low, high)
-        resid = N.T @ gradient(u)
-        scale_g = float(np.abs(M.T @ (a * np.abs(u))).max(initial=0.0) + np.abs(g_req).max(initial=0.0) + 1.0)
-        if np.linalg.norm(resid, np.inf) > 1e-11 * scale_g:
+        if not free_ok(u):
             note = ("the dual point could not be made exactly stationary along the free directions "
                     "(intercept and unpenalised coefficients); no finite dual bound")
             return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, stationarity, note)

@@ -5,7 +5,7 @@ CSV or Parquet file, or a numpy / scipy.sparse matrix (then ``target`` is the y 
 coefficient names are x0, x1, ...). Text and categorical columns are one-hot encoded with
 names like ``region=north``; when the task has an intercept the first level (in sorted order)
 is the reference level and gets no column, so the coefficients are differences from it.
-Booleans become 0/1. Anything unusable raises :class:`DataError` naming the column and the fix.
+A rule may name the reference level (its coefficient is 0 by construction). Booleans become 0/1. Anything unusable raises :class:`DataError` naming the column and the fix.
 """
 from __future__ import annotations
 

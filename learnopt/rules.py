@@ -87,6 +87,7 @@ class Context:
     names: tuple[str, ...]          # coefficient names, 'intercept' last when present
     design: np.ndarray | None       # n x p design matrix (with the column of ones), or None
     frame: pd.DataFrame | None      # raw data columns, row-aligned with design
+    reference: tuple[str, ...] = () # reference levels of encoded columns: coefficients fixed at 0
 
     @property
     def p(self) -> int:
@@ -325,7 +326,7 @@ class _Compiler:
 
     def unknown(self, name: str) -> DataError:
         known = list(self.ctx.names) + ["prediction"] + sorted(map(str, self.columns))
-        close = difflib.get_close_matches(name, known, n=3, cutoff=0.6)
+        close = difflib.get_close_matches(name, list(dict.fromkeys(known)), n=3, cutoff=0.6)
         hint = f" Close matches: {', '.join(close)}." if close else ""
         return self.fail(f"unknown name {name!r}.{hint} Coefficients: {', '.join(self.ctx.names)}"
                          + (f"; data columns: {', '.join(sorted(map(str, self.columns)))}" if self.columns else "")
@@ -498,6 +499,8 @@ class _Compiler:
             A = np.zeros((1, self.ctx.p))
             A[0, self.index[name]] = 1.0
             return Affine(A, np.zeros(1))
+        if name in self.ctx.reference:
+            return _scalar(self.ctx)  # a reference level's coefficient is 0 by construction
         if name == "prediction":
             if self.ctx.design is None:
                 raise self.fail("'prediction' needs the training data.")

@@ -6,6 +6,9 @@ cannot hold together; otherwise the next capable solver is tried and the attempt
 """
 from __future__ import annotations
 
+import contextlib
+import os
+import sys
 import time
 import warnings
 
@@ -19,6 +22,28 @@ from .errors import SolverError
 from .fit import Attempt, Fit, Timings
 from .routes import direct, plan as plan_route
 from .solvers import plan as plan_solvers
+
+
+@contextlib.contextmanager
+def _quiet(enabled: bool):
+    """Silence a solver's own start-up banner written straight to the C-level stdout."""
+    if not enabled:
+        yield
+        return
+    try:
+        fd = sys.stdout.fileno()
+    except (AttributeError, OSError, ValueError):
+        yield
+        return
+    sys.stdout.flush()
+    saved = os.dup(fd)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), fd)
+            yield
+    finally:
+        os.dup2(saved, fd)
+        os.close(saved)
 
 
 def _certify(task, model, theta):
@@ -56,7 +81,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         t0 = time.perf_counter()
         opts = {**spec.options(tol), **solver_options}
         try:
-            with warnings.catch_warnings():
+            with warnings.catch_warnings(), _quiet(not verbose):
                 warnings.simplefilter("ignore")
                 model.problem.solve(solver=spec.cvxpy_name, verbose=verbose, **opts)
         except (cp.error.SolverError, ValueError, ArithmeticError, RuntimeError) as exc:

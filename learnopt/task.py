@@ -57,7 +57,9 @@ class Task:
         X = self.dataset.X
         Xt = design_with_ones(X, self.intercept)
         dense = Xt.toarray() if hasattr(Xt, "toarray") else Xt
-        return Context(self.coefficient_names, dense, self.dataset.frame)
+        enc = self.dataset.encoding
+        reference = tuple(f"{c}={v}" for c, v in enc.reference.items()) if enc is not None else ()
+        return Context(self.coefficient_names, dense, self.dataset.frame, reference)
 
     # ---- building
     def penalize(self, *penalties: Penalty) -> "Task":
