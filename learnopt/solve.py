@@ -53,12 +53,14 @@ def _certify(task, model, theta):
                    intercept=task.intercept)
 
 
-def _prices(task, model, theta, feas_tol):
+def _prices(task, model, theta, feas_tol, noise):
     prices, binding = {}, {}
     for (r, c), m in zip(model.constraints, direct.multipliers(model)):
         value = float(np.sum(m)) if r.sense != "norm" else float(m)
         if r.sense == "<=" or r.sense == "norm":
             value = max(value, 0.0)
+        if abs(value) <= noise:   # solver round-off on a rule that does not bind
+            value = 0.0
         prices[r.text] = prices.get(r.text, 0.0) + value
         active = bool(np.min(r.slack(theta)) <= feas_tol * r.scale()) if r.sense != "==" else True
         binding[r.text] = binding.get(r.text, False) or active
@@ -120,7 +122,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         attempts.append(Attempt(spec.name, f"{status}; certificate {'passed' if ok else 'failed'}",
                                 cert.primal, cert.gap, wall + cert_s))
         timing = Timings(model.build_seconds, compile_s, solve_s, cert_s)
-        prices = _prices(task, model, theta, feas_tol)
+        prices = _prices(task, model, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
         key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
         if best is None or key < best[0]:
             best = (key, spec, theta, cert, timing, prices)

@@ -127,7 +127,7 @@ class Task:
         return build(self).problem
 
     # ---- solving
-    def solve(self, solver: str | None = None, *, tol: float = 1e-8, gap_tol: float = 1e-6,
+    def solve(self, solver: str | None = None, *, tol: float = 1e-9, gap_tol: float = 1e-7,
               feas_tol: float = 1e-6, route: str | None = None, fallback: bool = True,
               solver_options: dict | None = None, verbose: bool = False):
         """Solve and certify; return a :class:`~learnopt.fit.Fit`.
