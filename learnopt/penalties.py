@@ -75,6 +75,12 @@ class Penalty:
         return replace(self, lam=lam)
 
 
+def _flat_part_zero(pen: Penalty, g: np.ndarray, names) -> bool:
+    """R* is +inf unless g is orthogonal to every direction where R is constant."""
+    N = pen.null_space(names)
+    return not N.shape[1] or np.abs(N.T @ g).max() <= 1e-12 * (1.0 + np.abs(g).max())
+
+
 def _weights(weights: Weights, names: Sequence[str], owner: str) -> np.ndarray:
     """Per-feature weights as an array aligned with names (missing names weigh 1)."""
     d = len(names)
@@ -227,7 +233,7 @@ class Group(Penalty):
         return np.eye(len(names))[:, ~covered]
 
     def conjugate(self, g, names):
-        return 0.0 if self.shrink(g, names) >= 1.0 else np.inf
+        return 0.0 if self.shrink(g, names) >= 1.0 - 1e-12 and _flat_part_zero(self, g, names) else np.inf
 
     def conjugate_expr(self, v, names):
         idx, c = self._index(names)
@@ -312,7 +318,7 @@ class TotalVariation(Penalty):
         return v, self.lam * c
 
     def conjugate(self, g, names):
-        return 0.0 if self.shrink(g, names) >= 1.0 else np.inf
+        return 0.0 if self.shrink(g, names) >= 1.0 - 1e-12 and _flat_part_zero(self, g, names) else np.inf
 
     def conjugate_expr(self, v, names):
         idx, c = self._index(names)
