@@ -1,0 +1,93 @@
+"""The data gateway: every bad input is a LearnoptError naming the column and the fix."""
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.sparse as sp
+
+import learnopt as lo
+
+
+@pytest.fixture
+def df():
+    rng = np.random.default_rng(0)
+    return pd.DataFrame({"x": rng.normal(size=30), "z": rng.normal(size=30), "y": rng.normal(size=30),
+                         "w": np.ones(30), "label": rng.choice(["a", "b"], 30)})
+
+
+@pytest.mark.parametrize("mutate,fragment", [
+    (lambda d: d.assign(x=np.r_[np.nan, d.x[1:]]), "'x' has 1 missing"),
+    (lambda d: d.assign(y=np.r_[np.inf, d.y[1:]]), "target 'y' has 1 missing"),
+    (lambda d: d.iloc[:0], "no rows"),
+    (lambda d: d.assign(y=d.label), "must be numeric"),
+    (lambda d: d.assign(x=pd.to_datetime("2024-01-01")), "dates"),
+])
+def test_bad_frames(df, mutate, fragment):
+    with pytest.raises(lo.DataError, match=fragment):
+        lo.regression(mutate(df), target="y", features=["x", "z"])
+
+
+def test_missing_columns_suggest(df):
+    with pytest.raises(lo.DataError, match="Close matches: y"):
+        lo.regression(df, target="yy")
+    with pytest.raises(lo.DataError, match=r"\['q'\]"):
+        lo.regression(df, target="y", features=["x", "q"])
+
+
+def test_negative_and_zero_weights(df):
+    with pytest.raises(lo.DataError, match="negative"):
+        lo.regression(df, target="y", features=["x"], weights=-df.w)
+    with pytest.raises(lo.DataError, match="sums to zero"):
+        lo.regression(df, target="y", features=["x"], weights=0 * df.w)
+
+
+def test_labels(df):
+    with pytest.raises(lo.DataError, match="exactly two"):
+        lo.classification(df.assign(label=np.arange(30) % 3), target="label", features=["x"])
+    with pytest.raises(lo.DataError, match="positive='c'"):
+        lo.classification(df, target="label", features=["x"], positive="c")
+    t = lo.classification(df, target="label", features=["x"])
+    assert t.dataset.labels == ("a", "b")
+
+
+@pytest.mark.parametrize("make,fragment", [
+    (lambda: lo.loss.quantile(1.5), "'tau' parameter of quantile must be > 0 and < 1. Got 1.5"),
+    (lambda: lo.loss.huber(-1.0), "'delta' parameter of huber must be > 0. Got -1.0"),
+    (lambda: lo.penalty.l1(-0.1), "'lam' parameter of l1 must be >= 0"),
+    (lambda: lo.penalty.elastic_net(0.1, 2.0), "'mix' parameter"),
+])
+def test_parameters_checked_with_one_template(make, fragment):
+    with pytest.raises(lo.ParameterError) as info:
+        make()
+    assert fragment in str(info.value)
+
+
+def test_wrong_loss_for_kind(df):
+    with pytest.raises(lo.ParameterError, match="not a regression loss"):
+        lo.regression(df, target="y", loss="hinge")
+    with pytest.raises(lo.ParameterError, match="Unknown loss 'hubber'"):
+        lo.regression(df, target="y", loss="hubber")
+
+
+def test_zero_one_loss_is_refused_with_surrogates(df):
+    with pytest.raises(lo.NotConvexError, match="hinge.*logistic"):
+        lo.classification(df, target="label", loss=lo.loss.zero_one())
+
+
+def test_arrays_and_sparse_give_the_same_fit():
+    rng = np.random.default_rng(1)
+    X = rng.normal(size=(50, 3))
+    X[X < 0.3] = 0.0
+    y = X @ [1.0, 2.0, -1.0] + rng.normal(size=50)
+    dense = lo.regression(X, y).penalize(lo.penalty.l1(0.05)).solve()
+    sparse = lo.regression(sp.csr_matrix(X), y).penalize(lo.penalty.l1(0.05)).solve()
+    assert list(dense.coef.index) == ["x0", "x1", "x2"]
+    np.testing.assert_allclose(dense.coef, sparse.coef, atol=1e-7)
+
+
+def test_prediction_needs_same_columns_and_levels(df):
+    fit = lo.regression(df, target="y", features=["x", "label"]).solve()
+    with pytest.raises(lo.DataError, match="lacks the feature column"):
+        fit.predict(df[["x"]])
+    with pytest.raises(lo.DataError, match="levels"):
+        fit.predict(df.assign(label="c"))
+    assert fit.predict(df).shape == (30,)
