@@ -1,0 +1,170 @@
+"""Solving: statuses, prices, conflicts, fallbacks, weights, limit cases, custom terms."""
+import cvxpy as cp
+import numpy as np
+import pandas as pd
+import pytest
+
+import learnopt as lo
+
+
+@pytest.fixture
+def data():
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(80, 3))
+    y = X @ np.array([1.5, -1.0, 0.7]) + 0.3 + 0.2 * rng.normal(size=80)
+    return X, y
+
+
+@pytest.mark.parametrize("rule,relaxed", [
+    ("x0 <= 1", "x0 <= {}"),
+    ("x0 + x1 + x2 == 0.5", "x0 + x1 + x2 == {}"),
+    ("norm2(x0, x1) <= 1", "norm2(x0, x1) <= {}"),
+])
+@pytest.mark.parametrize("loss", ["squared", "absolute", lo.loss.huber(0.3)])
+def test_prices_match_finite_differences(data, rule, relaxed, loss):
+    # common practice (sensitivity of the optimal value): objective falls by about price * h
+    X, y = data
+    base = lo.regression(X, y, loss=loss).penalize(lo.penalty.l2(0.01))
+    fit = base.require(rule).solve(tol=1e-10)
+    assert fit.status == "optimal"
+    bound = float(rule.split()[-1])
+    h = 1e-4
+    moved = base.require(relaxed.format(bound + h)).solve(tol=1e-10)
+    fd = (fit.objective - moved.objective) / h
+    assert fit.prices[rule] == pytest.approx(fd, rel=2e-2, abs=1e-5)
+    assert bool(fit.binding[rule])
+
+
+def test_non_binding_rule_has_zero_price(data):
+    X, y = data
+    fit = lo.regression(X, y).require("x0 <= 100").solve()
+    assert fit.prices["x0 <= 100"] == 0.0 and not fit.binding["x0 <= 100"]
+
+
+def test_infeasible_names_the_conflicting_rules(data):
+    X, y = data
+    fit = lo.regression(X, y).require("x0 >= 2", "x0 + x1 <= 0", "x1 >= 1", "x2 <= 5").solve()
+    assert fit.status == "infeasible"
+    assert set(fit.conflicts.index) <= {"x0 >= 2", "x0 + x1 <= 0", "x1 >= 1"}
+    assert fit.conflicts.sum() == pytest.approx(3.0, rel=1e-5) or fit.conflicts.sum() > 0
+    assert "x2 <= 5" not in fit.conflicts.index
+
+
+def test_infeasible_prediction_rules():
+    df = pd.DataFrame({"x": np.linspace(0, 1, 20), "y": np.linspace(0, 1, 20),
+                       "g": ["a"] * 10 + ["b"] * 10})
+    fit = lo.regression(df, target="y", features=["x"]).require(
+        "prediction >= 5 where g == 'a'", "prediction <= 1", "x >= 0").solve()
+    assert fit.status == "infeasible"
+    assert len(fit.conflicts) >= 1
+
+
+def test_loose_solve_is_reported_unverified(data):
+    X, y = data
+    task = lo.regression(X, y).penalize(lo.penalty.l1(0.05)).require("x0 + x1 == 0.2")
+    fit = task.solve(solver="scs", tol=1e-2, fallback=False, solver_options={"max_iters": 30})
+    assert fit.status == "unverified"
+    assert "gap" in fit.message or "violated" in fit.message
+
+
+def test_misbehaving_solver_falls_back_and_records(monkeypatch, data):
+    X, y = data
+    real = cp.Problem.solve
+
+    def broken(self, *args, solver=None, **kwargs):
+        if solver == "CLARABEL":
+            raise cp.error.SolverError("simulated crash")
+        return real(self, *args, solver=solver, **kwargs)
+
+    monkeypatch.setattr(cp.Problem, "solve", broken)
+    fit = lo.regression(X, y).penalize(lo.penalty.l2(0.1)).solve()
+    assert fit.status == "optimal" and fit.solver != "clarabel"
+    assert fit.attempts[0].solver == "clarabel" and "simulated crash" in fit.attempts[0].outcome
+
+
+def test_solver_claiming_infeasible_is_not_believed(monkeypatch, data):
+    X, y = data
+    real = cp.Problem.solve
+
+    def liar(self, *args, solver=None, **kwargs):
+        out = real(self, *args, solver=solver, **kwargs)
+        if solver == "CLARABEL":
+            self._status = cp.INFEASIBLE
+        return out
+
+    monkeypatch.setattr(cp.Problem, "solve", liar)
+    fit = lo.regression(X, y).require("x0 >= 0").solve()
+    assert fit.status == "optimal" and fit.solver != "clarabel"
+    assert "rejected" in fit.attempts[0].outcome
+
+
+def test_unknown_and_incapable_solvers():
+    X, y = np.eye(3), np.ones(3)
+    with pytest.raises(lo.SolverError, match="Unknown solver 'clarabell'. Did you mean clarabel"):
+        lo.regression(X, y).solve(solver="clarabell")
+    with pytest.raises(lo.SolverError, match="osqp cannot solve exponential cone"):
+        lo.classification(X, [0, 1, 1], loss="logistic").solve(solver="osqp")
+
+
+def test_weight_k_equals_k_copies(data):
+    # common practice: an integer row weight k is the same as repeating the row k times
+    X, y = data
+    k = np.arange(80) % 3 + 1
+    for loss in ["squared", "absolute", lo.loss.quantile(0.3), lo.loss.huber(0.2)]:
+        weighted = lo.regression(X, y, loss=loss, weights=k).solve(tol=1e-10)
+        repeated = lo.regression(np.repeat(X, k, axis=0), np.repeat(y, k), loss=loss).solve(tol=1e-10)
+        assert weighted.objective == pytest.approx(repeated.objective, rel=1e-7)
+
+
+def test_huge_huber_threshold_equals_least_squares(data):
+    # common practice: huber with delta beyond every residual is least squares
+    X, y = data
+    h = lo.regression(X, y, loss=lo.loss.huber(1e6)).solve()
+    ls = lo.regression(X, y).solve()
+    np.testing.assert_allclose(h.coef, ls.coef, atol=1e-7)
+
+
+def test_custom_penalty_convex_and_not(data):
+    X, y = data
+    fit = lo.regression(X, y).penalize(lo.penalty.custom(lambda w: 0.1 * cp.norm(w, 2), name="norm")).solve()
+    assert fit.status in ("optimal", "unverified")
+    with pytest.raises(lo.NotConvexError, match="Counterexample"):
+        lo.regression(X, y).penalize(lo.penalty.custom(lambda w: -cp.sum_squares(w)))
+    with pytest.raises(lo.NotConvexError, match="may still be convex"):
+        lo.regression(X, y).penalize(lo.penalty.custom(lambda w: cp.sqrt(cp.sum_squares(w) + 1)))
+
+
+def test_timings_and_evidence(data):
+    X, y = data
+    fit = lo.regression(X, y).solve()
+    t = fit.timings.as_dict()
+    assert set(t) == {"build", "compile", "solve", "certify", "total"}
+    assert all(v >= 0 for v in t.values()) and t["total"] >= t["certify"]
+    assert fit.route == "direct" and fit.solver in lo.installed_solvers()
+    assert "statistical estimate" in fit.summary()
+
+
+def test_classification_predict_and_evaluate():
+    rng = np.random.default_rng(3)
+    df = pd.DataFrame({"x": rng.normal(size=200), "z": rng.normal(size=200)})
+    df["label"] = np.where(df.x - df.z + 0.3 * rng.normal(size=200) > 0, "late", "on_time")
+    fit = lo.classification(df, target="label", loss="hinge").penalize(lo.penalty.l2(0.01)).solve()
+    ev = fit.evaluate(df)
+    assert set(fit.predict(df)) <= {"late", "on_time"}
+    assert ev["accuracy"] + ev["zero_one"] == pytest.approx(1.0)
+    assert ev.confusion.to_numpy().sum() == 200
+    assert ev["accuracy"] > 0.85
+
+
+def test_problem_is_the_cvxpy_problem(data):
+    X, y = data
+    prob = lo.regression(X, y).penalize(lo.penalty.l1(0.1)).problem()
+    assert isinstance(prob, cp.Problem) and prob.is_dcp()
+    prob.solve(solver="CLARABEL")
+    assert prob.value == pytest.approx(lo.regression(X, y).penalize(lo.penalty.l1(0.1)).solve().objective, rel=1e-6)
+
+
+def test_check_reports_pieces_and_data_notes():
+    X = np.column_stack([np.ones(10), np.arange(10.0)])
+    verdict = lo.regression(X, np.arange(10.0)).require("x1 >= 0").check()
+    assert verdict.convex and "constant column" in str(verdict)
