@@ -168,3 +168,23 @@ def test_check_reports_pieces_and_data_notes():
     X = np.column_stack([np.ones(10), np.arange(10.0)])
     verdict = lo.regression(X, np.arange(10.0)).require("x1 >= 0").check()
     assert verdict.convex and "constant column" in str(verdict)
+
+
+def test_custom_loss_with_conjugate_certifies(data):
+    # a custom squared loss with its conjugate u^2/4 must reproduce the built-in squared fit
+    X, y = data
+    custom = lo.loss.custom(lambda z: cp.square(z), name="my_squared", conjugate=lambda u: u ** 2 / 4)
+    fit = lo.regression(X, y, loss=custom).penalize(lo.penalty.l1(0.05)).solve()
+    ref = lo.regression(X, y).penalize(lo.penalty.l1(0.05)).solve()
+    assert fit.status == "optimal"
+    assert fit.objective == pytest.approx(ref.objective, rel=1e-8)
+    no_conj = lo.regression(X, y, loss=lo.loss.custom(lambda z: cp.square(z))).solve()
+    assert no_conj.status == "unverified" and "no conjugate" in no_conj.message
+    with pytest.raises(lo.NotConvexError, match="Custom loss"):
+        lo.regression(X, y, loss=lo.loss.custom(lambda z: -cp.abs(z)))
+
+
+def test_intercept_rule_without_intercept(data):
+    X, y = data
+    with pytest.raises(lo.DataError, match="no intercept"):
+        lo.regression(X, y, intercept=False).require("intercept >= 0")
