@@ -124,8 +124,9 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         timing = Timings(model.build_seconds, compile_s, solve_s, cert_s)
         prices = _prices(task, model, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
         key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
+        iterations = getattr(stats, "num_iters", None) if stats is not None else None
         if best is None or key < best[0]:
-            best = (key, spec, theta, cert, timing, prices)
+            best = (key, spec, theta, cert, timing, prices, iterations)
         if ok:
             break
     total = time.perf_counter() - t_start
@@ -149,7 +150,7 @@ def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol
         return Fit(status, msg, np.nan, np.nan, np.nan, np.nan, pd.Series(nan, index=names, name="coef"),
                    np.nan, empty, pd.Series(dtype=bool), pd.Series(conflicts, dtype=float),
                    Timings(total=total), None, route, attempts, None, task)
-    _, spec, theta, cert, timing, (prices, binding) = best
+    _, spec, theta, cert, timing, (prices, binding), iterations = best
     timing.total = total
     if cert.passes(gap_tol, feas_tol):
         status, msg = "optimal", (f"certified: relative gap {cert.rel_gap:.2g} <= {gap_tol:g}, "
@@ -166,4 +167,33 @@ def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol
     coef = pd.Series(theta[:d], index=names, name="coef")
     intercept = float(theta[d]) if task.intercept else 0.0
     return Fit(status, msg, cert.primal, cert.gap, cert.rel_gap, cert.violation, coef, intercept,
-               prices, binding, pd.Series(dtype=float), timing, spec.name, route, attempts, cert, task)
+               prices, binding, pd.Series(dtype=float), timing, spec.name, route, attempts, cert, task,
+               extras={"iterations": iterations})
+
+
+def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd.DataFrame:
+    """One row per solver: the same task, no fallback, each point certified by learnopt."""
+    from .solvers import lookup
+    klass = task.problem_class()
+    rows, fits = [], {}
+    for name in solvers:
+        spec = lookup(name)
+        why = spec.why_not(klass)
+        if why:
+            rows.append({"solver": spec.name, "status": "not run", "note": why})
+            continue
+        fit = task.solve(spec.name, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, fallback=False)
+        fits[spec.name] = fit
+        rows.append({"solver": spec.name, "status": fit.status, "objective": fit.objective, "gap": fit.gap,
+                     "violation": fit.violation, "iterations": fit.extras.get("iterations"),
+                     **{f"{k}_s": v for k, v in fit.timings.as_dict().items()},
+                     "note": "" if fit.status == "optimal" else fit.message})
+    table = pd.DataFrame(rows).set_index("solver")
+    certified = [n for n, f in fits.items() if f.status == "optimal"]
+    pool = certified or [n for n, f in fits.items() if np.all(np.isfinite(f.coef))]
+    if pool:
+        best = min(pool, key=lambda n: fits[n].objective)
+        ref = fits[best].coef.to_numpy()
+        table["max_coef_diff"] = [float(np.max(np.abs(fits[n].coef.to_numpy() - ref))) if n in fits else np.nan
+                                  for n in table.index]
+    return table

@@ -144,6 +144,18 @@ class Task:
         return solve_task(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route,
                           fallback=fallback, solver_options=solver_options or {}, verbose=verbose)
 
+    def compare(self, solvers: Sequence[str] = ("clarabel", "osqp", "scs", "ecos", "highs"), *,
+                tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6):
+        """Solve the same task with each solver (no fallback); one row per solver.
+
+        Columns: status, objective, gap (learnopt's certificate), violation, iterations,
+        build/compile/solve/certify/total seconds, note, and max_coef_diff (largest coefficient
+        difference from the certified row with the lowest objective). Solvers that are not
+        installed or cannot handle the problem class get a row with the reason.
+        """
+        from .solve import compare
+        return compare(self, list(solvers), tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
+
     def __repr__(self) -> str:
         return (f"Task({self.kind}, loss={self.loss.describe()}, {self.dataset.n} rows x {self.dataset.d} "
                 f"features, intercept={self.intercept}, penalties=[{', '.join(p.describe() for p in self.penalties)}], "

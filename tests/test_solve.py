@@ -188,3 +188,16 @@ def test_intercept_rule_without_intercept(data):
     X, y = data
     with pytest.raises(lo.DataError, match="no intercept"):
         lo.regression(X, y, intercept=False).require("intercept >= 0")
+
+
+def test_compare_lists_every_solver_with_reason(data):
+    X, y = data
+    table = lo.classification(X, (y > 0).astype(int), loss="logistic").compare(["clarabel", "osqp", "scs"])
+    assert list(table.index) == ["clarabel", "osqp", "scs"]
+    assert table.loc["osqp", "status"] == "not run" and "cannot solve" in table.loc["osqp", "note"]
+    assert table.loc["clarabel", "status"] == "optimal"
+    assert table.loc["clarabel", "max_coef_diff"] == pytest.approx(0.0, abs=1e-6) or \
+        table["max_coef_diff"].min() == 0.0
+    lp = lo.regression(X, y, loss="absolute").compare(["highs", "clarabel", "ecos"])
+    assert (lp["status"] == "optimal").all()
+    assert lp["max_coef_diff"].max() < 1e-5
