@@ -73,9 +73,9 @@ def _inf_penalty(g_w, penalties, names) -> tuple[float, float]:
     """(s, inf_w s*g_w.w + R(w)) with the shrink factor s that makes it finite."""
     if not penalties:
         return 1.0, 0.0 if np.allclose(g_w, 0.0, atol=0.0) else -np.inf
-    if all(isinstance(p, Separable) for p in penalties):
-        a = sum(p.separable(names)[0] for p in penalties)
-        c = sum(p.separable(names)[1] for p in penalties)
+    combined = _combined_separable(penalties, names)
+    if combined is not None:
+        a, c = combined
         s = separable_shrink(-g_w, a, c)
         return s, -separable_conjugate(-s * g_w, a, c)
     if len(penalties) == 1 and not isinstance(penalties[0], CustomPenalty):
@@ -125,12 +125,20 @@ def _inf_by_primal_solve(g_w, penalties, names):
     return 1.0, float(prob.value)
 
 
-def _active_targets(w, penalties, names, N, d, p):
-    """Rows e_j' with targets -R'_j(w_j) for coefficients away from zero (separable penalties only)."""
+def _combined_separable(penalties, names):
+    """(a, c) of sum_j a_j|w_j| + c_j w_j^2 when every penalty is separable, else None."""
     if not penalties or not all(isinstance(pen, Separable) for pen in penalties):
         return None
-    a = sum(pen.separable(names)[0] for pen in penalties)
-    c = sum(pen.separable(names)[1] for pen in penalties)
+    parts = [pen.separable(names) for pen in penalties]
+    return sum(a for a, _ in parts), sum(c for _, c in parts)
+
+
+def _active_targets(w, penalties, names, p):
+    """Rows e_j' with targets -R'_j(w_j) for coefficients away from zero (separable penalties only)."""
+    combined = _combined_separable(penalties, names)
+    if combined is None:
+        return None
+    a, c = combined
     scale = 1e-9 * (1.0 + np.abs(w).max(initial=0.0))
     idx = np.flatnonzero((np.abs(w) > scale) & ((a > 0) | (c > 0)))
     if idx.size == 0:
@@ -218,7 +226,7 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     # must hold or the bound is -inf; active separable coordinates (g_j = -R'_j(w_j)) make the
     # later rescaling unnecessary, so the bound stays tight.
     T, t = N.T, np.zeros(N.shape[1])
-    active = _active_targets(theta[:d], penalties, names, N, d, len(theta))
+    active = _active_targets(theta[:d], penalties, names, len(theta))
     if active is not None:
         T, t = np.vstack([T, active[0]]), np.concatenate([t, active[1]])
     scale_g = float(np.abs(M.T @ (a * np.abs(u))).max(initial=0.0) + np.abs(g_req).max(initial=0.0) + 1.0)
@@ -241,8 +249,6 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
         # what is left along the free directions is round-off (checked above); drop it
         g = g - N @ (N.T @ g)
     s, inner_val = _inf_penalty(g[:d], penalties, names)
-    if intercept and abs(g[d]) > 0:
-        inner_val = -np.inf if abs(g[d]) > 1e-12 * (1 + abs(g).max()) else inner_val
     su = s * u
     dual = float(-a @ loss.conjugate(su) - (a * su) @ q + s * const_req + inner_val)
     if not np.isfinite(dual):

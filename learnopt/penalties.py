@@ -75,10 +75,11 @@ class Penalty:
         return replace(self, lam=lam)
 
 
-def _flat_part_zero(pen: Penalty, g: np.ndarray, names) -> bool:
-    """R* is +inf unless g is orthogonal to every direction where R is constant."""
+def _indicator_conjugate(pen: Penalty, g: np.ndarray, names) -> float:
+    """Conjugate of a seminorm penalty: 0 inside its dual ball (and off its flat directions), else +inf."""
     N = pen.null_space(names)
-    return not N.shape[1] or np.abs(N.T @ g).max() <= 1e-12 * (1.0 + np.abs(g).max())
+    flat_ok = not N.shape[1] or np.abs(N.T @ g).max() <= 1e-12 * (1.0 + np.abs(g).max())
+    return 0.0 if flat_ok and pen.shrink(g, names) >= 1.0 - 1e-12 else np.inf
 
 
 def _weights(weights: Weights, names: Sequence[str], owner: str) -> np.ndarray:
@@ -233,7 +234,7 @@ class Group(Penalty):
         return np.eye(len(names))[:, ~covered]
 
     def conjugate(self, g, names):
-        return 0.0 if self.shrink(g, names) >= 1.0 - 1e-12 and _flat_part_zero(self, g, names) else np.inf
+        return _indicator_conjugate(self, g, names)
 
     def conjugate_expr(self, v, names):
         idx, c = self._index(names)
@@ -318,7 +319,7 @@ class TotalVariation(Penalty):
         return v, self.lam * c
 
     def conjugate(self, g, names):
-        return 0.0 if self.shrink(g, names) >= 1.0 - 1e-12 and _flat_part_zero(self, g, names) else np.inf
+        return _indicator_conjugate(self, g, names)
 
     def conjugate_expr(self, v, names):
         idx, c = self._index(names)

@@ -46,16 +46,16 @@ def _quiet(enabled: bool):
         os.close(saved)
 
 
-def _certify(task, model, theta):
+def _certify(task, model, theta, mults):
     return certify(M=model.M, q=model.q, a=model.a, loss=task.loss, penalties=task.penalties,
                    names=task.features, requirements=list(task.requirements), theta=theta,
-                   u=direct.dual_point(task, model, theta), multipliers=direct.multipliers(model),
+                   u=direct.dual_point(task, model, theta), multipliers=mults,
                    intercept=task.intercept)
 
 
-def _prices(task, model, theta, feas_tol, noise):
+def _prices(model, mults, theta, feas_tol, noise):
     prices, binding = {}, {}
-    for (r, c), m in zip(model.constraints, direct.multipliers(model)):
+    for (r, _), m in zip(model.constraints, mults):
         value = float(np.sum(m)) if r.sense != "norm" else float(m)
         if r.sense == "<=" or r.sense == "norm":
             value = max(value, 0.0)
@@ -116,13 +116,14 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             continue
         theta = np.asarray(theta, float).copy()
         t1 = time.perf_counter()
-        cert = _certify(task, model, theta)
+        mults = direct.multipliers(model)
+        cert = _certify(task, model, theta, mults)
         cert_s = time.perf_counter() - t1
         ok = cert.passes(gap_tol, feas_tol)
         attempts.append(Attempt(spec.name, f"{status}; certificate {'passed' if ok else 'failed'}",
                                 cert.primal, cert.gap, wall + cert_s))
         timing = Timings(model.build_seconds, compile_s, solve_s, cert_s)
-        prices = _prices(task, model, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
+        prices = _prices(model, mults, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
         key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
         iterations = getattr(stats, "num_iters", None) if stats is not None else None
         if best is None or key < best[0]:

@@ -20,7 +20,7 @@ import numpy as np
 from . import losses as _losses
 from .convexity import Verdict, require_convex
 from .data import Dataset, from_data
-from .errors import DataError, NotConvexError, ParameterError
+from .errors import ParameterError
 from .penalties import CustomPenalty, Penalty
 from .rules import Context, Requirement, RuleSpec, as_spec, compile_all
 from .solvers import CLASS_LABEL, problem_class
@@ -162,10 +162,8 @@ class Task:
                 f"rules={[r.text for r in self.rules]})")
 
 
-def _loss(loss, kind: str, d: int) -> _losses.Loss:
-    obj = _losses.by_name(loss)
-    if not obj.convex:
-        raise obj.refusal() if hasattr(obj, "refusal") else NotConvexError(f"The loss {obj.describe()} is not convex.")
+def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
+    """Check that a (convex) loss object suits the task kind."""
     if isinstance(obj, _losses.Custom):
         require_convex(obj.fn, 5, f"Custom loss {obj.describe()!r}", "z")
         return obj
@@ -185,12 +183,9 @@ def _build(kind, data, target, loss, features, weights, intercept, positive) -> 
         raise lossobj.refusal()
     ds = from_data(data, target, kind=kind, features=features, weights=weights,
                    intercept=bool(intercept), positive=positive)
-    lossobj = _loss(lossobj, kind, ds.d)
+    lossobj = _loss(lossobj, kind)
     if kind == "classification" and lossobj.argument == "residual" and lossobj.name != "squared":
         raise ParameterError(f"The {lossobj.describe()} loss needs a numeric target; use lo.regression.")
-    if kind == "classification" and lossobj.name == "squared":
-        # least-squares classification: regress the -1/+1 labels
-        pass
     return Task(ds, kind, lossobj, bool(intercept), target if isinstance(target, str) else None)
 
 
