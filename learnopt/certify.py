@@ -42,6 +42,7 @@ class Certificate:
     rel_violation: float    # the same, relative to the size of each requirement's numbers
     stationarity: float     # size of the stationarity residual before the dual point was repaired
     note: str = ""
+    complementarity: float = 0.0  # largest |multiplier x slack| over the rules (KKT residual)
 
     def passes(self, gap_tol: float, feas_tol: float) -> bool:
         return bool(np.isfinite(self.gap) and self.rel_gap <= gap_tol and self.rel_violation <= feas_tol)
@@ -172,6 +173,17 @@ def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
     return u
 
 
+def _complementarity(requirements, multipliers, theta) -> float:
+    """Largest |multiplier x slack| over inequality and norm rules (zero at an exact KKT point)."""
+    worst = 0.0
+    for r, m in zip(requirements, multipliers):
+        if r.sense == "==":
+            continue
+        m = np.maximum(np.atleast_1d(np.asarray(m, float)), 0.0)
+        worst = max(worst, float(np.max(np.abs(m * r.slack(theta)), initial=0.0)))
+    return worst
+
+
 def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement], theta, u,
             multipliers, intercept: bool) -> Certificate:
     """Certificate for the point ``theta`` with dual point ``u`` and requirement multipliers."""
@@ -183,13 +195,14 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     viol = [r.violation(theta) for r in requirements]
     violation = max(viol, default=0.0)
     rel_violation = max((v / r.scale() for v, r in zip(viol, requirements)), default=0.0)
+    comp = _complementarity(requirements, multipliers, theta)
 
     try:
         loss.conjugate(np.zeros(1))
     except NotImplementedError:
         return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, np.nan,
-                           f"the loss {loss.describe()} has no conjugate, so no dual bound can be computed; "
-                           f"give custom(..., conjugate=...) to certify it")
+                           f"the loss {loss.describe()} has no conjugate, so no dual bound can be "
+                           f"computed; give custom(..., conjugate=...) to certify it", comp)
 
     low, high = loss.dual_domain()
     u = np.clip(np.asarray(u, float), low, high)
@@ -243,7 +256,7 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
         if not free_ok(u):
             note = ("the dual point could not be made exactly stationary along the free directions "
                     "(intercept and unpenalised coefficients); no finite dual bound")
-            return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, stationarity, note)
+            return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, stationarity, note, comp)
     g = gradient(u)
     if N.shape[1]:
         # what is left along the free directions is round-off (checked above); drop it
@@ -253,7 +266,7 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     dual = float(-a @ loss.conjugate(su) - (a * su) @ q + s * const_req + inner_val)
     if not np.isfinite(dual):
         note = note or "the dual bound is not finite at this point"
-        return Certificate(primal, dual, np.inf, np.inf, violation, rel_violation, stationarity, note)
+        return Certificate(primal, dual, np.inf, np.inf, violation, rel_violation, stationarity, note, comp)
     gap = max(primal - dual, 0.0)
     return Certificate(primal, dual, gap, gap / max(1.0, abs(primal)), violation, rel_violation,
-                       stationarity, note)
+                       stationarity, note, comp)

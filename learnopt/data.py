@@ -31,7 +31,7 @@ class Encoding:
     names: tuple[str, ...]                           # coefficient names
 
 
-@dataclass
+@dataclass(eq=False)
 class Dataset:
     """Validated data: design X (n x d), target y, row weights, names and the raw frame."""
 

@@ -131,6 +131,8 @@ class Fit:
                  f"objective  {self.objective:.10g}",
                  f"gap        {self.gap:.3g} (relative {self.rel_gap:.3g}), worst violation {self.violation:.3g}",
                  f"solver     {self.solver}  route {self.route}",
+                 *([f"KKT        stationarity {self.certificate.stationarity:.3g} (before repair), "
+                    f"complementarity {self.certificate.complementarity:.3g}"] if self.certificate else []),
                  f"timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items())]
         table = pd.DataFrame({"coef": self.coef})
         lines.append(table.to_string(float_format=lambda v: f"{v:.6g}"))

@@ -6,56 +6,36 @@ cannot hold together; otherwise the next capable solver is tried and the attempt
 """
 from __future__ import annotations
 
-import contextlib
-import os
-import sys
 import time
-import warnings
 
-import cvxpy as cp
 import numpy as np
 import pandas as pd
 
 from . import params
 from .certify import certify
-from .errors import SolverError
 from .fit import Attempt, Fit, Timings
-from .routes import direct, plan as plan_route
+from .routes import direct, prepare
+from .routes.base import SOLVER_FAULTS, loss_argument
 from .solvers import plan as plan_solvers
 
-
-@contextlib.contextmanager
-def _quiet(enabled: bool):
-    """Silence a solver's own start-up banner written straight to the C-level stdout."""
-    if not enabled:
-        yield
-        return
-    try:
-        fd = sys.stdout.fileno()
-    except (AttributeError, OSError, ValueError):
-        yield
-        return
-    sys.stdout.flush()
-    saved = os.dup(fd)
-    try:
-        with open(os.devnull, "w") as null:
-            os.dup2(null.fileno(), fd)
-            yield
-    finally:
-        os.dup2(saved, fd)
-        os.close(saved)
+POLISH_ROUNDS = 2      # tighter re-solves of one solver before moving down the chain
+POLISH_FACTOR = 1e-3   # each polish round divides the tolerance by this much
+TOL_FLOOR = 1e-13
 
 
-def _certify(task, model, theta, mults):
-    return certify(M=model.M, q=model.q, a=model.a, loss=task.loss, penalties=task.penalties,
-                   names=task.features, requirements=list(task.requirements), theta=theta,
-                   u=direct.dual_point(task, model, theta), multipliers=mults,
+def certify_point(task, theta, u, mults):
+    """learnopt's certificate for a point of the task (whatever route produced it)."""
+    M, q, a = loss_argument(task)
+    if u is None:
+        u = task.loss.gradient(M @ theta - q)
+    return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
+                   requirements=list(task.requirements), theta=theta, u=u, multipliers=mults,
                    intercept=task.intercept)
 
 
-def _prices(model, mults, theta, feas_tol, noise):
+def _prices(task, mults, theta, feas_tol, noise):
     prices, binding = {}, {}
-    for (r, _), m in zip(model.constraints, mults):
+    for r, m in zip(task.requirements, mults):
         value = float(np.sum(m)) if r.sense != "norm" else float(m)
         if r.sense == "<=" or r.sense == "norm":
             value = max(value, 0.0)
@@ -67,71 +47,73 @@ def _prices(model, mults, theta, feas_tol, noise):
     return pd.Series(prices, dtype=float), pd.Series(binding, dtype=bool)
 
 
-def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_options, verbose) -> Fit:
+def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_options, verbose,
+               time_limit=None, polish=False) -> Fit:
     params.check("solve", tol=(tol, params.POSITIVE), gap_tol=(gap_tol, params.POSITIVE),
                  feas_tol=(feas_tol, params.POSITIVE))
+    if time_limit is not None:
+        params.check("solve", time_limit=(time_limit, params.POSITIVE))
     t_start = time.perf_counter()
-    route = plan_route(task, route)
-    klass = task.problem_class()
-    chain = plan_solvers(klass, solver, fallback=fallback)
-    model = direct.build(task)
+    runner = prepare(task, route)
+    chain = plan_solvers(runner.problem_class, solver, fallback=fallback)
     attempts: list[Attempt] = []
-    best = None          # (rel_gap, spec, theta, cert, timings)
+    best = None          # (key, spec, theta, cert, timings, prices, iterations)
     verdict = None       # "infeasible" / "unbounded" once confirmed
     conflicts = {}
+    done = False         # a point certified within the time limit
     for spec in chain:
-        t0 = time.perf_counter()
-        opts = {**spec.options(tol), **solver_options}
-        try:
-            with warnings.catch_warnings(), _quiet(not verbose):
-                warnings.simplefilter("ignore")
-                model.problem.solve(solver=spec.cvxpy_name, verbose=verbose, **opts)
-        except (cp.error.SolverError, ValueError, ArithmeticError, RuntimeError) as exc:
-            attempts.append(Attempt(spec.name, f"error: {str(exc).splitlines()[0][:200]}",
-                                    seconds=time.perf_counter() - t0))
-            continue
-        wall = time.perf_counter() - t0
-        status = model.problem.status
-        compile_s = float(getattr(model.problem, "compilation_time", None) or 0.0)
-        stats = model.problem.solver_stats
-        solve_s = float(stats.solve_time) if stats is not None and stats.solve_time else max(wall - compile_s, 0.0)
-        if status in (cp.INFEASIBLE, cp.INFEASIBLE_INACCURATE):
-            found = direct.elastic(task)
-            if found:
-                attempts.append(Attempt(spec.name, f"{status}; confirmed by the elastic relaxation", seconds=wall))
-                verdict, conflicts = "infeasible", found
+        rounds = [tol] + ([max(tol * POLISH_FACTOR ** k, TOL_FLOOR) for k in range(1, POLISH_ROUNDS + 1)]
+                          if polish else [])
+        for k, tol_k in enumerate(rounds):
+            label = spec.name if k == 0 else f"{spec.name} (polish, tol {tol_k:g})"
+            t0 = time.perf_counter()
+            opts = {**spec.settings(tol_k, time_limit), **solver_options}
+            try:
+                out = runner.run(spec, opts, verbose, warm=k > 0)
+            except SOLVER_FAULTS as exc:
+                attempts.append(Attempt(label, f"error: {str(exc).splitlines()[0][:200]}",
+                                        seconds=time.perf_counter() - t0))
                 break
-            attempts.append(Attempt(spec.name, f"{status}, but the requirements can all hold: "
-                                    f"the solver's claim is rejected", seconds=wall))
-            continue
-        if status in (cp.UNBOUNDED, cp.UNBOUNDED_INACCURATE):
-            attempts.append(Attempt(spec.name, status, seconds=wall))
-            if sum(a.outcome.startswith("unbounded") for a in attempts) >= 2 or spec is chain[-1]:
-                verdict = "unbounded"
+            wall = time.perf_counter() - t0
+            late = time_limit is not None and wall > time_limit
+            late_note = f"; took {wall:.3g}s, over the time limit of {time_limit:g}s" if late else ""
+            status = out.status
+            if status in ("infeasible", "infeasible_inaccurate"):
+                found = direct.elastic(task)
+                if found:
+                    attempts.append(Attempt(label, f"{status}; confirmed by the elastic relaxation", seconds=wall))
+                    verdict, conflicts = "infeasible", found
+                    break
+                attempts.append(Attempt(label, f"{status}, but the requirements can all hold: "
+                                        f"the solver's claim is rejected{late_note}", seconds=wall))
                 break
-            continue
-        theta = model.theta.value
-        if theta is None or not np.all(np.isfinite(theta)):
-            attempts.append(Attempt(spec.name, f"{status}; no usable point returned", seconds=wall))
-            continue
-        theta = np.asarray(theta, float).copy()
-        t1 = time.perf_counter()
-        mults = direct.multipliers(model)
-        cert = _certify(task, model, theta, mults)
-        cert_s = time.perf_counter() - t1
-        ok = cert.passes(gap_tol, feas_tol)
-        attempts.append(Attempt(spec.name, f"{status}; certificate {'passed' if ok else 'failed'}",
-                                cert.primal, cert.gap, wall + cert_s))
-        timing = Timings(model.build_seconds, compile_s, solve_s, cert_s)
-        prices = _prices(model, mults, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
-        key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
-        iterations = getattr(stats, "num_iters", None) if stats is not None else None
-        if best is None or key < best[0]:
-            best = (key, spec, theta, cert, timing, prices, iterations)
-        if ok:
+            if status in ("unbounded", "unbounded_inaccurate"):
+                attempts.append(Attempt(label, status + late_note, seconds=wall))
+                if sum(a.outcome.startswith("unbounded") for a in attempts) >= 2 or spec is chain[-1]:
+                    verdict = "unbounded"
+                break
+            theta = out.theta
+            if theta is None or not np.all(np.isfinite(theta)):
+                attempts.append(Attempt(label, f"{status}; no usable point returned{late_note}", seconds=wall))
+                break
+            t1 = time.perf_counter()
+            cert = certify_point(task, theta, out.u, out.multipliers)
+            cert_s = time.perf_counter() - t1
+            ok = cert.passes(gap_tol, feas_tol)
+            attempts.append(Attempt(label, f"{status}; certificate {'passed' if ok else 'failed'}{late_note}",
+                                    cert.primal, cert.gap, wall + cert_s))
+            timing = Timings(runner.build_seconds, out.compile_seconds, out.solve_seconds, cert_s)
+            prices = _prices(task, out.multipliers, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
+            key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
+            if best is None or key < best[0]:
+                best = (key, spec, theta, cert, timing, prices, out.iterations)
+            done = ok and not late
+            if ok or late:
+                break
+        if verdict is not None or done:
             break
     total = time.perf_counter() - t_start
-    return _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol, total)
+    return _assemble(task, runner.name, attempts, best, verdict, conflicts, gap_tol, feas_tol, total)
 
 
 def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol, total) -> Fit:

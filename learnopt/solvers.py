@@ -28,6 +28,14 @@ class SolverSpec:
     handles: frozenset[str]
     options: Callable[[float], dict]
     extra: str = ""  # pip extra that installs it, if not a core dependency
+    time_option: str | None = None  # the solver's own wall-clock limit option, if it has one
+
+    def settings(self, tol: float, time_limit: float | None = None) -> dict:
+        """The solver's own options for learnopt's tol (and time limit, where it has one)."""
+        out = self.options(tol)
+        if time_limit is not None and self.time_option:
+            out[self.time_option] = float(time_limit)
+        return out
 
     def installed(self) -> bool:
         return self.cvxpy_name in cp.installed_solvers()
@@ -45,19 +53,22 @@ class SolverSpec:
 
 REGISTRY: dict[str, SolverSpec] = {s.name: s for s in (
     SolverSpec("clarabel", "CLARABEL", "clarabel", frozenset(CLASSES),
-               lambda tol: dict(tol_gap_abs=tol, tol_gap_rel=tol, tol_feas=tol, max_iter=500)),
+               lambda tol: dict(tol_gap_abs=tol, tol_gap_rel=tol, tol_feas=tol, max_iter=500),
+               time_option="time_limit"),
     SolverSpec("osqp", "OSQP", "osqp", frozenset({"linear", "quadratic"}),
-               lambda tol: dict(eps_abs=tol, eps_rel=tol, max_iter=200_000, polish=True)),
+               lambda tol: dict(eps_abs=tol, eps_rel=tol, max_iter=200_000, polish=True),
+               time_option="time_limit"),
     SolverSpec("scs", "SCS", "scs", frozenset(CLASSES),
-               lambda tol: dict(eps_abs=tol, eps_rel=tol, max_iters=200_000)),
-    SolverSpec("ecos", "ECOS", "ecos", frozenset(CLASSES), 
+               lambda tol: dict(eps_abs=tol, eps_rel=tol, max_iters=200_000),
+               time_option="time_limit_secs"),
+    SolverSpec("ecos", "ECOS", "ecos", frozenset(CLASSES),
                lambda tol: dict(abstol=max(tol, 1e-12), reltol=max(tol, 1e-12), feastol=max(tol, 1e-12),
                                 max_iters=500), extra="solvers"),
     SolverSpec("highs", "HIGHS", "highspy", frozenset({"linear", "quadratic"}),
                lambda tol: dict(primal_feasibility_tolerance=max(tol, 1e-10),
                                 dual_feasibility_tolerance=max(tol, 1e-10),
                                 ipm_optimality_tolerance=max(tol, 1e-12), output_flag=False),
-               extra="solvers"),
+               extra="solvers", time_option="time_limit"),
 )}
 
 # preferred order per problem class (first installed and capable wins; the rest are fallbacks)

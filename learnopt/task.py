@@ -53,7 +53,7 @@ class Task:
         return self.dataset.names + (("intercept",) if self.intercept else ())
 
     def context(self) -> Context:
-        from .routes.direct import design_with_ones
+        from .routes.base import design_with_ones
         X = self.dataset.X
         Xt = design_with_ones(X, self.intercept)
         dense = Xt.toarray() if hasattr(Xt, "toarray") else Xt
@@ -129,6 +129,7 @@ class Task:
     # ---- solving
     def solve(self, solver: str | None = None, *, tol: float = 1e-9, gap_tol: float = 1e-7,
               feas_tol: float = 1e-6, route: str | None = None, fallback: bool = True,
+              time_limit: float | None = None, polish: bool = False,
               solver_options: dict | None = None, verbose: bool = False):
         """Solve and certify; return a :class:`~learnopt.fit.Fit`.
 
@@ -139,10 +140,20 @@ class Task:
         tol : solver tolerance, mapped to each solver's own options.
         gap_tol, feas_tol : the certificate passes ("optimal") when gap / max(1, |objective|)
             <= gap_tol and every requirement holds within feas_tol (relative to its numbers).
+        route : how to solve ("direct", ...); default: planned from the task's structure and
+            named in ``fit.route``.
+        time_limit : seconds allowed per solver attempt. Passed to solvers that have a limit of
+            their own (all but ECOS); an attempt that runs over is recorded in ``fit.attempts``
+            and the next solver is tried. Its point is kept if nothing better is found.
+        polish : when a solver's point fails the certificate, re-solve with the same solver
+            (warm-started) at tol/1e3 and tol/1e6 before moving down the chain.
+        solver_options : extra options passed unchanged to the solver (its own names).
+        verbose : show the solver's own log.
         """
         from .solve import solve_task
         return solve_task(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route,
-                          fallback=fallback, solver_options=solver_options or {}, verbose=verbose)
+                          fallback=fallback, solver_options=solver_options or {}, verbose=verbose,
+                          time_limit=time_limit, polish=polish)
 
     def compare(self, solvers: Sequence[str] = ("clarabel", "osqp", "scs", "ecos", "highs"), *,
                 tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6):

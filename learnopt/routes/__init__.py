@@ -1,19 +1,38 @@
-"""Routes: how a task is solved. The planner names the route in every fit.
+"""Routes: how a task is solved. The planner picks one and names it in every fit.
 
-Only the ``direct`` route exists so far: one vectorised cvxpy problem handed to an open solver.
+Each route module has ``eligible(task) -> str | None`` (None, or why the route cannot take
+the task) and a ``Runner(task)`` with ``name``, ``build_seconds``, ``problem_class`` and
+``run(spec, options, verbose, warm) -> Outcome``.
+
+- direct: one vectorised cvxpy problem; takes every task.
 """
 from __future__ import annotations
+
+import importlib
 
 from ..errors import ParameterError
 
 ROUTES = ("direct",)
 
 
+def _module(name: str):
+    return importlib.import_module(f"{__name__}.{name.replace('-', '_')}")
+
+
 def plan(task, route: str | None) -> str:
-    """Pick the route for a task (or check the one asked for)."""
+    """Pick the route for a task (or check that the one asked for can take it)."""
     if route is None:
         return "direct"
     if route not in ROUTES:
         raise ParameterError(f"The 'route' parameter of solve must be one of {', '.join(ROUTES)}. "
                              f"Got {route!r} instead.")
+    why = _module(route).eligible(task)
+    if why:
+        raise ParameterError(f"The {route} route cannot solve this task: {why}. "
+                             f"Leave route=None to let learnopt choose.")
     return route
+
+
+def prepare(task, route: str | None):
+    """The runner of the planned route, built once for every solver attempt."""
+    return _module(plan(task, route)).Runner(task)

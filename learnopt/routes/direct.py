@@ -15,6 +15,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..rules import Requirement
+from .base import Outcome, loss_argument, read_multipliers, requirement_constraint, run
 
 
 @dataclass
@@ -29,36 +30,10 @@ class Model:
     build_seconds: float
 
 
-def design_with_ones(X, intercept: bool):
-    if not intercept:
-        return X
-    ones = np.ones((X.shape[0], 1))
-    return sp.hstack([X, sp.csr_matrix(ones)], format="csr") if sp.issparse(X) else np.hstack([X, ones])
-
-
-def loss_argument(task):
-    """(M, q) with z = M theta - q."""
-    ds = task.dataset
-    Xt = design_with_ones(ds.X, task.intercept)
-    if task.loss.argument == "margin":
-        M = sp.diags(ds.y) @ Xt if sp.issparse(Xt) else ds.y[:, None] * Xt
-        return (M.tocsr() if sp.issparse(M) else M), np.zeros(ds.n)
-    return Xt, ds.y
-
-
-def requirement_constraint(r: Requirement, theta) -> cp.Constraint:
-    if r.sense == "norm":
-        return cp.norm(r.A @ theta + r.rhs, r.order) + r.f @ theta <= r.bound
-    if r.sense == "==":
-        return r.A @ theta == r.rhs
-    return r.A @ theta <= r.rhs
-
-
 def build(task) -> Model:
     t0 = time.perf_counter()
     ds = task.dataset
-    M, q = loss_argument(task)
-    a = ds.weights / ds.weights.sum()
+    M, q, a = loss_argument(task)
     p = M.shape[1]
     theta = cp.Variable(p, name="theta")
     w = theta[: ds.d]
@@ -81,28 +56,40 @@ def build(task) -> Model:
     return Model(problem, theta, tie, pairs, M, q, a, time.perf_counter() - t0)
 
 
-def dual_point(task, model: Model, theta: np.ndarray) -> np.ndarray:
-    """The loss dual point u (one per row) at the returned solution."""
-    if model.tie is None:
-        return task.loss.gradient(model.M @ theta - model.q)
-    nu = model.tie.dual_value
-    if nu is None:
-        return task.loss.gradient(model.M @ theta - model.q)
-    nu = np.asarray(nu, float).ravel()
-    with np.errstate(divide="ignore", invalid="ignore"):
-        u = np.where(model.a > 0, -nu / model.a, 0.0)
-    return u
+def eligible(task) -> str | None:
+    """The direct route takes every task."""
+    return None
 
 
-def multipliers(model: Model) -> list:
-    out = []
-    for r, c in model.constraints:
-        dv = c.dual_value
-        if dv is None:
-            out.append(np.zeros(r.rows) if r.sense != "norm" else 0.0)
-        else:
-            out.append(float(np.sum(dv)) if r.sense == "norm" else np.asarray(dv, float).ravel())
-    return out
+class Runner:
+    """The direct route: build the one problem once, solve it with whichever solver is asked."""
+
+    name = "direct"
+
+    def __init__(self, task):
+        self.task = task
+        self.model = build(task)
+        self.build_seconds = self.model.build_seconds
+        self.problem_class = task.problem_class()
+
+    def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
+        model = self.model
+        status, compile_s, solve_s, iterations = run(model.problem, spec, options, verbose, warm)
+        theta = model.theta.value
+        if theta is not None:
+            theta = np.asarray(theta, float).copy()
+        u = self.dual_point(theta) if theta is not None and np.all(np.isfinite(theta)) else None
+        return Outcome(status, theta, u, read_multipliers(model.constraints), compile_s, solve_s, iterations)
+
+    def dual_point(self, theta: np.ndarray) -> np.ndarray:
+        """The loss dual point u (one per row): the tie's dual value, or the loss gradient."""
+        model = self.model
+        nu = model.tie.dual_value if model.tie is not None else None
+        if nu is None:
+            return self.task.loss.gradient(model.M @ theta - model.q)
+        nu = np.asarray(nu, float).ravel()
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(model.a > 0, -nu / model.a, 0.0)
 
 
 def elastic(task, tol: float = 1e-7):

@@ -1,0 +1,129 @@
+"""What every route shares: the loss argument, requirement constraints, one solver run.
+
+A route turns a task into one or more cvxpy problems and returns an :class:`Outcome` per
+solver attempt: the point theta = (w, b), the loss dual point u (one value per row, used by
+the certificate) and one multiplier per requirement (in ``task.requirements`` order).
+"""
+from __future__ import annotations
+
+import contextlib
+import os
+import sys
+import time
+import warnings
+import weakref
+from dataclasses import dataclass, field
+
+import cvxpy as cp
+import numpy as np
+import scipy.sparse as sp
+
+from ..rules import Requirement
+
+
+@dataclass
+class Outcome:
+    """One solver attempt on a route, before learnopt certifies it."""
+
+    status: str                          # the solver's word, through cvxpy ("optimal", "infeasible", ...)
+    theta: np.ndarray | None = None
+    u: np.ndarray | None = None          # loss dual point per row (None: use the loss gradient)
+    multipliers: list = field(default_factory=list)
+    compile_seconds: float = 0.0
+    solve_seconds: float = 0.0
+    iterations: int | None = None
+    note: str = ""
+
+
+_ARGUMENTS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
+def design_with_ones(X, intercept: bool):
+    if not intercept:
+        return X
+    ones = np.ones((X.shape[0], 1))
+    return sp.hstack([X, sp.csr_matrix(ones)], format="csr") if sp.issparse(X) else np.hstack([X, ones])
+
+
+def loss_argument(task):
+    """(M, q, a) with loss argument z = M theta - q and row weights a summing to one.
+
+    Residual losses: M = [X 1], q = y. Margin losses: M = diag(y) [X 1], q = 0. Cached per
+    dataset, so routes and the certificate share one copy of the design.
+    """
+    ds = task.dataset
+    key = (task.intercept, task.loss.argument)
+    cache = _ARGUMENTS.setdefault(ds, {})
+    if key not in cache:
+        Xt = design_with_ones(ds.X, task.intercept)
+        if task.loss.argument == "margin":
+            M = sp.diags(ds.y) @ Xt if sp.issparse(Xt) else ds.y[:, None] * Xt
+            M, q = (M.tocsr() if sp.issparse(M) else M), np.zeros(ds.n)
+        else:
+            M, q = Xt, ds.y
+        cache.clear()   # one design per dataset is enough; the key changes only with the task's loss
+        cache[key] = (M, q, ds.weights / ds.weights.sum())
+    return cache[key]
+
+
+def requirement_constraint(r: Requirement, theta) -> cp.Constraint:
+    if r.sense == "norm":
+        return cp.norm(r.A @ theta + r.rhs, r.order) + r.f @ theta <= r.bound
+    if r.sense == "==":
+        return r.A @ theta == r.rhs
+    return r.A @ theta <= r.rhs
+
+
+def read_multipliers(pairs) -> list:
+    """One multiplier per requirement from solved constraints (zeros when the solver gave none)."""
+    out = []
+    for r, c in pairs:
+        dv = c.dual_value
+        if dv is None:
+            out.append(np.zeros(r.rows) if r.sense != "norm" else 0.0)
+        else:
+            out.append(float(np.sum(dv)) if r.sense == "norm" else np.asarray(dv, float).ravel())
+    return out
+
+
+@contextlib.contextmanager
+def quiet(enabled: bool):
+    """Silence a solver's own start-up banner written straight to the C-level stdout."""
+    if not enabled:
+        yield
+        return
+    try:
+        fd = sys.stdout.fileno()
+    except (AttributeError, OSError, ValueError):
+        yield
+        return
+    sys.stdout.flush()
+    saved = os.dup(fd)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), fd)
+            yield
+    finally:
+        os.dup2(saved, fd)
+        os.close(saved)
+
+
+def run(problem: cp.Problem, spec, options: dict, verbose: bool, warm: bool = False):
+    """Solve one cvxpy problem with a registry solver: (status, compile s, solve s, iterations).
+
+    Raises cvxpy's SolverError (and ValueError/ArithmeticError from bad numbers) for the
+    caller to record as a failed attempt.
+    """
+    t0 = time.perf_counter()
+    with warnings.catch_warnings(), quiet(not verbose):
+        warnings.simplefilter("ignore")
+        problem.solve(solver=spec.cvxpy_name, verbose=verbose, warm_start=warm, **options)
+    wall = time.perf_counter() - t0
+    compile_s = float(getattr(problem, "compilation_time", None) or 0.0)
+    stats = problem.solver_stats
+    solve_s = float(stats.solve_time) if stats is not None and stats.solve_time else max(wall - compile_s, 0.0)
+    iterations = getattr(stats, "num_iters", None) if stats is not None else None
+    return problem.status, compile_s, solve_s, iterations
+
+
+SOLVER_FAULTS = (cp.error.SolverError, ValueError, ArithmeticError, RuntimeError)

@@ -1,0 +1,85 @@
+"""The certificate as evidence: it tightens with the solver tolerance, reports KKT residuals,
+and drives time limits and polishing."""
+import time
+
+import cvxpy as cp
+import numpy as np
+import pytest
+
+import learnopt as lo
+
+
+@pytest.fixture
+def task():
+    rng = np.random.default_rng(11)
+    X = rng.normal(size=(120, 5))
+    y = X @ np.array([1.0, -2.0, 0.0, 0.5, 0.0]) + 0.5 * rng.normal(size=120)
+    return lo.regression(X, y).penalize(lo.penalty.l1(0.05)).require("x0 <= 0.6", "x1 + x3 >= -1")
+
+
+def test_gap_shrinks_as_tolerance_tightens(task):
+    # weak duality (common practice): the certified gap must fall with the solver tolerance,
+    # and every point's gap must cover its own suboptimality against the tightest solve
+    best = task.solve(tol=1e-11)
+    gaps = []
+    for tol in (1e-2, 1e-4, 1e-6, 1e-9):
+        fit = task.solve(solver="scs", tol=tol, fallback=False)
+        assert fit.objective - best.objective <= fit.gap + 1e-12
+        gaps.append(fit.gap)
+    assert gaps[-1] < 1e-4 * gaps[0]
+    assert gaps[-1] / max(1.0, abs(best.objective)) <= 1e-7
+
+
+def test_tight_solve_is_certified_to_1e8(task):
+    fit = task.solve(tol=1e-10)
+    assert fit.status == "optimal" and fit.rel_gap <= 1e-8
+
+
+def test_kkt_residuals_reported(task):
+    fit = task.solve(tol=1e-10)
+    cert = fit.certificate
+    assert fit.binding["x0 <= 0.6"] and fit.prices["x0 <= 0.6"] > 0
+    assert cert.complementarity <= 1e-7
+    assert cert.stationarity >= 0.0
+    loose = task.solve(solver="scs", tol=1e-2, fallback=False, solver_options={"max_iters": 40})
+    assert loose.certificate.complementarity > cert.complementarity
+    assert "complementarity" in fit.summary()
+
+
+def test_time_limit_moves_down_the_chain(monkeypatch, task):
+    real = cp.Problem.solve
+
+    def slow(self, *args, solver=None, **kwargs):
+        if solver == "CLARABEL":
+            time.sleep(0.3)
+        return real(self, *args, solver=solver, **kwargs)
+
+    monkeypatch.setattr(cp.Problem, "solve", slow)
+    fit = task.solve(time_limit=0.2)
+    assert fit.attempts[0].solver == "clarabel"
+    assert "over the time limit" in fit.attempts[0].outcome
+    assert fit.status == "optimal" and fit.solver != "clarabel"
+
+
+def test_time_limit_reaches_the_solver(monkeypatch, task):
+    seen = {}
+    real = cp.Problem.solve
+
+    def spy(self, *args, solver=None, **kwargs):
+        seen[solver] = kwargs
+        return real(self, *args, solver=solver, **kwargs)
+
+    monkeypatch.setattr(cp.Problem, "solve", spy)
+    task.solve(solver="scs", time_limit=5.0, fallback=False)
+    assert seen["SCS"]["time_limit_secs"] == 5.0
+    with pytest.raises(lo.ParameterError, match="'time_limit' parameter of solve must be > 0"):
+        task.solve(time_limit=-1)
+
+
+def test_polish_turns_a_loose_solve_into_a_certified_one(task):
+    loose = task.solve(solver="scs", tol=1e-2, fallback=False)
+    assert loose.status == "unverified"
+    polished = task.solve(solver="scs", tol=1e-2, fallback=False, polish=True)
+    assert polished.status == "optimal", polished.message
+    assert any("polish" in a.solver for a in polished.attempts)
+    assert polished.objective <= loose.objective + loose.gap
