@@ -69,6 +69,10 @@ class Loss:
         """A (sub)gradient of f at z, per row."""
         raise NotImplementedError
 
+    def curvature(self, z: np.ndarray) -> np.ndarray:
+        """Second derivative f''(z) per row (a generalised one where f' has kinks); smooth losses only."""
+        raise NotImplementedError
+
     def conjugate(self, u: np.ndarray) -> np.ndarray:
         """Per-row convex conjugate f*(u); +inf outside :meth:`dual_domain`."""
         raise NotImplementedError
@@ -108,6 +112,9 @@ class Squared(Loss):
 
     def gradient(self, z):
         return 2.0 * z
+
+    def curvature(self, z):
+        return np.full(np.shape(z), 2.0)
 
     def conjugate(self, u):
         return u ** 2 / 4.0
@@ -156,6 +163,9 @@ class Huber(Loss):
 
     def gradient(self, z):
         return 2.0 * np.clip(z, -self.delta, self.delta)
+
+    def curvature(self, z):
+        return np.where(np.abs(z) <= self.delta, 2.0, 0.0)
 
     def conjugate(self, u):
         return np.where(self._outside(u), np.inf, u ** 2 / 4.0)
@@ -270,6 +280,9 @@ class SquaredHinge(Loss):
     def gradient(self, z):
         return -2.0 * np.maximum(0.0, 1.0 - z)
 
+    def curvature(self, z):
+        return np.where(z < 1.0, 2.0, 0.0)
+
     def conjugate(self, u):
         return np.where(self._outside(u), np.inf, u + u ** 2 / 4.0)
 
@@ -294,6 +307,9 @@ class Logistic(Loss):
 
     def gradient(self, z):
         return -expit(-z)
+
+    def curvature(self, z):
+        return expit(z) * expit(-z)
 
     def conjugate(self, u):
         inside = np.clip(u, -1.0, 0.0)

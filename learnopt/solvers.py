@@ -7,12 +7,19 @@ solvers to try, in order, for a problem class.
 from __future__ import annotations
 
 import difflib
+import functools
 from dataclasses import dataclass
 from typing import Callable
 
 import cvxpy as cp
 
 from .errors import SolverError
+
+@functools.lru_cache(maxsize=1)
+def _installed() -> frozenset[str]:
+    """cvxpy's list of importable solvers (it probes every module, so ask once)."""
+    return frozenset(cp.installed_solvers())
+
 
 CLASSES = ("linear", "quadratic", "second_order", "exponential")
 CLASS_LABEL = {"linear": "LP", "quadratic": "QP", "second_order": "SOCP", "exponential": "exponential cone"}
@@ -38,7 +45,7 @@ class SolverSpec:
         return out
 
     def installed(self) -> bool:
-        return self.cvxpy_name in cp.installed_solvers()
+        return self.cvxpy_name in _installed()
 
     def why_not(self, problem_class: str) -> str | None:
         """Reason this solver cannot solve the class, or None."""

@@ -92,8 +92,9 @@ class Task:
         return replace(self, rules=self.rules + specs, requirements=self.requirements + tuple(compiled))
 
     # ---- verdict
-    def problem_class(self) -> str:
-        cones = [self.loss.cone] + [p.cone for p in self.penalties]
+    def problem_class(self, loss_cone: str | None = None) -> str:
+        """The widest cone class the pieces need (``loss_cone`` replaces the loss's own)."""
+        cones = [loss_cone or self.loss.cone] + [p.cone for p in self.penalties]
         cones += ["second_order" if r.sense == "norm" and r.order == 2 else "linear" for r in self.requirements]
         return problem_class(cones)
 

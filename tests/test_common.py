@@ -49,6 +49,15 @@ def test_gradient_matches_finite_differences(loss):
     np.testing.assert_allclose(loss.gradient(z), fd, atol=1e-5)
 
 
+@pytest.mark.parametrize("loss", [l for l in LOSSES if l.smooth], ids=lambda l: l.describe())
+def test_curvature_matches_finite_differences(loss):
+    # the newton route's Hessian: f'' by central differences of f', away from the kinks of f'
+    z = Z[(np.abs(np.abs(Z) - 0.7) > 0.05) & (np.abs(Z - 1.0) > 0.05)]
+    h = 1e-6
+    fd = (loss.gradient(z + h) - loss.gradient(z - h)) / (2 * h)
+    np.testing.assert_allclose(loss.curvature(z), fd, atol=1e-5)
+
+
 @pytest.mark.parametrize("pen", PENALTIES, ids=lambda p: p.describe())
 def test_penalty_numpy_equals_cvxpy(pen):
     w = cp.Variable(4)

@@ -140,7 +140,7 @@ def test_timings_and_evidence(data):
     t = fit.timings.as_dict()
     assert set(t) == {"build", "compile", "solve", "certify", "total"}
     assert all(v >= 0 for v in t.values()) and t["total"] >= t["certify"]
-    assert fit.route == "direct" and fit.solver in lo.installed_solvers()
+    assert fit.route == "compressed" and fit.solver in lo.installed_solvers()
     assert "statistical estimate" in fit.summary()
 
 

@@ -5,6 +5,8 @@ the task) and a ``Runner(task)`` with ``name``, ``build_seconds``, ``problem_cla
 ``run(spec, options, verbose, warm) -> Outcome``.
 
 - direct: one vectorised cvxpy problem; takes every task.
+- compressed: squared loss; X reduced exactly to a p x p factor, then a small problem.
+- newton: smooth losses; proximal Newton steps, each a small p-dim problem, line search.
 """
 from __future__ import annotations
 
@@ -12,7 +14,7 @@ import importlib
 
 from ..errors import ParameterError
 
-ROUTES = ("direct",)
+ROUTES = ("direct", "compressed", "newton")
 
 
 def _module(name: str):
@@ -22,7 +24,7 @@ def _module(name: str):
 def plan(task, route: str | None) -> str:
     """Pick the route for a task (or check that the one asked for can take it)."""
     if route is None:
-        return "direct"
+        return _auto(task)
     if route not in ROUTES:
         raise ParameterError(f"The 'route' parameter of solve must be one of {', '.join(ROUTES)}. "
                              f"Got {route!r} instead.")
@@ -36,3 +38,14 @@ def plan(task, route: str | None) -> str:
 def prepare(task, route: str | None):
     """The runner of the planned route, built once for every solver attempt."""
     return _module(plan(task, route)).Runner(task)
+
+
+def _auto(task) -> str:
+    """The planner: the route that exploits the task's structure, else direct."""
+    n, p = task.dataset.n, task.dataset.d + int(task.intercept)
+    if n <= p:
+        return "direct"
+    for name in ("compressed", "newton"):
+        if _module(name).eligible(task) is None:
+            return name
+    return "direct"

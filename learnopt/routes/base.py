@@ -11,7 +11,6 @@ import os
 import sys
 import time
 import warnings
-import weakref
 from dataclasses import dataclass, field
 
 import cvxpy as cp
@@ -35,9 +34,6 @@ class Outcome:
     note: str = ""
 
 
-_ARGUMENTS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-
-
 def design_with_ones(X, intercept: bool):
     if not intercept:
         return X
@@ -45,25 +41,65 @@ def design_with_ones(X, intercept: bool):
     return sp.hstack([X, sp.csr_matrix(ones)], format="csr") if sp.issparse(X) else np.hstack([X, ones])
 
 
+class Design:
+    """M = diag(s) [X 1] as an operator: products with M and M' without copying X.
+
+    Supports ``M @ v`` (v of length p or p x k), ``M.T @ u``, ``M[rows]`` and ``M.shape``.
+    """
+
+    def __init__(self, X, intercept: bool, s: np.ndarray | None = None):
+        self.X, self.intercept, self.s = X, intercept, s
+        self.shape = (X.shape[0], X.shape[1] + int(intercept))
+
+    def __matmul__(self, v):
+        v = np.asarray(v, float)
+        d = self.X.shape[1]
+        out = np.asarray(self.X @ v[:d])
+        if self.intercept:
+            out = out + v[d]
+        if self.s is not None:
+            out = out * (self.s if out.ndim == 1 else self.s[:, None])
+        return out
+
+    def __getitem__(self, rows):
+        return Design(self.X[rows], self.intercept, None if self.s is None else self.s[rows])
+
+    @property
+    def T(self):
+        return _Adjoint(self)
+
+    def explicit(self):
+        """The matrix itself (dense or CSR), for the direct route's cvxpy problem."""
+        M = design_with_ones(self.X, self.intercept)
+        if self.s is None:
+            return M
+        return (sp.diags(self.s) @ M).tocsr() if sp.issparse(M) else self.s[:, None] * M
+
+
+class _Adjoint:
+    def __init__(self, design: Design):
+        self.design = design
+
+    def __matmul__(self, u):
+        D = self.design
+        u = np.asarray(u, float)
+        if D.s is not None:
+            u = u * (D.s if u.ndim == 1 else D.s[:, None])
+        out = np.asarray(D.X.T @ u)
+        return np.concatenate([out, u.sum(axis=0, keepdims=True)]) if D.intercept else out
+
+
 def loss_argument(task):
     """(M, q, a) with loss argument z = M theta - q and row weights a summing to one.
 
-    Residual losses: M = [X 1], q = y. Margin losses: M = diag(y) [X 1], q = 0. Cached per
-    dataset, so routes and the certificate share one copy of the design.
+    Residual losses: M = [X 1], q = y. Margin losses: M = diag(y) [X 1], q = 0. M is a
+    :class:`Design` operator (no copy of X).
     """
     ds = task.dataset
-    key = (task.intercept, task.loss.argument)
-    cache = _ARGUMENTS.setdefault(ds, {})
-    if key not in cache:
-        Xt = design_with_ones(ds.X, task.intercept)
-        if task.loss.argument == "margin":
-            M = sp.diags(ds.y) @ Xt if sp.issparse(Xt) else ds.y[:, None] * Xt
-            M, q = (M.tocsr() if sp.issparse(M) else M), np.zeros(ds.n)
-        else:
-            M, q = Xt, ds.y
-        cache.clear()   # one design per dataset is enough; the key changes only with the task's loss
-        cache[key] = (M, q, ds.weights / ds.weights.sum())
-    return cache[key]
+    a = ds.weights / ds.weights.sum()
+    if task.loss.argument == "margin":
+        return Design(ds.X, task.intercept, ds.y), np.zeros(ds.n), a
+    return Design(ds.X, task.intercept), ds.y, a
 
 
 def requirement_constraint(r: Requirement, theta) -> cp.Constraint:

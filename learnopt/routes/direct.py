@@ -34,6 +34,7 @@ def build(task) -> Model:
     t0 = time.perf_counter()
     ds = task.dataset
     M, q, a = loss_argument(task)
+    M = M.explicit()
     p = M.shape[1]
     theta = cp.Variable(p, name="theta")
     w = theta[: ds.d]

@@ -1,0 +1,114 @@
+"""The compressed route: squared loss reduced exactly to a p x p factor, then a small problem.
+
+With row weights a (summing to one), M = [X 1] and theta = (w, b),
+
+    sum_i a_i (m_i' theta - y_i)^2 = theta' G theta - 2 c' theta + y' A y,   G = M' A M, c = M' A y.
+
+Gram + Cholesky (G = R'R): the loss is ||R theta - R^{-T} c||^2 + constant. When G is
+ill-conditioned (condition number after column scaling above ``GRAM_LIMIT``: forming G squares the condition
+number of the data) or singular, a QR factorisation of sqrt(a) [M y] = Q [R r; 0 rho] is used
+instead: the loss is ||R theta - r||^2 + rho^2, with no squaring of the condition number.
+Either way the small problem has the same optimum as the full one; penalties and rules are
+added to it unchanged. The certificate is still computed on every row.
+"""
+from __future__ import annotations
+
+import time
+import warnings
+
+import cvxpy as cp
+import numpy as np
+import scipy.linalg as sla
+import scipy.sparse as sp
+
+from .base import Outcome, read_multipliers, requirement_constraint, run
+
+GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
+
+
+def eligible(task) -> str | None:
+    if task.loss.name != "squared":
+        return f"it needs the squared loss (this task has {task.loss.describe()})"
+    return None
+
+
+def gram(task):
+    """(G, c): M' A M and M' A y, with the intercept column handled blockwise (no copy of X)."""
+    ds = task.dataset
+    X, y = ds.X, ds.y
+    a = ds.weights / ds.weights.sum()
+    uniform = bool(np.all(a == a[0]))
+    if uniform:
+        XtX = (X.T @ X) * a[0]
+        Xa_sum = np.asarray(X.sum(axis=0)).ravel() * a[0]
+        Xty = np.asarray(X.T @ y).ravel() * a[0]
+    else:
+        AX = sp.diags(a) @ X if sp.issparse(X) else X * a[:, None]
+        XtX = X.T @ AX
+        Xa_sum = np.asarray(AX.sum(axis=0)).ravel()
+        Xty = np.asarray(AX.T @ y).ravel()
+    XtX = XtX.toarray() if sp.issparse(XtX) else np.asarray(XtX)
+    if not task.intercept:
+        return XtX, Xty
+    p = ds.d + 1
+    G = np.empty((p, p))
+    G[:-1, :-1] = XtX
+    G[:-1, -1] = G[-1, :-1] = Xa_sum
+    G[-1, -1] = a.sum()
+    return G, np.append(Xty, a @ y)
+
+
+def factor(task) -> tuple[np.ndarray, np.ndarray, str]:
+    """(R, r, how) with sum_i a_i (m_i' theta - y_i)^2 = ||R theta - r||^2 + constant."""
+    G, c = gram(task)
+    scale = np.sqrt(np.maximum(np.diag(G), np.finfo(float).tiny))
+    Gs = G / np.outer(scale, scale)
+    eig = np.linalg.eigvalsh(Gs)
+    ok = eig[0] > 0 and eig[-1] / eig[0] <= GRAM_LIMIT
+    if ok:
+        try:
+            R = sla.cholesky(Gs, lower=False, check_finite=False)
+        except sla.LinAlgError:
+            ok = False
+    if ok:
+        R = R * scale[None, :]      # undo the column scaling: G = (R D)'(R D)
+        r = sla.solve_triangular(R, c, trans="T", lower=False, check_finite=False)
+        return R, r, "gram"
+    ds = task.dataset
+    X = ds.X.toarray() if sp.issparse(ds.X) else ds.X
+    sa = np.sqrt(ds.weights / ds.weights.sum())
+    cols = [X] + ([np.ones((ds.n, 1))] if task.intercept else []) + [ds.y[:, None]]
+    Rfull = sla.qr(np.hstack(cols) * sa[:, None], mode="r", check_finite=False)[0]
+    k = min(Rfull.shape)
+    return Rfull[:k, :-1], Rfull[:k, -1], "qr"
+
+
+class Runner:
+    """Compress once, build the small problem once, solve it with whichever solver is asked."""
+
+    name = "compressed"
+
+    def __init__(self, task):
+        t0 = time.perf_counter()
+        self.task = task
+        R, r, self.factorisation = factor(task)
+        p = R.shape[1]
+        theta = cp.Variable(p, name="theta")
+        w = theta[: task.dataset.d]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            objective = cp.sum_squares(R @ theta - r)
+            for pen in task.penalties:
+                objective = objective + pen.expr(w, task.features)
+            self.pairs = [(q, requirement_constraint(q, theta)) for q in task.requirements]
+            self.problem = cp.Problem(cp.Minimize(objective), [c for _, c in self.pairs])
+        self.theta = theta
+        self.problem_class = task.problem_class()
+        self.build_seconds = time.perf_counter() - t0
+
+    def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
+        status, compile_s, solve_s, iterations = run(self.problem, spec, options, verbose, warm)
+        theta = self.theta.value
+        theta = None if theta is None else np.asarray(theta, float).copy()
+        return Outcome(status, theta, None, read_multipliers(self.pairs), compile_s, solve_s, iterations,
+                       note=f"factor: {self.factorisation}")
