@@ -136,12 +136,14 @@ def test_custom_penalty_convex_and_not(data):
 
 def test_timings_and_evidence(data):
     X, y = data
-    fit = lo.regression(X, y).solve()
+    fit = lo.regression(X, y).penalize(lo.penalty.l1(0.01)).solve()
     t = fit.timings.as_dict()
     assert set(t) == {"build", "compile", "solve", "certify", "total"}
     assert all(v >= 0 for v in t.values()) and t["total"] >= t["certify"]
     assert fit.route == "compressed" and fit.solver in lo.installed_solvers()
     assert "statistical estimate" in fit.summary()
+    plain = lo.regression(X, y).solve()     # least squares without terms: answered by the factor itself
+    assert plain.solver == "numpy" and plain.status == "optimal"
 
 
 def test_classification_predict_and_evaluate():

@@ -32,6 +32,7 @@ class Outcome:
     solve_seconds: float = 0.0
     iterations: int | None = None
     note: str = ""
+    solved_by: str | None = None         # set when the route solved without the solver it was given
 
 
 def design_with_ones(X, intercept: bool):

@@ -183,7 +183,8 @@ class Runner:
             if progress <= 1e-16 * max(1.0, abs(f_new)) and t == 1.0:
                 break                      # nothing left to gain at double precision
         solve_s = time.perf_counter() - t_run - compile_s - goal_s   # steps, Hessians and line searches
-        return Outcome(status, theta, None, mults, compile_s, solve_s, steps)
+        return Outcome(status, theta, None, mults, compile_s, solve_s, steps,
+                       solved_by="numpy" if self.ridge is not None else None)
 
 
 def _weighted_gram(M, h):

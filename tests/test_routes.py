@@ -1,0 +1,97 @@
+"""Routes agree with the direct route: same optimum, same certificate, same rules.
+
+The direct route is one cvxpy problem over every row; each structure-exploiting route must
+reach the same objective (common practice: an exact reformulation has the same optimum).
+"""
+import numpy as np
+import pandas as pd
+import pytest
+
+import learnopt as lo
+from learnopt.routes import ROUTES, _module
+
+NAMES = ["a", "b", "c", "d"]
+PENALTIES = [None, lo.penalty.l1(0.05), lo.penalty.l2(0.1), lo.penalty.elastic_net(0.05, 0.05),
+             lo.penalty.group(0.1, [["a", "b"], ["c"]]), lo.penalty.total_variation(0.05, NAMES)]
+RULES = [(), ("a >= 0", "b <= 0.2"), ("a + b + c == 1",), ("norm2(a, b) <= 0.8",),
+         ("prediction >= 0 where a > 1",)]
+
+
+def _data(classify, seed=3, n=150):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, 4))
+    signal = X @ np.array([1.0, -0.5, 0.3, 2.0]) + 0.7 * rng.normal(size=n)
+    return X, (np.where(signal > 0, 1, 0) if classify else signal)
+
+
+def _frame(classify):
+    X, y = _data(classify)
+    df = pd.DataFrame(X, columns=NAMES)
+    df["y"] = y
+    return df
+
+
+CASES = [(lo.loss.squared(), False), (lo.loss.huber(0.8), False), (lo.loss.logistic(), True),
+         (lo.loss.squared_hinge(), True), (lo.loss.absolute(), False), (lo.loss.quantile(0.3), False),
+         (lo.loss.epsilon_insensitive(0.2), False), (lo.loss.hinge(), True)]
+
+
+@pytest.mark.parametrize("loss,classify", CASES, ids=[c[0].describe() for c in CASES])
+@pytest.mark.parametrize("pen", PENALTIES, ids=lambda p: "none" if p is None else p.describe())
+@pytest.mark.parametrize("rules", RULES, ids=lambda r: "|".join(r) or "no-rules")
+def test_routes_agree_with_direct(loss, classify, pen, rules):
+    build = lo.classification if classify else lo.regression
+    task = build(_frame(classify), "y", loss=loss).require(*rules)
+    if pen is not None:
+        task = task.penalize(pen)
+    ref = task.solve(route="direct", tol=1e-10)
+    assert ref.status == "optimal", ref.message
+    for route in ROUTES:
+        if route == "direct" or _module(route).eligible(task) is not None:
+            continue
+        fit = task.solve(route=route, tol=1e-10)
+        assert fit.route == route
+        assert fit.status == "optimal", (route, fit.message)
+        assert fit.objective == pytest.approx(ref.objective, rel=1e-7, abs=1e-9), route
+        assert fit.violation <= 1e-6
+        for rule in rules:
+            assert fit.binding[rule] == ref.binding[rule] or abs(ref.prices[rule]) < 1e-6, (route, rule)
+
+
+def test_planner_names_the_route():
+    X, y = _data(False)
+    assert lo.regression(X, y).solve().route == "compressed"
+    assert lo.regression(X, y, loss=lo.loss.huber(1.0)).solve().route == "newton"
+    assert lo.classification(X, y > 0, loss="logistic").solve().route == "newton"
+    with pytest.raises(lo.ParameterError, match="compressed route cannot solve this task: it needs the squared"):
+        lo.regression(X, y, loss="absolute").solve(route="compressed")
+    with pytest.raises(lo.ParameterError, match="must be one of"):
+        lo.regression(X, y).solve(route="fast")
+
+
+def test_compressed_uses_qr_when_gram_is_ill_conditioned():
+    # a design whose Gram matrix squares a condition number of ~1e6: the QR factor is used
+    # and the answer matches numpy's lstsq (reference: numpy.linalg.lstsq, SVD based)
+    from learnopt.routes.compressed import factor
+    t = np.linspace(0.0, 1.0, 200)
+    X = np.column_stack([t ** k for k in range(1, 7)])
+    coef = np.array([1.0, -2.0, 3.0, -1.0, 0.5, 2.0])
+    y = 1.0 + X @ coef
+    task = lo.regression(X, y)
+    assert factor(task)[2] == "qr"
+    fit = task.solve(tol=1e-12)
+    ref = np.linalg.lstsq(np.column_stack([X, np.ones(200)]), y, rcond=None)[0]
+    np.testing.assert_allclose(fit.coef.to_numpy(), ref[:6], rtol=1e-5, atol=1e-6)
+
+
+def test_weights_and_sparse_on_fast_routes():
+    import scipy.sparse as sp
+    X, y = _data(False)
+    w = np.random.default_rng(0).integers(1, 4, size=len(y)).astype(float)
+    for loss in ("squared", lo.loss.huber(0.8)):
+        dense = lo.regression(X, y, loss=loss, weights=w).penalize(lo.penalty.l1(0.02)).solve()
+        sparse = lo.regression(sp.csr_matrix(X), y, loss=loss, weights=w).penalize(lo.penalty.l1(0.02)).solve()
+        direct = lo.regression(X, y, loss=loss, weights=w).penalize(lo.penalty.l1(0.02)).solve(route="direct")
+        assert dense.route != "direct" and sparse.route == dense.route
+        assert dense.objective == pytest.approx(direct.objective, rel=1e-8)
+        assert sparse.objective == pytest.approx(direct.objective, rel=1e-8)
