@@ -81,6 +81,10 @@ class Loss:
         """Closed interval [low, high] where f* is finite (infinite ends allowed)."""
         return (-np.inf, np.inf)
 
+    def kinks(self) -> tuple[float, ...] | None:
+        """Where a piecewise-linear loss changes slope (None: not piecewise linear)."""
+        return None
+
     def mean_expr(self, z: cp.Expression, a: np.ndarray) -> cp.Expression:
         """cvxpy expression of sum_i a_i f(z_i), a >= 0 summing to one."""
         return a @ self.expr(z)
@@ -137,6 +141,9 @@ class Absolute(Loss):
 
     def conjugate(self, u):
         return np.where(self._outside(u), np.inf, 0.0)
+
+    def kinks(self):
+        return (0.0,)
 
     def dual_domain(self):
         return (-1.0, 1.0)
@@ -203,6 +210,9 @@ class Quantile(Loss):
     def conjugate(self, u):
         return np.where(self._outside(u), np.inf, 0.0)
 
+    def kinks(self):
+        return (0.0,)
+
     def dual_domain(self):
         return (-self.tau, 1.0 - self.tau)
 
@@ -232,6 +242,9 @@ class EpsilonInsensitive(Loss):
     def conjugate(self, u):
         return np.where(self._outside(u), np.inf, self.eps * np.abs(u))
 
+    def kinks(self):
+        return (-self.eps, self.eps) if self.eps > 0 else (0.0,)
+
     def dual_domain(self):
         return (-1.0, 1.0)
 
@@ -257,6 +270,9 @@ class Hinge(Loss):
 
     def conjugate(self, u):
         return np.where(self._outside(u), np.inf, u)
+
+    def kinks(self):
+        return (1.0,)
 
     def dual_domain(self):
         return (-1.0, 0.0)

@@ -57,7 +57,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
     runner = prepare(task, route)
     chain = plan_solvers(runner.problem_class, solver, fallback=fallback)
     attempts: list[Attempt] = []
-    best = None          # (key, solver name, theta, cert, timings, prices, iterations)
+    best = None          # (key, solver name, theta, cert, timings, prices, extras)
     verdict = None       # "infeasible" / "unbounded" once confirmed
     conflicts = {}
     done = False         # a point certified within the time limit
@@ -122,7 +122,8 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             prices = _prices(task, out.multipliers, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
             key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
             if best is None or key < best[0]:
-                best = (key, out.solved_by or spec.name, theta, cert, timing, prices, out.iterations)
+                best = (key, out.solved_by or spec.name, theta, cert, timing, prices,
+                        {"iterations": out.iterations, **out.details})
             done = ok and not late
             if ok or late:
                 break
@@ -149,7 +150,7 @@ def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol
         return Fit(status, msg, np.nan, np.nan, np.nan, np.nan, pd.Series(nan, index=names, name="coef"),
                    np.nan, empty, pd.Series(dtype=bool), pd.Series(conflicts, dtype=float),
                    Timings(total=total), None, route, attempts, None, task)
-    _, solver_name, theta, cert, timing, (prices, binding), iterations = best
+    _, solver_name, theta, cert, timing, (prices, binding), extras = best
     timing.total = total
     if cert.passes(gap_tol, feas_tol):
         status, msg = "optimal", (f"certified: relative gap {cert.rel_gap:.2g} <= {gap_tol:g}, "
@@ -167,7 +168,7 @@ def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol
     intercept = float(theta[d]) if task.intercept else 0.0
     return Fit(status, msg, cert.primal, cert.gap, cert.rel_gap, cert.violation, coef, intercept,
                prices, binding, pd.Series(dtype=float), timing, solver_name, route, attempts, cert, task,
-               extras={"iterations": iterations})
+               extras=extras)
 
 
 def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd.DataFrame:

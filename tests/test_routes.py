@@ -95,3 +95,40 @@ def test_weights_and_sparse_on_fast_routes():
         assert dense.route != "direct" and sparse.route == dense.route
         assert dense.objective == pytest.approx(direct.objective, rel=1e-8)
         assert sparse.objective == pytest.approx(direct.objective, rel=1e-8)
+
+
+@pytest.mark.parametrize("loss,classify", [(lo.loss.hinge(), True), (lo.loss.absolute(), False),
+                                           (lo.loss.quantile(0.8), False), (lo.loss.epsilon_insensitive(0.3), False)],
+                         ids=["hinge", "absolute", "quantile", "epsilon_insensitive"])
+def test_working_set_folds_rows_and_stays_exact(loss, classify):
+    # enough rows that most are folded into the linear term; the answer must match the direct route
+    rng = np.random.default_rng(5)
+    n = 6000
+    df = pd.DataFrame(rng.normal(size=(n, 4)), columns=NAMES)
+    signal = df.to_numpy() @ np.array([1.0, -0.5, 0.3, 2.0]) + rng.standard_t(4, size=n)
+    df["y"] = np.where(signal > 0, 1, 0) if classify else signal
+    build = lo.classification if classify else lo.regression
+    task = build(df, "y", loss=loss).penalize(lo.penalty.l2(1e-3)).require("a >= 1.05", "b + c <= 0")
+    fit = task.solve()
+    assert fit.route == "working-set" and fit.status == "optimal", fit.message
+    assert fit.extras["working_rows"] < n / 2
+    ref = task.solve(route="direct")
+    assert fit.objective == pytest.approx(ref.objective, rel=1e-7)
+    assert fit.prices["a >= 1.05"] == pytest.approx(ref.prices["a >= 1.05"], rel=1e-4, abs=1e-7)
+
+
+def test_piecewise_linear_losses_declare_their_kinks():
+    # each linear piece is a minorant of the loss (convexity, common practice), and the loss is
+    # affine between kinks: the two facts the working-set fold relies on
+    z = np.linspace(-4, 4, 801)
+    for loss in (lo.loss.hinge(), lo.loss.absolute(), lo.loss.quantile(0.3), lo.loss.epsilon_insensitive(0.5)):
+        kinks = np.asarray(loss.kinks())
+        assert loss.cone == "linear"
+        away = z[np.min(np.abs(z[:, None] - kinks[None, :]), axis=1) > 1e-3]
+        for z0 in away[::40]:
+            piece = loss.value(np.array([z0])) + loss.gradient(np.array([z0])) * (z - z0)
+            assert np.all(piece <= loss.value(z) + 1e-12)
+        second = np.diff(loss.value(away), 2)
+        assert np.sum(np.abs(second) > 1e-9) <= 2 * len(kinks)
+    for loss in (lo.loss.squared(), lo.loss.logistic(), lo.loss.huber(1.0)):
+        assert loss.kinks() is None

@@ -7,6 +7,7 @@ the task) and a ``Runner(task)`` with ``name``, ``build_seconds``, ``problem_cla
 - direct: one vectorised cvxpy problem; takes every task.
 - compressed: squared loss; X reduced exactly to a p x p factor, then a small problem.
 - newton: smooth losses; proximal Newton steps, each a small p-dim problem, line search.
+- working-set: piecewise-linear losses; solve on the rows near a kink, fold the rest exactly.
 """
 from __future__ import annotations
 
@@ -14,7 +15,7 @@ import importlib
 
 from ..errors import ParameterError
 
-ROUTES = ("direct", "compressed", "newton")
+ROUTES = ("direct", "compressed", "newton", "working-set")
 
 
 def _module(name: str):
@@ -48,4 +49,7 @@ def _auto(task) -> str:
     for name in ("compressed", "newton"):
         if _module(name).eligible(task) is None:
             return name
+    ws = _module("working-set")
+    if ws.eligible(task) is None and n >= 4 * ws._size(n, p):
+        return "working-set"
     return "direct"

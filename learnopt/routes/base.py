@@ -33,6 +33,7 @@ class Outcome:
     iterations: int | None = None
     note: str = ""
     solved_by: str | None = None         # set when the route solved without the solver it was given
+    details: dict = field(default_factory=dict)   # route facts for fit.extras (factor used, rows kept...)
 
 
 def design_with_ones(X, intercept: bool):

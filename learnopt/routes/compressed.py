@@ -113,9 +113,10 @@ class Runner:
             t0 = time.perf_counter()
             theta = np.linalg.lstsq(self.R, self.r, rcond=None)[0]
             return Outcome("optimal", theta, None, [], 0.0, time.perf_counter() - t0, None,
-                           note=f"factor: {self.factorisation}", solved_by="numpy")
+                           note=f"factor: {self.factorisation}", solved_by="numpy",
+                           details={"factor": self.factorisation})
         status, compile_s, solve_s, iterations = run(self.problem, spec, options, verbose, warm)
         theta = self.theta.value
         theta = None if theta is None else np.asarray(theta, float).copy()
         return Outcome(status, theta, None, read_multipliers(self.pairs), compile_s, solve_s, iterations,
-                       note=f"factor: {self.factorisation}")
+                       note=f"factor: {self.factorisation}", details={"factor": self.factorisation})

@@ -28,7 +28,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 
 from ..penalties import Separable
-from .base import Outcome, loss_argument, read_multipliers, requirement_constraint, run
+from .base import SOLVER_FAULTS, Outcome, loss_argument, read_multipliers, requirement_constraint, run
 
 MAX_STEPS = 60
 ARMIJO = 1e-4
@@ -131,6 +131,9 @@ class Runner:
         mults = [np.zeros(r.rows) if r.sense != "norm" else 0.0 for r in task.requirements]
         compile_s = 0.0
         first = True
+        # line search from the start when theta = 0 meets every rule; otherwise the first
+        # (full) step is what makes the point feasible, and the search starts after it
+        search = all(r.violation(theta) <= 0.0 for r in task.requirements)
         status = "optimal"
         f_old = self.objective(theta)
         steps = 0
@@ -140,8 +143,8 @@ class Runner:
             mu = mu_scale * self.size
             try:
                 status, new, m, c_s, s_s = self._step(theta, g, H, mu, spec, options, verbose, warm or not first)
-            except sla.LinAlgError:
-                status, new, m, c_s = "singular step", None, mults, 0.0
+            except (sla.LinAlgError, *SOLVER_FAULTS) as exc:
+                status, new, m, c_s = f"step failed: {str(exc).splitlines()[0][:120]}", None, mults, 0.0
             compile_s += c_s
             if new is None or not np.all(np.isfinite(new)) or status not in ("optimal", "optimal_inaccurate"):
                 # a flat model (e.g. huber rows all on the linear pieces) can make the step
@@ -152,24 +155,24 @@ class Runner:
                 if first:
                     return Outcome(status, new, None, m, compile_s, 0.0, steps, note="the first step failed")
                 break
-            # line search on the true objective (the first step may start from an infeasible point)
+            # line search on the true objective
             delta = new - theta
             decrease = float(g @ delta + self.penalty(new) - self.penalty(theta))
             t, f_new = 1.0, self.objective(new)
-            if not first:
-                while f_new > f_old + ARMIJO * t * decrease and t > 1e-10:
+            if search:
+                while not f_new <= f_old + ARMIJO * t * decrease and t > 1e-10:
                     t *= 0.5
                     f_new = self.objective(theta + t * delta)
             if t <= 1e-10:
-                mu_scale *= 1e3            # the model is too optimistic: damp it and retry
+                mu_scale *= 1e3            # the model is far too optimistic: damp it and retry
                 if mu_scale > MAX_DAMPING:
                     break
                 continue
-            if t == 1.0:
-                mu_scale = max(mu_scale * 1e-2, MIN_DAMPING)
+            # Levenberg-Marquardt: damp more after a shortened step, less after a full one
+            mu_scale = max(mu_scale * 1e-2, MIN_DAMPING) if t == 1.0 else min(mu_scale * 10.0, MAX_DAMPING)
             theta = theta + t * delta if t < 1.0 else new
             mults = m
-            first = False
+            first, search = False, True
             progress = abs(f_old - f_new)
             f_old = f_new
             # certify only once the model predicts that little is left (the Newton decrement;
@@ -182,6 +185,8 @@ class Runner:
                     break
             if progress <= 1e-16 * max(1.0, abs(f_new)) and t == 1.0:
                 break                      # nothing left to gain at double precision
+            if self.goal is None and t == 1.0 and -decrease <= 0.1 * self.gap_tol * max(1.0, abs(f_new)):
+                break                      # no certificate asked for: the decrement is small enough
         solve_s = time.perf_counter() - t_run - compile_s - goal_s   # steps, Hessians and line searches
         return Outcome(status, theta, None, mults, compile_s, solve_s, steps,
                        solved_by="numpy" if self.ridge is not None else None)
