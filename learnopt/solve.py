@@ -23,14 +23,12 @@ POLISH_FACTOR = 1e-3   # each polish round divides the tolerance by this much
 TOL_FLOOR = 1e-13
 
 
-def certify_point(task, theta, u, mults):
+def certify_point(task, theta, u, mults, enough: float = 0.0):
     """learnopt's certificate for a point of the task (whatever route produced it)."""
     M, q, a = loss_argument(task)
-    if u is None:
-        u = task.loss.gradient(M @ theta - q)
     return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
                    requirements=list(task.requirements), theta=theta, u=u, multipliers=mults,
-                   intercept=task.intercept)
+                   intercept=task.intercept, enough=enough)
 
 
 def _prices(task, mults, theta, feas_tol, noise):
@@ -55,7 +53,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         params.check("solve", time_limit=(time_limit, params.POSITIVE))
     t_start = time.perf_counter()
     runner = prepare(task, route)
-    chain = plan_solvers(runner.problem_class, solver, fallback=fallback)
+    chain = plan_solvers(runner.problem_class, solver, fallback=fallback, prefer=getattr(runner, "prefer", ()))
     attempts: list[Attempt] = []
     best = None          # (key, solver name, theta, cert, timings, prices, extras)
     verdict = None       # "infeasible" / "unbounded" once confirmed
@@ -65,7 +63,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
 
     def goal(theta, u, mults):
         t = time.perf_counter()
-        cert = certify_point(task, theta, u, mults)
+        cert = certify_point(task, theta, u, mults, enough=1e-3 * gap_tol)
         seen.update(theta=theta.copy(), cert=cert, seconds=seen.get("seconds", 0.0) + time.perf_counter() - t)
         return cert.passes(gap_tol, feas_tol)
 
@@ -112,7 +110,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
                 cert, cert_s = seen["cert"], seen["seconds"]
                 wall -= cert_s
             else:
-                cert = certify_point(task, theta, out.u, out.multipliers)
+                cert = certify_point(task, theta, out.u, out.multipliers, enough=1e-3 * gap_tol)
                 cert_s = time.perf_counter() - t1 + seen.get("seconds", 0.0)
             ok = cert.passes(gap_tol, feas_tol)
             label = out.solved_by or label

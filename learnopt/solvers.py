@@ -101,8 +101,10 @@ def lookup(name: str) -> SolverSpec:
     return REGISTRY[key]
 
 
-def plan(problem_class: str, solver: str | None, *, fallback: bool = True) -> list[SolverSpec]:
-    """Solvers to try, in order. An explicit ``solver`` goes first (and alone when fallback=False)."""
+def plan(problem_class: str, solver: str | None, *, fallback: bool = True,
+         prefer: tuple[str, ...] = ()) -> list[SolverSpec]:
+    """Solvers to try, in order. An explicit ``solver`` goes first (and alone when fallback=False);
+    ``prefer`` (a route's own knowledge of what suits its problems) goes before the class order."""
     chain: list[SolverSpec] = []
     if solver is not None:
         spec = lookup(solver)
@@ -113,7 +115,7 @@ def plan(problem_class: str, solver: str | None, *, fallback: bool = True) -> li
         chain.append(spec)
         if not fallback:
             return chain
-    for name in PREFERENCE[problem_class]:
+    for name in tuple(prefer) + PREFERENCE[problem_class]:
         spec = REGISTRY[name]
         if spec not in chain and spec.why_not(problem_class) is None:
             chain.append(spec)

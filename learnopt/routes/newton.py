@@ -24,7 +24,6 @@ import warnings
 
 import cvxpy as cp
 import numpy as np
-import scipy.linalg as sla
 import scipy.sparse as sp
 
 from ..penalties import Separable
@@ -114,7 +113,7 @@ class Runner:
             c2 = np.zeros(p)
             c2[:d] = 2.0 * self.ridge
             rhs = -(g + c2 * theta)
-            new = theta + sla.solve(Hm + np.diag(c2), rhs, assume_a="pos", check_finite=False)
+            new = theta + np.linalg.solve(Hm + np.diag(c2), rhs)
             return "optimal", new, [], 0.0, 0.0
         self.F.value = _factor(Hm)
         self.lin.value = g - Hm @ theta
@@ -143,7 +142,7 @@ class Runner:
             mu = mu_scale * self.size
             try:
                 status, new, m, c_s, s_s = self._step(theta, g, H, mu, spec, options, verbose, warm or not first)
-            except (sla.LinAlgError, *SOLVER_FAULTS) as exc:
+            except (np.linalg.LinAlgError, *SOLVER_FAULTS) as exc:
                 status, new, m, c_s = f"step failed: {str(exc).splitlines()[0][:120]}", None, mults, 0.0
             compile_s += c_s
             if new is None or not np.all(np.isfinite(new)) or status not in ("optimal", "optimal_inaccurate"):
@@ -225,7 +224,7 @@ def _weighted_trace(M, h) -> float:
 def _factor(H):
     """F with F'F = H (H symmetric positive definite up to round-off)."""
     try:
-        return sla.cholesky(H, lower=False, check_finite=False)
-    except sla.LinAlgError:
+        return np.linalg.cholesky(H).T     # numpy, not scipy: see the note in compressed.py
+    except np.linalg.LinAlgError:
         vals, vecs = np.linalg.eigh(H)
         return np.sqrt(np.maximum(vals, 0.0))[:, None] * vecs.T
