@@ -55,7 +55,7 @@ def test_time_limit_moves_down_the_chain(monkeypatch, task):
         return real(self, *args, solver=solver, **kwargs)
 
     monkeypatch.setattr(cp.Problem, "solve", slow)
-    fit = task.solve(time_limit=0.2)
+    fit = task.solve(time_limit=0.2, route="direct")
     assert fit.attempts[0].solver == "clarabel"
     assert "over the time limit" in fit.attempts[0].outcome
     assert fit.status == "optimal" and fit.solver != "clarabel"

@@ -77,7 +77,7 @@ def test_misbehaving_solver_falls_back_and_records(monkeypatch, data):
         return real(self, *args, solver=solver, **kwargs)
 
     monkeypatch.setattr(cp.Problem, "solve", broken)
-    fit = lo.regression(X, y).penalize(lo.penalty.l2(0.1)).solve()
+    fit = lo.regression(X, y).penalize(lo.penalty.l2(0.1)).solve(route="direct")
     assert fit.status == "optimal" and fit.solver != "clarabel"
     assert fit.attempts[0].solver == "clarabel" and "simulated crash" in fit.attempts[0].outcome
 
@@ -93,7 +93,7 @@ def test_solver_claiming_infeasible_is_not_believed(monkeypatch, data):
         return out
 
     monkeypatch.setattr(cp.Problem, "solve", liar)
-    fit = lo.regression(X, y).require("x0 >= 0").solve()
+    fit = lo.regression(X, y).require("x0 >= 0").solve(route="direct")
     assert fit.status == "optimal" and fit.solver != "clarabel"
     assert "rejected" in fit.attempts[0].outcome
 
