@@ -9,7 +9,7 @@ from . import losses as loss
 from . import penalties as penalty
 from . import rules as rule
 from .convexity import Verdict
-from .errors import DataError, LearnoptError, NotConvexError, ParameterError, SolverError
+from .errors import DataError, LearnoptError, NotConvexError, ParameterError, SolverError, TooLargeError
 from .evaluate import Evaluation
 from .fit import Attempt, Fit, Timings
 from .solvers import installed as installed_solvers
@@ -20,5 +20,5 @@ __version__ = "0.1.0"
 __all__ = [
     "regression", "classification", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
-    "SolverError", "installed_solvers",
+    "SolverError", "TooLargeError", "installed_solvers",
 ]

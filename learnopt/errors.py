@@ -41,3 +41,9 @@ class SolverError(LearnoptError, RuntimeError):
     """No usable solver, an unknown solver name, or every capable solver failed."""
 
     exit_code = 4
+
+
+class TooLargeError(LearnoptError, MemoryError):
+    """A formulation would not fit in memory; the message says which route or scale-out fits."""
+
+    exit_code = 5

@@ -3,6 +3,7 @@
 The direct route is one cvxpy problem over every row; each structure-exploiting route must
 reach the same objective (common practice: an exact reformulation has the same optimum).
 """
+import cvxpy as cp
 import numpy as np
 import pandas as pd
 import pytest
@@ -132,3 +133,14 @@ def test_piecewise_linear_losses_declare_their_kinks():
         assert np.sum(np.abs(second) > 1e-9) <= 2 * len(kinks)
     for loss in (lo.loss.squared(), lo.loss.logistic(), lo.loss.huber(1.0)):
         assert loss.kinks() is None
+
+
+def test_direct_route_refuses_what_would_not_fit_in_memory():
+    from learnopt.routes.direct import check_size
+    X, y = _data(False)
+    task = lo.regression(X, y, loss="absolute")
+    check_size(task, available=1e12)                  # plenty: no complaint
+    with pytest.raises(lo.TooLargeError, match="use route='working-set'"):
+        check_size(task, available=1e5)
+    with pytest.raises(lo.TooLargeError, match="GiB"):
+        check_size(lo.regression(X, y, loss=lo.loss.custom(lambda z: cp.abs(z))), available=1e5)
