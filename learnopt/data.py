@@ -348,3 +348,11 @@ def new_design(ds: Dataset, data) -> np.ndarray | sp.csr_matrix:
     if X.shape[1] != ds.d:
         raise DataError(f"The new data has {X.shape[1]} columns; the task has {ds.d} features.")
     return X
+
+
+def take_rows(ds: Dataset, rows: np.ndarray) -> Dataset:
+    """The same dataset restricted to ``rows`` (encoding, names and labels unchanged)."""
+    rows = np.asarray(rows)
+    frame = ds.frame.iloc[rows] if ds.frame is not None else None
+    return Dataset(ds.X[rows], ds.y[rows], ds.weights[rows], ds.names, frame, ds.encoding, ds.labels,
+                   list(ds.notes))

@@ -46,13 +46,15 @@ def _prices(task, mults, theta, feas_tol, noise):
 
 
 def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_options, verbose,
-               time_limit=None, polish=False) -> Fit:
+               time_limit=None, polish=False, runner=None) -> Fit:
+    """Solve and certify ``task`` (or, with ``runner``, the runner's current task: paths)."""
     params.check("solve", tol=(tol, params.POSITIVE), gap_tol=(gap_tol, params.POSITIVE),
                  feas_tol=(feas_tol, params.POSITIVE))
     if time_limit is not None:
         params.check("solve", time_limit=(time_limit, params.POSITIVE))
     t_start = time.perf_counter()
-    runner = prepare(task, route)
+    runner = prepare(task, route) if runner is None else runner
+    task = runner.task
     chain = plan_solvers(runner.problem_class, solver, fallback=fallback, prefer=getattr(runner, "prefer", ()))
     attempts: list[Attempt] = []
     best = None          # (key, solver name, theta, cert, timings, prices, extras)
@@ -121,7 +123,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
             if best is None or key < best[0]:
                 best = (key, out.solved_by or spec.name, theta, cert, timing, prices,
-                        {"iterations": out.iterations, **out.details})
+                        {"iterations": out.iterations, "multipliers": out.multipliers, **out.details})
             done = ok and not late
             if ok or late:
                 break

@@ -79,6 +79,12 @@ class Task:
         import cvxpy as cp
         p.expr(cp.Variable(len(names)), names)   # resolves names; raises DataError on unknown names
 
+    def with_strength(self, index: int, lam: float) -> "Task":
+        """A new task with penalty ``index`` at strength ``lam`` (paths and cross-validation)."""
+        pens = list(self.penalties)
+        pens[index] = pens[index].with_strength(float(lam))
+        return replace(self, penalties=tuple(pens))
+
     def require(self, *rules: str | RuleSpec) -> "Task":
         """A new task with these requirements added (rule text or rule objects).
 
@@ -155,6 +161,46 @@ class Task:
         return solve_task(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route,
                           fallback=fallback, solver_options=solver_options or {}, verbose=verbose,
                           time_limit=time_limit, polish=polish)
+
+    def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
+             route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
+             feas_tol: float = 1e-6, progress: bool | None = None):
+        """Solve along a grid of strengths of one penalty; return a :class:`~learnopt.select.Path`.
+
+        Parameters
+        ----------
+        penalty : the penalty whose strength varies: one of the task's penalties (object or
+            index; default the first) or a new one (added, its own strength ignored).
+        grid : strengths in the task's own scaling (any order; walked from strong to weak).
+            Default: ``n`` strengths from the smallest strength that zeroes every penalised
+            coefficient down to ``ratio`` times it, evenly spaced on a log scale.
+        progress : progress bar (rich) on a terminal; None: only when stderr is a terminal.
+
+        The problem is compiled once (the strength is a cvxpy Parameter), each point starts
+        from the previous one, and each point is certified; requirements hold at every point.
+        """
+        from .select import path
+        return path(self, penalty, grid, n, ratio=ratio, route=route, solver=solver, tol=tol,
+                    gap_tol=gap_tol, feas_tol=feas_tol, progress=progress)
+
+    def cross_validate(self, folds: int = 5, grid: Sequence[float] | None = None, metric=None, seed: int = 0,
+                       groups=None, *, ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
+                       route: str | None = None, solver: str | None = None, tol: float = 1e-9,
+                       gap_tol: float = 1e-7, feas_tol: float = 1e-6, progress: bool | None = None):
+        """k-fold cross-validation of one penalty's strength; a :class:`~learnopt.select.CrossValidation`.
+
+        Folds: random with ``seed`` (default), by ``groups`` (a column name or one label per
+        row; a group is never split), or ``ordered=True`` for time-ordered rows (forward
+        chaining). Each fold walks the grid as a path (compiled once per fold, warm-started)
+        with every requirement. ``metric``: the task's own loss (default), "mse", "mae",
+        "pinball(tau)", "accuracy", "zero_one", "hinge", "log_loss", or f(y_true, score)
+        (classification targets are +1/-1, scores are X w + b). Default grid: ``n``
+        strengths from the zeroing strength on all rows down to ``ratio`` times it.
+        """
+        from .select import cross_validate
+        return cross_validate(self, folds, grid, metric, seed, groups, ordered=ordered, penalty=penalty, n=n,
+                              ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
+                              feas_tol=feas_tol, progress=progress)
 
     def compare(self, solvers: Sequence[str] = ("clarabel", "osqp", "scs", "ecos", "highs"), *,
                 tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6):

@@ -36,9 +36,10 @@ def plan(task, route: str | None) -> str:
     return route
 
 
-def prepare(task, route: str | None):
-    """The runner of the planned route, built once for every solver attempt."""
-    return _module(plan(task, route)).Runner(task)
+def prepare(task, route: str | None, vary: int | None = None):
+    """The runner of the planned route, built once for every solver attempt (and, with
+    ``vary``, for every strength of penalty ``vary`` along a path)."""
+    return _module(plan(task, route)).Runner(task, vary=vary)
 
 
 def _auto(task) -> str:

@@ -104,6 +104,37 @@ def loss_argument(task):
     return Design(ds.X, task.intercept), ds.y, a
 
 
+class RunnerBase:
+    """What every route runner shares: the task it solves and how a path changes one strength.
+
+    A runner built with ``vary=k`` compiles penalty k as (strength Parameter) x (the penalty at
+    strength 1), so :meth:`set_strength` moves along a path without recompiling (cvxpy DPP).
+    ``start`` is a warm start for iterative routes (the previous point of a path).
+    """
+
+    name = "?"
+    vary: int | None = None
+    strength: cp.Parameter | None = None
+    start: np.ndarray | None = None
+
+    def penalties_expr(self, w):
+        """Sum of the task's penalty expressions, the varied one through the strength Parameter."""
+        total = 0
+        for k, pen in enumerate(self.task.penalties):
+            if k == self.vary:
+                if self.strength is None:
+                    self.strength = cp.Parameter(nonneg=True, value=float(pen.lam), name="strength")
+                total = total + self.strength * pen.with_strength(1.0).expr(w, self.task.features)
+            else:
+                total = total + pen.expr(w, self.task.features)
+        return total
+
+    def set_strength(self, lam: float) -> None:
+        self.task = self.task.with_strength(self.vary, lam)
+        if self.strength is not None:
+            self.strength.value = float(lam)
+
+
 def requirement_constraint(r: Requirement, theta) -> cp.Constraint:
     if r.sense == "norm":
         return cp.norm(r.A @ theta + r.rhs, r.order) + r.f @ theta <= r.bound

@@ -24,7 +24,7 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
-from .base import Outcome, read_multipliers, requirement_constraint, run
+from .base import Outcome, RunnerBase, read_multipliers, requirement_constraint, run
 
 GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
 
@@ -86,7 +86,7 @@ def factor(task) -> tuple[np.ndarray, np.ndarray, str]:
     return Rfull[:k, :-1], Rfull[:k, -1], "qr"
 
 
-class Runner:
+class Runner(RunnerBase):
     """Compress once, build the small problem once, solve it with whichever solver is asked."""
 
     name = "compressed"
@@ -95,9 +95,9 @@ class Runner:
     # the class order follows when OSQP's point does not pass
     prefer = ("osqp",)
 
-    def __init__(self, task):
+    def __init__(self, task, vary: int | None = None):
         t0 = time.perf_counter()
-        self.task = task
+        self.task, self.vary = task, vary
         R, r, self.factorisation = factor(task)
         self.R, self.r = R, r
         p = R.shape[1]
@@ -105,9 +105,7 @@ class Runner:
         w = theta[: task.dataset.d]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
-            objective = cp.sum_squares(R @ theta - r)
-            for pen in task.penalties:
-                objective = objective + pen.expr(w, task.features)
+            objective = cp.sum_squares(R @ theta - r) + self.penalties_expr(w)
             self.pairs = [(q, requirement_constraint(q, theta)) for q in task.requirements]
             self.problem = cp.Problem(cp.Minimize(objective), [c for _, c in self.pairs])
         self.theta = theta
@@ -115,7 +113,7 @@ class Runner:
         self.build_seconds = time.perf_counter() - t0
 
     def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
-        if not self.task.penalties and not self.task.requirements:
+        if not self.task.penalties and not self.task.requirements and self.vary is None:
             # plain least squares: the triangular factor answers it directly, at full accuracy
             t0 = time.perf_counter()
             theta = np.linalg.lstsq(self.R, self.r, rcond=None)[0]

@@ -17,7 +17,7 @@ import scipy.sparse as sp
 
 from ..errors import TooLargeError
 from ..rules import Requirement
-from .base import Outcome, loss_argument, read_multipliers, requirement_constraint, run
+from .base import Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
 
 
 @dataclass
@@ -32,7 +32,7 @@ class Model:
     build_seconds: float
 
 
-def build(task) -> Model:
+def build(task, penalties_expr=None) -> Model:
     t0 = time.perf_counter()
     ds = task.dataset
     M, q, a = loss_argument(task)
@@ -51,8 +51,11 @@ def build(task) -> Model:
             tie = z == z_expr
             loss_term = task.loss.mean_expr(z, a)
         objective = loss_term
-        for pen in task.penalties:
-            objective = objective + pen.expr(w, ds.names)
+        if penalties_expr is not None:
+            objective = objective + penalties_expr(w)
+        else:
+            for pen in task.penalties:
+                objective = objective + pen.expr(w, ds.names)
         pairs = [(r, requirement_constraint(r, theta)) for r in task.requirements]
         constraints = ([tie] if tie is not None else []) + [c for _, c in pairs]
         problem = cp.Problem(cp.Minimize(objective), constraints)
@@ -93,15 +96,15 @@ def check_size(task, available: float | None = None) -> None:
         f"({task.dataset.n} rows, {nnz} nonzeros) and {available / 2**30:.1f} GiB is free; {how}.")
 
 
-class Runner:
+class Runner(RunnerBase):
     """The direct route: build the one problem once, solve it with whichever solver is asked."""
 
     name = "direct"
 
-    def __init__(self, task):
+    def __init__(self, task, vary: int | None = None):
         check_size(task)
-        self.task = task
-        self.model = build(task)
+        self.task, self.vary = task, vary
+        self.model = build(task, self.penalties_expr)
         self.build_seconds = self.model.build_seconds
         self.problem_class = task.problem_class()
 

@@ -27,7 +27,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..penalties import Separable
-from .base import SOLVER_FAULTS, Outcome, loss_argument, read_multipliers, requirement_constraint, run
+from .base import SOLVER_FAULTS, Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
 
 MAX_STEPS = 60
 ARMIJO = 1e-4
@@ -54,12 +54,12 @@ def _plain_ridge(task) -> np.ndarray | None:
     return sum((c for _, c in parts), np.zeros(len(task.features)))
 
 
-class Runner:
+class Runner(RunnerBase):
     name = "newton"
 
-    def __init__(self, task):
+    def __init__(self, task, vary: int | None = None):
         t0 = time.perf_counter()
-        self.task = task
+        self.task, self.vary = task, vary
         self.M, self.q, self.a = loss_argument(task)
         p = self.M.shape[1]
         self.p = p
@@ -71,9 +71,7 @@ class Runner:
             v = cp.Variable(p, name="v")
             self.F = cp.Parameter((p, p), name="factor")
             self.lin = cp.Parameter(p, name="linear")
-            objective = 0.5 * cp.sum_squares(v) + self.lin @ theta
-            for pen in task.penalties:
-                objective = objective + pen.expr(theta[: task.dataset.d], task.features)
+            objective = 0.5 * cp.sum_squares(v) + self.lin @ theta + self.penalties_expr(theta[: task.dataset.d])
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", RuntimeWarning)
                 self.pairs = [(r, requirement_constraint(r, theta)) for r in task.requirements]
@@ -83,6 +81,11 @@ class Runner:
         self.build_seconds = time.perf_counter() - t0
         self.goal = None      # set by the solve loop: goal(theta, u, multipliers) -> certificate passes
         self.gap_tol = 1e-7   # set by the solve loop
+
+    def set_strength(self, lam: float) -> None:
+        super().set_strength(lam)
+        if self.ridge is not None:
+            self.ridge = _plain_ridge(self.task)
 
     # ---- the true objective
     def objective(self, theta):
@@ -126,13 +129,13 @@ class Runner:
         task = self.task
         t_run = time.perf_counter()
         goal_s = 0.0
-        theta = np.zeros(self.p)
+        theta = np.zeros(self.p) if self.start is None else np.asarray(self.start, float).copy()
         mults = [np.zeros(r.rows) if r.sense != "norm" else 0.0 for r in task.requirements]
         compile_s = 0.0
         first = True
         # line search from the start when theta = 0 meets every rule; otherwise the first
         # (full) step is what makes the point feasible, and the search starts after it
-        search = all(r.violation(theta) <= 0.0 for r in task.requirements)
+        search = all(r.violation(theta) <= 1e-12 * r.scale() for r in task.requirements)
         status = "optimal"
         f_old = self.objective(theta)
         steps = 0

@@ -32,7 +32,7 @@ import cvxpy as cp
 import numpy as np
 
 from ..losses import Loss
-from .base import Outcome, loss_argument, read_multipliers, requirement_constraint, run
+from .base import Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
 
 MAX_ROUNDS = 25
 SMOOTHING = 0.05   # envelope width h, relative to the scale of the loss argument
@@ -90,12 +90,12 @@ def _size(n: int, p: int) -> int:
     return int(min(n, max(1000, 20 * p)))
 
 
-class Runner:
+class Runner(RunnerBase):
     name = "working-set"
 
-    def __init__(self, task):
+    def __init__(self, task, vary: int | None = None):
         t0 = time.perf_counter()
-        self.task = task
+        self.task, self.vary = task, vary
         self.M, self.q, self.a = loss_argument(task)
         self.kinks = np.asarray(task.loss.kinks(), float)
         self.problem_class = task.problem_class()
@@ -145,7 +145,8 @@ class Runner:
         return problem, theta, tie, pairs, a_w
 
     def _first_point(self, spec, options, verbose):
-        """Minimise the Moreau envelope of the loss (smooth) on every row with the newton route."""
+        """Minimise the Moreau envelope of the loss (smooth) on every row with the newton route
+        (skipped when a warm start is given: only the envelope width is returned then)."""
         from . import newton
         task = self.task
         if task.loss.argument == "residual":
@@ -154,6 +155,8 @@ class Runner:
         else:
             scale = 1.0
         from ..solvers import plan
+        if self.start is not None:
+            return Outcome("optimal", None), SMOOTHING * scale
         smooth = replace(task, loss=Envelope(task.loss, SMOOTHING * scale))
         runner = newton.Runner(smooth)
         runner.gap_tol = 1e-6
@@ -171,7 +174,7 @@ class Runner:
         t_run = time.perf_counter()
         first, h = self._first_point(spec, options, verbose)
         compile_s, goal_s = first.compile_seconds, 0.0
-        theta = first.theta
+        theta = first.theta if self.start is None else np.asarray(self.start, float)
         if theta is None or not np.all(np.isfinite(theta)):
             theta = np.zeros(p)        # the smoothed start failed: grow W from the rows nearest a kink at 0
         step = _size(n, p)
