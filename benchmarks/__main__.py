@@ -179,6 +179,28 @@ def run_case(name, make, repeat, plain_repeat, with_plain):
     return rows
 
 
+def selection(quick: bool, repeat: int):
+    """A 50-point lasso path and 5-fold cross-validation over 20 strengths, against one fit and
+    against scikit-learn's lasso_path / LassoCV on the same strengths (alpha = strength / 2)."""
+    from sklearn.linear_model import LassoCV, lasso_path
+    task, _ = case_lasso(20000 // (10 if quick else 1), 200)
+    X, y = task.dataset.X, task.dataset.y
+    one, _ = _timed(lambda: task.solve(), repeat)
+    t_path, walk = _timed(lambda: task.path(n=50, progress=False), repeat)
+    grid = walk.table["strength"].to_numpy()
+    Xc, yc = X - X.mean(0), y - y.mean()
+    t_sk, _ = _timed(lambda: lasso_path(Xc, yc, alphas=grid / 2), repeat)
+    grid20 = grid[np.linspace(0, 49, 20).round().astype(int)]
+    t_cv, cv = _timed(lambda: task.cross_validate(folds=5, grid=grid20, progress=False), 1)
+    t_skcv, _ = _timed(lambda: LassoCV(alphas=grid20 / 2, cv=5).fit(X, y), 1)
+    return [dict(case="lasso path, 50 strengths", seconds=t_path, one_fit=one, ratio_to_one_fit=t_path / one,
+                 peer="scikit-learn lasso_path", peer_seconds=t_sk, ratio_to_peer=t_path / t_sk,
+                 certified=int((walk.table["status"] == "optimal").sum())),
+            dict(case="5-fold CV, 20 strengths", seconds=t_cv, one_fit=one, ratio_to_one_fit=t_cv / one,
+                 peer="scikit-learn LassoCV", peer_seconds=t_skcv, ratio_to_peer=t_cv / t_skcv,
+                 certified=int(cv.table["certified_folds"].sum()))]
+
+
 def growth(quick: bool, repeat: int):
     rows = []
     sizes = (1_000, 10_000, 100_000) if quick else (1_000, 10_000, 100_000, 1_000_000)
@@ -214,10 +236,15 @@ def main(argv=None) -> int:
         rows += run_case(name, make, args.repeat, args.plain_repeat, not args.no_plain)
     table = pd.DataFrame(rows)
     pd.set_option("display.width", 200)
-    print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+    if rows:
+        print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
     result = {"machine": f"{platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}",
               "versions": {"learnopt": lo.__version__, "cvxpy": cp.__version__, "numpy": np.__version__},
               "cases": rows}
+    if not wanted or "selection" in wanted:
+        sel = selection(args.quick, args.repeat)
+        print(pd.DataFrame(sel).to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+        result["selection"] = sel
     if not args.no_growth and not wanted:
         g = growth(args.quick, args.repeat)
         print(pd.DataFrame(g).to_string(index=False, float_format=lambda v: f"{v:.4g}"))

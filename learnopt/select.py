@@ -169,10 +169,9 @@ def _pyplot():
 
 
 def _training_loss(task, fit) -> float:
-    from .routes.base import loss_argument
-    M, q, a = loss_argument(task)
-    theta = np.append(fit.coef.to_numpy(), fit.intercept) if task.intercept else fit.coef.to_numpy()
-    return float(a @ task.loss.value(M @ theta - q))
+    """The weighted mean loss: the certified objective minus the penalties."""
+    w = fit.coef.to_numpy()
+    return float(fit.objective - sum(p.value(w, task.features) for p in task.penalties))
 
 
 def default_grid(task, index, top_fit, n: int, ratio: float) -> np.ndarray:

@@ -80,7 +80,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             seen.clear()
             opts = {**spec.settings(tol_k, time_limit), **solver_options}
             try:
-                out = runner.run(spec, opts, verbose, warm=k > 0)
+                out = runner.run(spec, opts, verbose, warm=k > 0 or runner.start is not None)
             except SOLVER_FAULTS as exc:
                 attempts.append(Attempt(label, f"error: {str(exc).splitlines()[0][:200]}",
                                         seconds=time.perf_counter() - t0))
