@@ -9,7 +9,8 @@ ill-conditioned (condition number after column scaling above ``GRAM_LIMIT``: for
 number of the data) or singular, a QR factorisation of sqrt(a) [M y] = Q [R r; 0 rho] is used
 instead: the loss is ||R theta - r||^2 + rho^2, with no squaring of the condition number.
 Either way the small problem has the same optimum as the full one; penalties and rules are
-added to it unchanged. The certificate is still computed on every row.
+added to it unchanged. The certificate's dual bound is computed on the factor (the same
+quadratic); the objective is recomputed on every row, so rounding in the factor shows in the gap.
 
 Linear algebra here goes through numpy.linalg, not scipy.linalg: with the pip wheels numpy and
 scipy each bring their own OpenBLAS, and switching between the two thread pools right after a
@@ -24,7 +25,7 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
-from .base import Outcome, RunnerBase, read_multipliers, requirement_constraint, run
+from .base import Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
 
 GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
 
@@ -61,8 +62,8 @@ def gram(task):
     return G, np.append(Xty, a @ y)
 
 
-def factor(task) -> tuple[np.ndarray, np.ndarray, str]:
-    """(R, r, how) with sum_i a_i (m_i' theta - y_i)^2 = ||R theta - r||^2 + constant."""
+def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
+    """(R, r, how, constant) with sum_i a_i (m_i' theta - y_i)^2 = ||R theta - r||^2 + constant."""
     G, c = gram(task)
     scale = np.sqrt(np.maximum(np.diag(G), np.finfo(float).tiny))
     Gs = G / np.outer(scale, scale)
@@ -76,14 +77,15 @@ def factor(task) -> tuple[np.ndarray, np.ndarray, str]:
     if ok:
         R = R * scale[None, :]      # undo the column scaling: G = (R D)'(R D)
         r = np.linalg.solve(R.T, c)
-        return R, r, "gram"
+        a = task.dataset.weights / task.dataset.weights.sum()
+        return R, r, "gram", float(a @ task.dataset.y ** 2 - r @ r)
     ds = task.dataset
     X = ds.X.toarray() if sp.issparse(ds.X) else ds.X
     sa = np.sqrt(ds.weights / ds.weights.sum())
     cols = [X] + ([np.ones((ds.n, 1))] if task.intercept else []) + [ds.y[:, None]]
     Rfull = np.linalg.qr(np.hstack(cols) * sa[:, None], mode="r")
     k = min(Rfull.shape)
-    return Rfull[:k, :-1], Rfull[:k, -1], "qr"
+    return Rfull[:k, :-1], Rfull[:k, -1], "qr", 0.0
 
 
 class Runner(RunnerBase):
@@ -98,7 +100,7 @@ class Runner(RunnerBase):
     def __init__(self, task, vary: int | None = None):
         t0 = time.perf_counter()
         self.task, self.vary = task, vary
-        R, r, self.factorisation = factor(task)
+        R, r, self.factorisation, self.constant = factor(task)
         self.R, self.r = R, r
         p = R.shape[1]
         theta = cp.Variable(p, name="theta")
@@ -111,6 +113,29 @@ class Runner(RunnerBase):
         self.theta = theta
         self.problem_class = task.problem_class()
         self.build_seconds = time.perf_counter() - t0
+
+    def certify(self, theta, u, mults, enough: float = 0.0):
+        """The certificate on the factor: the same quadratic, p x p instead of n x p.
+
+        The dual bound is computed for ||R theta - r||^2 + penalties (a valid bound for the
+        task up to the rounding of the factor) and shifted by the constant; the primal value is
+        recomputed on every row, so any rounding of the factor shows up in the gap.
+        """
+        from dataclasses import replace
+        from ..certify import certify
+        task = self.task
+        small = certify(M=self.R, q=self.r, a=np.ones(len(self.r)), loss=task.loss, penalties=task.penalties,
+                        names=task.features, requirements=list(task.requirements), theta=theta, u=None,
+                        multipliers=mults, intercept=task.intercept, enough=enough)
+        M, q, a = loss_argument(task)
+        d = task.dataset.d
+        primal = float(a @ task.loss.value(M @ theta - q)
+                       + sum(p.value(theta[:d], task.features) for p in task.penalties))
+        dual = small.dual + self.constant
+        if not np.isfinite(dual):
+            return replace(small, primal=primal, dual=dual)
+        gap = max(primal - dual, 0.0)
+        return replace(small, primal=primal, dual=dual, gap=gap, rel_gap=gap / max(1.0, abs(primal)))
 
     def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
         if not self.task.penalties and not self.task.requirements and self.vary is None:
