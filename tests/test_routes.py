@@ -144,3 +144,21 @@ def test_direct_route_refuses_what_would_not_fit_in_memory():
         check_size(task, available=1e5)
     with pytest.raises(lo.TooLargeError, match="GiB"):
         check_size(lo.regression(X, y, loss=lo.loss.custom(lambda z: cp.abs(z))), available=1e5)
+
+
+def test_certificate_on_the_factor_agrees_with_the_one_on_every_row():
+    # the compressed route's certificate works on ||R theta - r||^2 + constant; on the same
+    # point it must give the dual bound of the full-data certificate (same quadratic)
+    from learnopt.routes import prepare
+    from learnopt.solve import certify_point
+    X, y = _data(False, n=400)
+    task = lo.regression(X, y).penalize(lo.penalty.l1(0.05)).require("x0 >= 0.2", "x1 + x2 <= 0")
+    fit = task.solve()
+    assert fit.route == "compressed"
+    runner = prepare(task, None)
+    theta = np.append(fit.coef.to_numpy(), fit.intercept)
+    mults = fit.extras["multipliers"]
+    small, full = runner.certify(theta, None, mults), certify_point(task, theta, None, mults)
+    assert small.primal == pytest.approx(full.primal, rel=1e-12)
+    assert small.dual == pytest.approx(full.dual, rel=1e-9)
+    assert small.rel_gap <= 1e-8 and full.rel_gap <= 1e-8
