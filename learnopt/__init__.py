@@ -17,8 +17,17 @@ from .task import Task, classification, regression
 
 __version__ = "0.1.0"
 
+
+def estimator(kind: str = "regression", loss=None, **options):
+    """A scikit-learn compatible estimator around a learnopt task (needs scikit-learn).
+
+    See :func:`learnopt.adapter.estimator` for the parameters.
+    """
+    from .adapter import estimator as _estimator
+    return _estimator(kind, loss, **options)
+
 __all__ = [
-    "regression", "classification", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
+    "regression", "classification", "estimator", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
     "SolverError", "TooLargeError", "installed_solvers",
 ]

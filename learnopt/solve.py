@@ -75,7 +75,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         return cert.passes(gap_tol, feas_tol)
 
     if hasattr(runner, "goal"):
-        runner.goal, runner.gap_tol = goal, gap_tol
+        runner.goal, runner.gap_tol, runner.tol = goal, gap_tol, tol
     for spec in chain:
         rounds = [tol] + ([max(tol * POLISH_FACTOR ** k, TOL_FLOOR) for k in range(1, POLISH_ROUNDS + 1)]
                           if polish else [])
@@ -179,7 +179,7 @@ def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol
 def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd.DataFrame:
     """One row per solver: the same task, no fallback, each point certified by learnopt."""
     from .solvers import lookup
-    klass = task.problem_class()
+    klass = prepare(task, None).problem_class     # what the planned route hands to solvers
     rows, fits = [], {}
     for name in solvers:
         spec = lookup(name)

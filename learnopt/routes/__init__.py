@@ -45,11 +45,10 @@ def prepare(task, route: str | None, vary: int | None = None):
 def _auto(task) -> str:
     """The planner: the route that exploits the task's structure, else direct."""
     n, p = task.dataset.n, task.dataset.d + int(task.intercept)
-    if n <= p:
-        return "direct"
-    for name in ("compressed", "newton"):
-        if _module(name).eligible(task) is None:
-            return name
+    if _module("compressed").eligible(task) is None and n > p:
+        return "compressed"
+    if _module("newton").eligible(task) is None:
+        return "newton"          # p x p steps whatever n is
     ws = _module("working-set")
     if ws.eligible(task) is None and n >= 4 * ws._size(n, p):
         return "working-set"

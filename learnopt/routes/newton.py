@@ -81,6 +81,7 @@ class Runner(RunnerBase):
         self.build_seconds = time.perf_counter() - t0
         self.goal = None      # set by the solve loop: goal(theta, u, multipliers) -> certificate passes
         self.gap_tol = 1e-7   # set by the solve loop
+        self.tol = 1e-9       # set by the solve loop
 
     def set_strength(self, lam: float) -> None:
         super().set_strength(lam)
@@ -179,7 +180,9 @@ class Runner(RunnerBase):
             f_old = f_new
             # certify only once the model predicts that little is left (the Newton decrement;
             # after a step with decrease e the point is typically e^2 from optimal)
-            if self.goal is not None and -decrease <= 0.1 * self.gap_tol * max(1.0, abs(f_new)):
+            # (and only once the decrement is below the solver tolerance: a point certified
+            # at gap_tol can still be far from the optimum's coefficients)
+            if self.goal is not None and -decrease <= min(0.1 * self.gap_tol, self.tol) * max(1.0, abs(f_new)):
                 t_goal = time.perf_counter()
                 reached = self.goal(theta, None, mults)
                 goal_s += time.perf_counter() - t_goal
