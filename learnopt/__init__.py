@@ -18,6 +18,12 @@ from .task import Task, classification, regression
 __version__ = "0.1.0"
 
 
+def load_fit(path):
+    """Read a fit saved with ``fit.save(path)``; it predicts exactly as the saved one did."""
+    from .modelfile import load
+    return load(path)
+
+
 def estimator(kind: str = "regression", loss=None, **options):
     """A scikit-learn compatible estimator around a learnopt task (needs scikit-learn).
 
@@ -27,7 +33,7 @@ def estimator(kind: str = "regression", loss=None, **options):
     return _estimator(kind, loss, **options)
 
 __all__ = [
-    "regression", "classification", "estimator", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
+    "regression", "classification", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
     "SolverError", "TooLargeError", "installed_solvers",
 ]

@@ -44,7 +44,7 @@ def evaluate(fit, data, target=None) -> Evaluation:
         y_raw = data[task.target_name].to_numpy()
     else:
         y_raw = np.asarray(target).ravel()
-    score = fit.decision(data)
+    score = np.asarray(fit.decision(data), dtype=float)
     if len(y_raw) != len(score):
         raise DataError(f"{len(y_raw)} targets for {len(score)} rows.")
     if task.kind == "regression":

@@ -92,27 +92,39 @@ class Fit:
     extras: dict = field(default_factory=dict, repr=False)
 
     # ---- predictions
-    def decision(self, data) -> np.ndarray:
-        """Raw predictions X w + b on new data (for classification: the score, sign = class)."""
+    def _scores(self, data) -> np.ndarray:
         from .data import new_design
         self._need_point()
         X = new_design(self.task.dataset, data)
         return np.asarray(X @ self.coef.to_numpy() + self.intercept).ravel()
 
-    def predict(self, data) -> np.ndarray:
-        """Predictions on new data: values for regression, labels for classification."""
-        score = self.decision(data)
+    @staticmethod
+    def _shaped(values: np.ndarray, data, name: str):
+        """pandas in, pandas out: a Series on the input's index when the input was a DataFrame."""
+        if isinstance(data, pd.DataFrame):
+            return pd.Series(values, index=data.index, name=name)
+        return values
+
+    def decision(self, data):
+        """Raw predictions X w + b on new data (for classification: the score, sign = class)."""
+        return self._shaped(self._scores(data), data, "score")
+
+    def predict(self, data):
+        """Predictions on new data: values for regression, labels for classification.
+
+        A Series with the input's index when ``data`` is a DataFrame, else a numpy array."""
+        score = self._scores(data)
         labels = self.task.dataset.labels
         if self.task.kind == "classification":
-            return np.where(score > 0, labels[1], labels[0])
-        return score
+            return self._shaped(np.where(score > 0, labels[1], labels[0]), data, "prediction")
+        return self._shaped(score, data, "prediction")
 
-    def probability(self, data) -> np.ndarray:
+    def probability(self, data):
         """P(positive label) for logistic fits: 1 / (1 + exp(-score))."""
         if self.task.loss.name != "logistic":
             raise DataError("probability() needs a logistic fit; hinge-type scores are not probabilities.")
         from scipy.special import expit
-        return expit(self.decision(data))
+        return self._shaped(expit(self._scores(data)), data, "probability")
 
     def evaluate(self, data, target=None) -> "Evaluation":
         """Metrics on (usually held-out) data, with the target in the same column as in training."""
@@ -124,6 +136,12 @@ class Fit:
         if self.status in ("infeasible", "unbounded", "failed") and not np.all(np.isfinite(self.coef)):
             raise DataError(f"This fit has status {self.status!r} and no coefficients to predict with: "
                             f"{self.message}")
+
+    # ---- model files
+    def save(self, path) -> None:
+        """Write this fit to a JSON model file (atomically; no pickle). Read it with ``lo.load_fit``."""
+        from .modelfile import save
+        save(self, path)
 
     # ---- display
     def summary(self) -> str:
