@@ -85,7 +85,7 @@ class Context:
     """What a rule can refer to: coefficient names, the design, and the raw data columns."""
 
     names: tuple[str, ...]          # coefficient names, 'intercept' last when present
-    design: np.ndarray | None       # n x p design matrix (with the column of ones), or None
+    design: object | None           # n x p design (dense or CSR, with the column of ones), or None
     frame: pd.DataFrame | None      # raw data columns, row-aligned with design
     reference: tuple[str, ...] = () # reference levels of encoded columns: coefficients fixed at 0
 
@@ -505,7 +505,9 @@ class _Compiler:
             if self.ctx.design is None:
                 raise self.fail("'prediction' needs the training data.")
             rows = np.arange(self.ctx.design.shape[0]) if mask is None else np.flatnonzero(mask)
-            return Affine(np.asarray(self.ctx.design[rows], dtype=float), np.zeros(len(rows)), rows)
+            block = self.ctx.design[rows]
+            block = block.toarray() if hasattr(block, "toarray") else block   # only the selected rows
+            return Affine(np.asarray(block, dtype=float), np.zeros(len(rows)), rows)
         if name == "intercept":
             raise self.fail("the task has no intercept (intercept=False), so 'intercept' cannot be used.")
         if name in self.columns:

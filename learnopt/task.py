@@ -55,11 +55,10 @@ class Task:
     def context(self) -> Context:
         from .routes.base import design_with_ones
         X = self.dataset.X
-        Xt = design_with_ones(X, self.intercept)
-        dense = Xt.toarray() if hasattr(Xt, "toarray") else Xt
+        Xt = design_with_ones(X, self.intercept)          # sparse stays sparse: rules take rows of it
         enc = self.dataset.encoding
         reference = tuple(f"{c}={v}" for c, v in enc.reference.items()) if enc is not None else ()
-        return Context(self.coefficient_names, dense, self.dataset.frame, reference)
+        return Context(self.coefficient_names, Xt, self.dataset.frame, reference)
 
     # ---- building
     def penalize(self, *penalties: Penalty) -> "Task":

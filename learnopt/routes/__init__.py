@@ -42,9 +42,14 @@ def prepare(task, route: str | None, vary: int | None = None):
     return _module(plan(task, route)).Runner(task, vary=vary)
 
 
+DENSE_LIMIT = 2000   # largest p for routes that form dense p x p matrices (Gram, Hessian)
+
+
 def _auto(task) -> str:
     """The planner: the route that exploits the task's structure, else direct."""
     n, p = task.dataset.n, task.dataset.d + int(task.intercept)
+    if p > DENSE_LIMIT:
+        return "direct"          # p x p dense factors would dwarf a sparse n x p design
     if _module("compressed").eligible(task) is None and n > p:
         return "compressed"
     if _module("newton").eligible(task) is None:
