@@ -162,3 +162,20 @@ def test_certificate_on_the_factor_agrees_with_the_one_on_every_row():
     assert small.primal == pytest.approx(full.primal, rel=1e-12)
     assert small.dual == pytest.approx(full.dual, rel=1e-9)
     assert small.rel_gap <= 1e-8 and full.rel_gap <= 1e-8
+
+
+def test_large_ill_conditioned_sparse_design_is_not_densified(monkeypatch):
+    # common practice: with the limit lowered, an ill-conditioned sparse design takes the
+    # eigenvalue factor of the Gram matrix instead of a dense QR, and reaches the same optimum
+    import scipy.sparse as sp
+    from learnopt.routes import compressed
+    t = np.linspace(0.0, 1.0, 300)
+    X = np.column_stack([t ** k for k in range(1, 7)])
+    y = 1.0 + X @ np.array([1.0, -2.0, 3.0, -1.0, 0.5, 2.0]) + 0.01 * np.sin(40 * t)
+    monkeypatch.setattr(compressed, "QR_DENSE_LIMIT", 100)
+    task = lo.regression(sp.csr_matrix(X), y).penalize(lo.penalty.l1(1e-4))
+    assert compressed.factor(task)[2] == "gram-eig"
+    fit = task.solve()
+    ref = lo.regression(X, y).penalize(lo.penalty.l1(1e-4)).solve(route="direct")
+    assert fit.route == "compressed" and fit.status == "optimal"
+    assert abs(fit.objective - ref.objective) <= fit.gap + ref.gap + 1e-15   # both certified

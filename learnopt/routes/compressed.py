@@ -28,6 +28,7 @@ import scipy.sparse as sp
 from .base import Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
 
 GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
+QR_DENSE_LIMIT = 2e7  # a sparse design larger than this (rows x columns) is never densified for QR
 
 
 def eligible(task) -> str | None:
@@ -80,6 +81,15 @@ def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
         a = task.dataset.weights / task.dataset.weights.sum()
         return R, r, "gram", float(a @ task.dataset.y ** 2 - r @ r)
     ds = task.dataset
+    if sp.issparse(ds.X) and ds.n * (ds.d + 2) > QR_DENSE_LIMIT:
+        # QR would densify a large sparse design: factor the Gram matrix by its eigenvalues
+        # instead (exact for the quadratic; accuracy limited by the conditioning of X'X)
+        vals, vecs = np.linalg.eigh(G)
+        keep = vals > vals.max() * 1e-15
+        R = np.sqrt(vals[keep])[:, None] * vecs[:, keep].T
+        r = (vecs[:, keep].T @ c) / np.sqrt(vals[keep])
+        a = ds.weights / ds.weights.sum()
+        return R, r, "gram-eig", float(a @ ds.y ** 2 - r @ r)
     X = ds.X.toarray() if sp.issparse(ds.X) else ds.X
     sa = np.sqrt(ds.weights / ds.weights.sum())
     cols = [X] + ([np.ones((ds.n, 1))] if task.intercept else []) + [ds.y[:, None]]
