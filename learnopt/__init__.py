@@ -9,7 +9,8 @@ from . import losses as loss
 from . import penalties as penalty
 from . import rules as rule
 from .convexity import Verdict
-from .errors import DataError, LearnoptError, NotConvexError, ParameterError, SolverError, TooLargeError
+from .errors import (DataError, LearnoptError, MissingDependencyError, NotConvexError, ParameterError,
+                     SolverError, TooLargeError)
 from .evaluate import Evaluation
 from .fit import Attempt, Fit, Timings
 from .solvers import installed as installed_solvers
@@ -35,5 +36,5 @@ def estimator(kind: str = "regression", loss=None, **options):
 __all__ = [
     "regression", "classification", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
-    "SolverError", "TooLargeError", "installed_solvers",
+    "SolverError", "TooLargeError", "MissingDependencyError", "installed_solvers",
 ]

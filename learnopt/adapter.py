@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import LearnoptError, ParameterError
+from .errors import LearnoptError, MissingDependencyError, ParameterError
 
 try:
     from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
@@ -20,7 +20,7 @@ try:
     from sklearn.utils.multiclass import check_classification_targets, type_of_target
     from sklearn.utils.validation import check_is_fitted, validate_data
 except ImportError as exc:  # pragma: no cover - exercised only without scikit-learn
-    raise ImportError("lo.estimator needs scikit-learn: pip install 'learnopt[sklearn]'.") from exc
+    raise MissingDependencyError("lo.estimator needs scikit-learn: pip install 'learnopt[sklearn]'.") from exc
 
 
 class _Base(BaseEstimator):

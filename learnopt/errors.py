@@ -47,3 +47,9 @@ class TooLargeError(LearnoptError, MemoryError):
     """A formulation would not fit in memory; the message says which route or scale-out fits."""
 
     exit_code = 5
+
+
+class MissingDependencyError(LearnoptError, ImportError):
+    """An optional part of learnopt needs a package that is not installed; the message says which extra."""
+
+    exit_code = 6

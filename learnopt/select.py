@@ -22,7 +22,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, LearnoptError, ParameterError
+from .errors import DataError, MissingDependencyError, ParameterError
 from .penalties import CustomPenalty, Penalty, Separable
 
 
@@ -164,7 +164,7 @@ def _pyplot():
     try:
         import matplotlib.pyplot as plt
     except ImportError:
-        raise LearnoptError("Plots need matplotlib: pip install 'learnopt[plot]'.") from None
+        raise MissingDependencyError("Plots need matplotlib: pip install 'learnopt[plot]'.") from None
     return plt
 
 
