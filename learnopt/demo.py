@@ -29,6 +29,23 @@ def make_data(n: int = 600, seed: int = 7) -> pd.DataFrame:
                          "size": size, "region": region, "segment": segment, "service_floor": floor})
 
 
+def demo_recipe() -> str:
+    """The bundled demo recipe (the same text as recipes/deliveries.toml; a test keeps them equal)."""
+    from importlib import resources
+    return resources.files("learnopt").joinpath("demo_recipe.toml").read_text(encoding="utf-8")
+
+
+def write_demo(folder: str) -> str:
+    """Write the demo data (seeded) and recipe into ``folder``; return the recipe's path."""
+    import os
+    from .jobs import write_atomic
+    os.makedirs(os.path.join(folder, "data"), exist_ok=True)
+    write_atomic(os.path.join(folder, "data", "deliveries.csv"), make_data().to_csv(index=False))
+    path = os.path.join(folder, "deliveries.toml")
+    write_atomic(path, demo_recipe())
+    return path
+
+
 def main() -> int:
     import learnopt as lo
 

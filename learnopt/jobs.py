@@ -1,0 +1,103 @@
+"""Running a recipe: build the task, do the action, write the outputs (each atomically)."""
+from __future__ import annotations
+
+import os
+import tempfile
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .recipes import Recipe, _frame, build_task
+
+
+@dataclass
+class Job:
+    """What a recipe run produced."""
+
+    recipe: Recipe
+    task: object
+    fit: object = None
+    compare: pd.DataFrame | None = None
+    path: object = None
+    evaluation: object = None
+    written: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return self.fit is not None and self.fit.status == "optimal"
+
+
+def write_atomic(path: str, text: str | bytes) -> None:
+    folder = os.path.dirname(os.path.abspath(path))
+    os.makedirs(folder, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(text.encode("utf-8") if isinstance(text, str) else text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def _split(recipe: Recipe, frame: pd.DataFrame):
+    hold = recipe.do.holdout
+    if hold is None:
+        return frame, None
+    if hold.path is not None:
+        from .data import _read
+        return frame, _read(recipe.resolve(hold.path))
+    rng = np.random.default_rng(hold.seed)
+    test = rng.random(len(frame)) < hold.fraction
+    return frame.loc[~test], frame.loc[test]
+
+
+def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n=None,
+        report: str | None = None) -> Job:
+    """Do what the recipe says (``action``/``solvers``/``grid``/``n``/``report`` override it)."""
+    frame = _frame(recipe)
+    train, held = _split(recipe, frame)
+    task = build_task(recipe, train)
+    job = Job(recipe, task)
+    s = recipe.solve
+    opts = dict(tol=s.tol, gap_tol=s.gap_tol, feas_tol=s.feas_tol)
+    action = action or recipe.do.action
+    if action == "compare":
+        job.compare = task.compare(list(solvers or recipe.do.solvers), **opts)
+    if action == "path":
+        job.path = task.path(recipe.do.penalty if task.penalties else None,
+                             grid=grid if grid is not None else recipe.do.grid, n=n or recipe.do.n,
+                             route=s.route, solver=s.solver, progress=None, **opts)
+    job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **opts)
+    if held is not None and job.fit.status in ("optimal", "unverified"):
+        job.evaluation = job.fit.evaluate(held)
+    _outputs(job, frame, report)
+    return job
+
+
+def _outputs(job: Job, frame: pd.DataFrame, report: str | None) -> None:
+    out, fit, recipe = job.recipe.outputs, job.fit, job.recipe
+    if out.fit:
+        path = recipe.resolve(out.fit)
+        os.makedirs(os.path.dirname(path) or ".", exist_ok=True)
+        fit.save(path)
+        job.written.append(path)
+    if out.coefficients:
+        table = pd.DataFrame({"coefficient": fit.coef})
+        if fit.task.intercept:
+            table.loc["intercept", "coefficient"] = fit.intercept
+        path = recipe.resolve(out.coefficients)
+        write_atomic(path, table.to_csv(index_label="name"))
+        job.written.append(path)
+    if out.predictions and fit.status in ("optimal", "unverified"):
+        pred = pd.DataFrame({"prediction": fit.predict(frame)})
+        path = recipe.resolve(out.predictions)
+        write_atomic(path, pred.to_csv(index_label="row"))
+        job.written.append(path)
+    target = report or (recipe.resolve(out.report) if out.report else None)
+    if target:
+        from .report import html
+        write_atomic(target, html(job))
+        job.written.append(target)

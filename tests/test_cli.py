@@ -1,0 +1,142 @@
+"""Recipes and the command line: same task as the Python API, clear errors, reports."""
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import learnopt as lo
+
+click = pytest.importorskip("click")
+pytest.importorskip("pydantic")
+from click.testing import CliRunner  # noqa: E402
+
+from learnopt.cli import main  # noqa: E402
+from learnopt.recipes import load_recipe, read_recipe  # noqa: E402
+
+RECIPES = Path(__file__).resolve().parents[1] / "recipes"
+
+
+def _python_deliveries():
+    df = pd.read_csv(RECIPES / "data" / "deliveries.csv")
+    return (lo.regression(df, target="minutes", loss=lo.loss.huber(4.0),
+                          features=["distance_km", "stops", "size", "region"])
+            .penalize(lo.penalty.l1(0.01))
+            .require("distance_km >= 0", "0 <= stops <= 3",
+                     "increasing(`size=small`, `size=medium`, `size=large`)",
+                     "prediction >= service_floor where segment == 'retail'",
+                     "mean(prediction where region == 'south') - mean(prediction where region == 'north') <= 1"))
+
+
+PYTHON_TWINS = {"deliveries.toml": _python_deliveries}
+
+
+@pytest.mark.parametrize("name", sorted(p.name for p in RECIPES.glob("*.toml")))
+def test_every_recipe_builds_the_same_task_as_the_python_api(name):
+    assert name in PYTHON_TWINS, f"add the Python twin of recipes/{name} to PYTHON_TWINS"
+    ours, twin = load_recipe(RECIPES / name), PYTHON_TWINS[name]()
+    assert ours.loss == twin.loss and ours.penalties == twin.penalties and ours.intercept == twin.intercept
+    assert [r.text for r in ours.rules] == [r.text for r in twin.rules]
+    assert ours.features == twin.features
+    np.testing.assert_array_equal(ours.dataset.X, twin.dataset.X)
+    np.testing.assert_array_equal(ours.dataset.y, twin.dataset.y)
+    assert ours.solve().objective == pytest.approx(twin.solve().objective, rel=1e-12)
+
+
+def test_bundled_demo_recipe_is_the_one_in_recipes():
+    from learnopt.demo import demo_recipe
+    assert demo_recipe() == (RECIPES / "deliveries.toml").read_text(encoding="utf-8")
+
+
+def test_run_check_compare_path_in_process(tmp_path):
+    runner = CliRunner()
+    recipe = str(RECIPES / "deliveries.toml")
+    out = runner.invoke(main, ["run", recipe, "--report", str(tmp_path / "r.html")])
+    assert out.exit_code == 0, out.output
+    assert "optimal" in out.output and "statistical estimate" in out.output
+    report = (tmp_path / "r.html").read_text()
+    assert "<img" in report and "Held-out evaluation" in report and "statistical estimate" in report
+    data = json.loads(runner.invoke(main, ["run", recipe, "--json"]).output)
+    assert data["fit"]["evidence"]["status"] == "optimal" and "evaluation" in data
+    assert runner.invoke(main, ["check", recipe]).exit_code == 0
+    cmp_ = runner.invoke(main, ["compare", recipe, "--solvers", "clarabel,scs", "--json"])
+    assert set(json.loads(cmp_.output)["compare"]) == {"clarabel", "scs"}
+    walk = runner.invoke(main, ["path", recipe, "--n", "4", "--json"])
+    assert len(json.loads(walk.output)["path"]) == 4
+
+
+def test_demo_command_writes_data_recipe_and_report(tmp_path):
+    out = CliRunner().invoke(main, ["demo", "--folder", str(tmp_path / "demo")])
+    assert out.exit_code == 0, out.output
+    assert (tmp_path / "demo" / "report.html").exists()
+    assert (tmp_path / "demo" / "out" / "deliveries-fit.json").exists()
+    back = lo.load_fit(tmp_path / "demo" / "out" / "deliveries-fit.json")
+    assert back.status == "optimal"
+
+
+def test_demo_as_a_subprocess(tmp_path):
+    proc = subprocess.run([sys.executable, "-m", "learnopt.cli", "demo", "--folder", str(tmp_path / "d"), "--json"],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert json.loads(proc.stdout)["fit"]["evidence"]["status"] == "optimal"
+
+
+BAD = [
+    ("[data]\npath='x.csv'\ncolour='red'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\n",
+     ["data.colour: unknown key"]),
+    ("[data]\npath='x.csv'\n[task]\nkind='ranking'\ntarget='y'\n[task.loss]\nname='squared'\n",
+     ["task.kind: Input should be 'regression' or 'classification'"]),
+    ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='huber'\ndelta=-1\n"
+     "[solve]\ntol=5\n", ["task.loss.delta: Input should be greater than 0", "solve.tol: Input should be less than 1"]),
+    ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\ntau=0.5\n",
+     ["the squared loss takes no parameters; remove tau"]),
+    ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\n"
+     "[[task.penalties]]\nname='group'\nstrength=1\n", ["task.penalties.0: the group penalty needs 'groups'"]),
+    ("[data\npath='x.csv'", ["is not valid TOML"]),
+    ("", ["data: Field required", "task: Field required"]),
+]
+
+
+@pytest.mark.parametrize("text,fragments", BAD, ids=[f"bad{k}" for k in range(len(BAD))])
+def test_bad_recipes_list_every_problem_with_its_place(tmp_path, text, fragments):
+    path = tmp_path / "bad.toml"
+    path.write_text(text)
+    with pytest.raises(lo.DataError) as info:
+        read_recipe(path)
+    for fragment in fragments:
+        assert fragment in str(info.value)
+    out = CliRunner().invoke(main, ["run", str(path)])
+    assert out.exit_code == 2 and "Traceback" not in out.output
+
+
+def test_missing_data_and_non_convex_rule_exit_codes(tmp_path):
+    recipe = (RECIPES / "deliveries.toml").read_text().replace('path = "data/deliveries.csv"',
+                                                               f'path = "{RECIPES / "data" / "deliveries.csv"}"')
+    (tmp_path / "nc.toml").write_text(recipe.replace('"distance_km >= 0",', '"distance_km * stops <= 3",'))
+    out = CliRunner().invoke(main, ["check", str(tmp_path / "nc.toml")])
+    assert out.exit_code == 3 and "not convex" in out.output.lower()
+    (tmp_path / "nodata.toml").write_text(recipe.replace(str(RECIPES / "data" / "deliveries.csv"), "nope.csv"))
+    out = CliRunner().invoke(main, ["run", str(tmp_path / "nodata.toml"), "--json"])
+    assert out.exit_code == 2 and json.loads(out.output)["error"] == "DataError"
+
+
+def test_hostile_recipe_values_never_crash(tmp_path):
+    # fuzzing (common practice): random junk in every slot ends in exit code 2 with a message
+    rng = np.random.default_rng(0)
+    junk = ["1e400", "-1", "'\\u00e9\\u00e8'", "[1, [2]]", "{a = 1}", "true", "'__import__(\"os\")'", "''"]
+    keys = ["data.path", "task.kind", "task.target", "task.loss.name", "task.loss.delta", "solve.tol",
+            "do.action", "do.n", "task.rules"]
+    for _ in range(25):
+        key, value = keys[rng.integers(len(keys))], junk[rng.integers(len(junk))]
+        section, leaf = key.rsplit(".", 1)
+        text = ("[data]\npath='d.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='huber'\n"
+                "[solve]\n[do]\n").replace(f"[{section}]\n", f"[{section}]\n{leaf} = {value}\n", 1)
+        path = tmp_path / "h.toml"
+        path.write_text(text)
+        out = CliRunner().invoke(main, ["run", str(path)])
+        assert out.exit_code == 2, (key, value, out.output)
+        assert "Traceback" not in out.output
