@@ -32,7 +32,46 @@ def _python_deliveries():
                      "mean(prediction where region == 'south') - mean(prediction where region == 'north') <= 1"))
 
 
-PYTHON_TWINS = {"deliveries.toml": _python_deliveries}
+def _python_blend():
+    df = pd.read_csv(RECIPES / "data" / "blend.csv")
+    return lo.regression(df, "panel", features=["ochre", "umber", "sienna", "slate"], intercept=False).require(
+        "ochre >= 0", "umber >= 0", "sienna >= 0", "slate >= 0", "ochre + umber + sienna + slate == 1")
+
+
+def _python_quality():
+    df = pd.read_csv(RECIPES / "data" / "quality.csv")
+    return (lo.classification(df, "result", loss="hinge", positive="pass",
+                              features=["line", "kiln_temp_c", "moisture_pct", "glaze_mm"])
+            .penalize(lo.penalty.l2(0.001))
+            .require("mean(prediction where line == 'A') - mean(prediction where line == 'B') <= 0.5"))
+
+
+def _python_energy():
+    df = pd.read_csv(RECIPES / "data" / "energy.csv")
+    return (lo.regression(df, "kwh", loss=lo.loss.quantile(0.9), features=["band", "occupancy", "weekday"])
+            .penalize(lo.penalty.l1(0.01))
+            .require("increasing(`band=b1_cold`, `band=b2_mild`, `band=b3_warm`, `band=b4_hot`)", "occupancy >= 0"))
+
+
+PYTHON_TWINS = {"deliveries.toml": _python_deliveries, "blend.toml": _python_blend,
+                "quality.toml": _python_quality, "energy.toml": _python_energy}
+
+
+def test_demo_data_files_are_what_the_seeded_script_writes():
+    import importlib.util
+    spec = importlib.util.spec_from_file_location("make_demo_data", RECIPES / "data" / "make_demo_data.py")
+    gen = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(gen)
+    for frame, name in ((gen.blend(), "blend.csv"), (gen.quality(), "quality.csv"), (gen.energy(), "energy.csv")):
+        pd.testing.assert_frame_equal(pd.read_csv(RECIPES / "data" / name),
+                                      pd.read_csv(__import__("io").StringIO(frame.to_csv(index=False))))
+
+
+def test_blend_recipe_recovers_a_blend():
+    fit = load_recipe(RECIPES / "blend.toml").solve()
+    assert fit.status == "optimal"
+    assert fit.coef.sum() == pytest.approx(1.0, abs=1e-8) and (fit.coef >= -1e-9).all()
+    np.testing.assert_allclose(fit.coef[["ochre", "umber", "sienna"]], [0.45, 0.30, 0.25], atol=0.02)
 
 
 @pytest.mark.parametrize("name", sorted(p.name for p in RECIPES.glob("*.toml")))
@@ -140,3 +179,27 @@ def test_hostile_recipe_values_never_crash(tmp_path):
         out = CliRunner().invoke(main, ["run", str(path)])
         assert out.exit_code == 2, (key, value, out.output)
         assert "Traceback" not in out.output
+
+
+def test_report_renders_in_a_headless_browser(tmp_path):
+    # a real browser (Debian's chromium, no network, no GPU): the page loads with no console
+    # errors and the inlined histogram is drawn (its bar colour #44aa77 appears on screen)
+    import shutil
+    browser = shutil.which("chromium") or shutil.which("chromium-browser")
+    if browser is None:
+        pytest.skip("chromium is not installed (apt-get install chromium) - the browser check needs it")
+    report = tmp_path / "report.html"
+    out = CliRunner().invoke(main, ["run", str(RECIPES / "deliveries.toml"), "--report", str(report)])
+    assert out.exit_code == 0
+    shot = tmp_path / "shot.png"
+    proc = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+                           "--disable-extensions", "--proxy-server=127.0.0.1:9", "--enable-logging=stderr",
+                           "--v=0", "--window-size=1000,3000", f"--screenshot={shot}", report.as_uri()],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    console = [line for line in proc.stderr.splitlines() if "CONSOLE" in line or "Uncaught" in line]
+    assert not console, console
+    import matplotlib.image as mpimg
+    pixels = (mpimg.imread(shot)[..., :3] * 255).round().astype(int)
+    bar = np.all(np.abs(pixels - np.array([0x44, 0xAA, 0x77])) <= 3, axis=-1)
+    assert bar.sum() > 2000
