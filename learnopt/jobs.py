@@ -96,6 +96,14 @@ def _outputs(job: Job, frame: pd.DataFrame, report: str | None) -> None:
         path = recipe.resolve(out.predictions)
         write_atomic(path, pred.to_csv(index_label="row"))
         job.written.append(path)
+    if out.path and job.path is not None:
+        path = recipe.resolve(out.path)
+        write_atomic(path, job.path.table.to_csv(index=False))
+        job.written.append(path)
+    if out.compare and job.compare is not None:
+        path = recipe.resolve(out.compare)
+        write_atomic(path, job.compare.to_csv())
+        job.written.append(path)
     target = report or (recipe.resolve(out.report) if out.report else None)
     if target:
         from .report import html

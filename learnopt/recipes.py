@@ -132,6 +132,8 @@ class OutputsPart(_Strict):
     fit: str | None = Field(default=None, description="model file (JSON)")
     coefficients: str | None = None
     predictions: str | None = None
+    path: str | None = Field(default=None, description="path table (CSV), when the action is path")
+    compare: str | None = Field(default=None, description="solver table (CSV), when the action is compare")
     report: str | None = None
 
 
