@@ -91,9 +91,18 @@ def test_bundled_demo_recipe_is_the_one_in_recipes():
     assert demo_recipe() == (RECIPES / "deliveries.toml").read_text(encoding="utf-8")
 
 
-def test_run_check_compare_path_in_process(tmp_path):
+@pytest.fixture
+def copied(tmp_path):
+    """The recipes folder copied, so runs write their outputs under tmp_path, not the repo."""
+    import shutil
+    target = tmp_path / "recipes"
+    shutil.copytree(RECIPES, target, ignore=shutil.ignore_patterns("out"))
+    return target
+
+
+def test_run_check_compare_path_in_process(tmp_path, copied):
     runner = CliRunner()
-    recipe = str(RECIPES / "deliveries.toml")
+    recipe = str(copied / "deliveries.toml")
     out = runner.invoke(main, ["run", recipe, "--report", str(tmp_path / "r.html")])
     assert out.exit_code == 0, out.output
     assert "optimal" in out.output and "statistical estimate" in out.output
@@ -101,6 +110,7 @@ def test_run_check_compare_path_in_process(tmp_path):
     assert "<img" in report and "Held-out evaluation" in report and "statistical estimate" in report
     data = json.loads(runner.invoke(main, ["run", recipe, "--json"]).output)
     assert data["fit"]["evidence"]["status"] == "optimal" and "evaluation" in data
+    assert (copied / "out" / "deliveries-fit.json").exists() and not (RECIPES / "out").exists()
     assert runner.invoke(main, ["check", recipe]).exit_code == 0
     cmp_ = runner.invoke(main, ["compare", recipe, "--solvers", "clarabel,scs", "--json"])
     assert set(json.loads(cmp_.output)["compare"]) == {"clarabel", "scs"}
@@ -181,7 +191,7 @@ def test_hostile_recipe_values_never_crash(tmp_path):
         assert "Traceback" not in out.output
 
 
-def test_report_renders_in_a_headless_browser(tmp_path):
+def test_report_renders_in_a_headless_browser(tmp_path, copied):
     # a real browser (Debian's chromium, no network, no GPU): the page loads with no console
     # errors and the inlined histogram is drawn (its bar colour #44aa77 appears on screen)
     import shutil
@@ -189,7 +199,7 @@ def test_report_renders_in_a_headless_browser(tmp_path):
     if browser is None:
         pytest.skip("chromium is not installed (apt-get install chromium) - the browser check needs it")
     report = tmp_path / "report.html"
-    out = CliRunner().invoke(main, ["run", str(RECIPES / "deliveries.toml"), "--report", str(report)])
+    out = CliRunner().invoke(main, ["run", str(copied / "deliveries.toml"), "--report", str(report)])
     assert out.exit_code == 0
     shot = tmp_path / "shot.png"
     proc = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
