@@ -201,6 +201,26 @@ def selection(quick: bool, repeat: int):
                  certified=int(cv.table["certified_folds"].sum()))]
 
 
+def centres_case(quick: bool, repeat: int):
+    """Unconstrained centres (n=20000, d=2, k=8, 10 restarts) against scikit-learn KMeans
+    (n_init=10), and the same with a polygon, a ball, a per-centre rule and a fixed centre."""
+    from sklearn.cluster import KMeans
+    rng = np.random.default_rng(0)
+    n = 20000 // (10 if quick else 1)
+    P = rng.normal(size=(n, 2)) * 3 + rng.integers(0, 4, size=(n, 1)) * 4
+    t_ours, fit = _timed(lambda: lo.centres(P, k=8).solve(restarts=10), repeat)
+    t_sk, km = _timed(lambda: KMeans(8, n_init=10, random_state=0).fit(P), repeat)
+    rules = (lo.rule.polygon([(-2, -2), (14, -2), (14, 14), (-2, 14)], features=("x0", "x1")),
+             lo.rule.ball((5, 5), 4, features=("x0", "x1")), "centre 3: x0 <= 1")
+    t_con, con = _timed(lambda: lo.centres(P, k=8, fixed=[(0, 0)]).require(*rules).solve(restarts=10), repeat)
+    return [dict(case="centres n=%d d=2 k=8, 10 restarts" % n, learnopt_s=t_ours, learnopt_objective=fit.objective,
+                 peer="scikit-learn KMeans(n_init=10)", peer_s=t_sk, peer_objective=km.inertia_,
+                 ratio=t_ours / t_sk),
+            dict(case="the same with a polygon, a ball, a per-centre rule, a fixed centre", learnopt_s=t_con,
+                 learnopt_objective=con.objective, peer="unconstrained learnopt", peer_s=t_ours,
+                 peer_objective=fit.objective, ratio=t_con / t_ours)]
+
+
 def growth(quick: bool, repeat: int):
     rows = []
     sizes = (1_000, 10_000, 100_000) if quick else (1_000, 10_000, 100_000, 1_000_000)
@@ -245,6 +265,10 @@ def main(argv=None) -> int:
         sel = selection(args.quick, args.repeat)
         print(pd.DataFrame(sel).to_string(index=False, float_format=lambda v: f"{v:.4g}"))
         result["selection"] = sel
+    if not wanted or "centres" in wanted:
+        cen = centres_case(args.quick, args.repeat)
+        print(pd.DataFrame(cen).to_string(index=False, float_format=lambda v: f"{v:.6g}"))
+        result["centres"] = cen
     if not args.no_growth and not wanted:
         g = growth(args.quick, args.repeat)
         print(pd.DataFrame(g).to_string(index=False, float_format=lambda v: f"{v:.4g}"))

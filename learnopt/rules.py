@@ -648,3 +648,7 @@ def compile_all(specs: Sequence[RuleSpec], ctx: Context) -> list[Requirement]:
         raise DataError(problems[0] if len(problems) == 1 else "Some rules cannot be used",
                         problems=problems)
     return reqs
+
+
+# region rules live in their own module; re-exported here so that lo.rule.polygon etc. work
+from .regions import ball, outside, polygon, segment, separation  # noqa: E402,F401
