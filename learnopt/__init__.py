@@ -15,6 +15,7 @@ from .evaluate import Evaluation
 from .fit import Attempt, Fit, Timings
 from .solvers import installed as installed_solvers
 from .centres import CentresFit, CentresTask, centres
+from .fusion import FusionFit, FusionTask, fusion
 from .task import Task, classification, regression
 
 __version__ = "0.1.0"
@@ -35,7 +36,7 @@ def estimator(kind: str = "regression", loss=None, **options):
     return _estimator(kind, loss, **options)
 
 __all__ = [
-    "regression", "classification", "centres", "CentresTask", "CentresFit", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
+    "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
     "SolverError", "TooLargeError", "MissingDependencyError", "installed_solvers",
 ]

@@ -57,13 +57,19 @@ class CentresTask:
     rules: tuple[Placement, ...] = ()
     index: pd.Index | None = None
 
-    def require(self, *rules) -> "CentresTask":
-        """A new task with rules on the centres (text, lo.rule.polygon / ball / segment / bounds)."""
+    def require(self, *rules, centre: int | None = None) -> "CentresTask":
+        """A new task with rules on the centres (text, lo.rule.polygon / ball / segment / bounds).
+
+        ``centre=j`` applies every rule of this call to centre j only (as the text prefix
+        "centre j:" does for one text rule)."""
         if len(rules) == 1 and isinstance(rules[0], (list, tuple)):
             rules = tuple(rules[0])
+        if centre is not None and not (isinstance(centre, (int, np.integer)) and 1 <= centre <= self.k):
+            raise DataError(f"require(centre={centre!r}): centres are numbered 1 to {self.k}.")
+        default = centre
         placed = []
         for r in rules:
-            centre = None
+            centre = default
             if isinstance(r, str):
                 m = _PREFIX.match(r)
                 if m:

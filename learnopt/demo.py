@@ -29,6 +29,32 @@ def make_data(n: int = 600, seed: int = 7) -> pd.DataFrame:
                          "size": size, "region": region, "segment": segment, "service_floor": floor})
 
 
+def make_bike_stops(n: int = 2400, seed: int = 21) -> pd.DataFrame:
+    """Invented bike-courier drop points in the "Lanternfield" district (km east/north of the
+    district office), with a demand weight per point (refills needed per week)."""
+    rng = np.random.default_rng(seed)
+    hubs = np.array([[1.0, 1.5], [4.5, 1.0], [3.0, 4.0], [6.0, 5.5], [1.5, 5.0]])
+    pick = rng.integers(0, len(hubs), n)
+    xy = hubs[pick] + rng.normal(scale=0.7, size=(n, 2))
+    demand = rng.gamma(2.0, 1.5, n).round(1)
+    return pd.DataFrame({"east_km": xy[:, 0].round(3), "north_km": xy[:, 1].round(3), "refills": demand})
+
+
+def depots(k: int = 4, restarts: int = 10):
+    """Place k refill depots for the Lanternfield bikes: inside the district (a convex polygon),
+    weighted by weekly refills, one depot already at the office (0.5, 0.5) and depot 2 on the
+    riverside road (a segment)."""
+    import learnopt as lo
+    where = ("east_km", "north_km")
+    district = lo.rule.polygon([(0, 0), (7, 0), (7.5, 4), (6, 7), (0, 6.5)], features=where)
+    river = lo.rule.segment((0.0, 3.0), (7.2, 3.0), features=where)
+    task = lo.centres(make_bike_stops(), k=k, weights="refills", features=list(where), fixed=[(0.5, 0.5)])
+    task = task.require(district)
+    if k >= 2:
+        task = task.require(river, centre=2)
+    return task.solve(restarts=restarts)
+
+
 def demo_recipe() -> str:
     """The bundled demo recipe (the same text as recipes/deliveries.toml; a test keeps them equal)."""
     from importlib import resources

@@ -113,3 +113,49 @@ def test_bad_input():
         lo.centres(X, k=2).require("centre 3: x0 >= 0")
     with pytest.raises(lo.DataError, match="names"):
         lo.centres(X, k=2).require(lo.rule.ball((0, 0), 1, features=("lat", "lon")))
+
+
+# ------------------------------------------------------------------ convex clustering
+def test_fusion_identities():
+    # identities from the optimality conditions (common practice in the convex-clustering
+    # literature): the fused centres average to the data mean at every strength; with all pairs
+    # and unit weights every point fuses once strength >= max_ij ||x_i - x_j|| / n (then
+    # V_ij = (x_j - x_i) / n is dual feasible); each solve is certified
+    rng = np.random.default_rng(0)
+    X = np.r_[rng.normal(size=(15, 2)), rng.normal(size=(15, 2)) + 6]
+    task = lo.fusion(X, 0.0, pairs="all")
+    threshold = np.max(np.linalg.norm(X[:, None] - X[None], axis=2)) / len(X)
+    for lam in (0.01, 0.1, 0.5 * threshold, 1.001 * threshold):
+        fit = lo.fusion(X, lam, pairs="all").solve()
+        assert fit.status == "optimal" and fit.rel_gap <= 1e-7
+        np.testing.assert_allclose(fit.centres.mean().to_numpy(), X.mean(axis=0), atol=1e-7)
+    assert fit.clusters == 1
+    table = task.path([0.001, 0.05, 0.5 * threshold, 1.001 * threshold])
+    assert list(table["clusters"]) == sorted(table["clusters"], reverse=True)
+    assert table["clusters"].iloc[0] == 30 and table["clusters"].iloc[-1] == 1
+
+
+def test_fusion_keeps_the_order_in_one_dimension():
+    # identity (common practice): in 1-D the fused values keep the data order at every strength
+    x = np.sort(np.random.default_rng(2).normal(size=25))
+    for lam in (0.005, 0.02, 0.05, 0.2):
+        u = lo.fusion(x, lam, pairs="all").solve().centres["x0"].to_numpy()
+        assert np.all(np.diff(u) >= -1e-7)
+
+
+def test_fusion_input_errors():
+    with pytest.raises(lo.ParameterError, match="'pairs' parameter of fusion"):
+        lo.fusion(np.eye(3), 0.1, pairs="ring")
+    with pytest.raises(lo.ParameterError, match="'strength' parameter of fusion must be >= 0"):
+        lo.fusion(np.eye(3), -1.0)
+    with pytest.raises(lo.DataError, match="at least two points"):
+        lo.fusion(np.array([[np.nan, 1.0], [0.0, 1.0]]), 0.1)
+
+
+def test_depot_demo_keeps_its_rules():
+    from learnopt.demo import depots
+    fit = depots()
+    c = fit.centres
+    assert tuple(c.loc[1]) == (0.5, 0.5)
+    assert c.loc[2, "north_km"] == pytest.approx(3.0, abs=1e-7) and 0 <= c.loc[2, "east_km"] <= 7.2 + 1e-7
+    assert fit.violation <= 1e-7 and fit.status == "local optimum"
