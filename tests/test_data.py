@@ -91,3 +91,34 @@ def test_prediction_needs_same_columns_and_levels(df):
     with pytest.raises(lo.DataError, match="levels"):
         fit.predict(df.assign(label="c"))
     assert fit.predict(df).shape == (30,)
+
+
+_BASE = pd.DataFrame({"a": [1.0, 2.0, 3.0, 4.0, 5.0], "b": [0.5, 0.1, 0.9, 0.3, 0.2], "y": [1.0, 2.1, 2.9, 4.2, 5.1]})
+
+
+@pytest.mark.parametrize("mutate,fragment", [
+    (lambda d: d.assign(a=[1, np.nan, 3, 4, 5]), "Column 'a' has 1 missing or infinite"),
+    (lambda d: d.assign(a=[1, np.inf, 3, 4, 5]), "Column 'a' has 1 missing or infinite"),
+    (lambda d: d.iloc[:0], "no rows"),
+    (lambda d: d.assign(b=[1, "x", 2.0, None, 3]), "Column 'b' has 1 missing"),
+    (lambda d: d.assign(b=pd.date_range("2020-01-01", periods=5)), "holds dates/times"),
+    (lambda d: d.assign(a=[1e300, 2e300, 3e300, 4e300, 5e300]), "beyond 1e150"),
+    (lambda d: d.assign(y=[1, 2, np.nan, 4, 5]), "The target 'y' has 1 missing"),
+], ids=["nan", "inf", "empty", "mixed", "datetime", "huge", "target-nan"])
+def test_gateway_battery_names_the_column_and_the_fix(mutate, fragment):
+    # each bad input ends in a DataError naming the column and what to do (common practice)
+    with pytest.raises(lo.DataError, match=fragment):
+        lo.regression(mutate(_BASE), "y").solve()
+
+
+def test_gateway_battery_automatic_handling():
+    # documented automatic handling: constant columns and tiny weights are kept (with a note)
+    const = lo.regression(_BASE.assign(b=1.0), "y")
+    assert any("constant column(s) ['b']" in n for n in const.dataset.notes)
+    assert const.solve().status == "optimal"
+    assert lo.regression(_BASE.assign(b=[True, False, True, True, False]), "y").solve().status == "optimal"
+    assert lo.regression(_BASE, "y", weights=np.full(5, 1e-300)).solve().status == "optimal"
+    with pytest.raises(lo.DataError, match="sums to zero"):
+        lo.regression(_BASE, "y", weights=np.zeros(5))
+    with pytest.raises(lo.DataError, match="3 label"):
+        lo.classification(_BASE.assign(y=[1, 2, 3, 1, 2]), "y")
