@@ -9,7 +9,7 @@ from . import losses as loss
 from . import penalties as penalty
 from . import rules as rule
 from .convexity import Verdict
-from .errors import (DataError, LearnoptError, MissingDependencyError, NotConvexError, ParameterError,
+from .errors import (AccuracyWarning, DataError, LearnoptError, MissingDependencyError, NotConvexError, ParameterError,
                      SolverError, TooLargeError)
 from .evaluate import Evaluation
 from .fit import Attempt, Fit, Timings
@@ -38,5 +38,5 @@ def estimator(kind: str = "regression", loss=None, **options):
 __all__ = [
     "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
-    "SolverError", "TooLargeError", "MissingDependencyError", "installed_solvers",
+    "SolverError", "TooLargeError", "MissingDependencyError", "AccuracyWarning", "installed_solvers",
 ]

@@ -53,3 +53,7 @@ class MissingDependencyError(LearnoptError, ImportError):
     """An optional part of learnopt needs a package that is not installed; the message says which extra."""
 
     exit_code = 6
+
+
+class AccuracyWarning(UserWarning):
+    """The answer's accuracy is limited by the data (an ill-conditioned design), not the solver."""

@@ -151,7 +151,7 @@ BAD = [
 
 
 @pytest.mark.parametrize("text,fragments", BAD, ids=[f"bad{k}" for k in range(len(BAD))])
-def test_bad_recipes_list_every_problem_with_its_place(tmp_path, text, fragments):
+def test_bad_recipes_list_every_problem_with_its_place(tmp_path, text, fragments, reliability):
     path = tmp_path / "bad.toml"
     path.write_text(text)
     with pytest.raises(lo.DataError) as info:
@@ -160,6 +160,7 @@ def test_bad_recipes_list_every_problem_with_its_place(tmp_path, text, fragments
         assert fragment in str(info.value)
     out = CliRunner().invoke(main, ["run", str(path)])
     assert out.exit_code == 2 and "Traceback" not in out.output
+    reliability.record("hostile recipe", "validation error")
 
 
 def test_missing_data_and_non_convex_rule_exit_codes(tmp_path):
@@ -173,7 +174,7 @@ def test_missing_data_and_non_convex_rule_exit_codes(tmp_path):
     assert out.exit_code == 2 and json.loads(out.output)["error"] == "DataError"
 
 
-def test_hostile_recipe_values_never_crash(tmp_path):
+def test_hostile_recipe_values_never_crash(tmp_path, reliability):
     # fuzzing (common practice): random junk in every slot ends in exit code 2 with a message
     rng = np.random.default_rng(0)
     junk = ["1e400", "-1", "'\\u00e9\\u00e8'", "[1, [2]]", "{a = 1}", "true", "'__import__(\"os\")'", "''"]
@@ -189,6 +190,7 @@ def test_hostile_recipe_values_never_crash(tmp_path):
         out = CliRunner().invoke(main, ["run", str(path)])
         assert out.exit_code == 2, (key, value, out.output)
         assert "Traceback" not in out.output
+        reliability.record("hostile recipe", "validation error")
 
 
 def test_report_renders_in_a_headless_browser(tmp_path, copied):

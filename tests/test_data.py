@@ -105,10 +105,11 @@ _BASE = pd.DataFrame({"a": [1.0, 2.0, 3.0, 4.0, 5.0], "b": [0.5, 0.1, 0.9, 0.3, 
     (lambda d: d.assign(a=[1e300, 2e300, 3e300, 4e300, 5e300]), "beyond 1e150"),
     (lambda d: d.assign(y=[1, 2, np.nan, 4, 5]), "The target 'y' has 1 missing"),
 ], ids=["nan", "inf", "empty", "mixed", "datetime", "huge", "target-nan"])
-def test_gateway_battery_names_the_column_and_the_fix(mutate, fragment):
+def test_gateway_battery_names_the_column_and_the_fix(mutate, fragment, reliability):
     # each bad input ends in a DataError naming the column and what to do (common practice)
     with pytest.raises(lo.DataError, match=fragment):
         lo.regression(mutate(_BASE), "y").solve()
+    reliability.record("bad input", "DataError")
 
 
 def test_gateway_battery_automatic_handling():

@@ -63,12 +63,29 @@ def gram(task):
     return G, np.append(Xty, a @ y)
 
 
+CONDITION_WARNING = 1e10   # condition number of the (column-scaled) design beyond which we warn
+
+
+def _note_condition(eig) -> None:
+    """Warn when the data themselves limit the accuracy of the coefficients."""
+    import warnings
+    from ..errors import AccuracyWarning
+    cond = float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else np.inf
+    if cond > CONDITION_WARNING:
+        digits = max(0.0, 16.0 - np.log10(cond)) if np.isfinite(cond) else 0.0
+        warnings.warn(f"The design is ill-conditioned (condition number {cond:.1e} after column scaling): "
+                      f"coefficients are reliable to about {digits:.0f} significant digits; nearly collinear "
+                      f"columns or an unpenalised rank deficiency are the usual causes.", AccuracyWarning,
+                      stacklevel=4)
+
+
 def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
     """(R, r, how, constant) with sum_i a_i (m_i' theta - y_i)^2 = ||R theta - r||^2 + constant."""
     G, c = gram(task)
     scale = np.sqrt(np.maximum(np.diag(G), np.finfo(float).tiny))
     Gs = G / np.outer(scale, scale)
     eig = np.linalg.eigvalsh(Gs)
+    _note_condition(eig)
     ok = eig[0] > 0 and eig[-1] / eig[0] <= GRAM_LIMIT
     if ok:
         try:
