@@ -1,6 +1,5 @@
 """The scikit-learn adapter, checked by scikit-learn's own conformance suite and utilities."""
 import numpy as np
-import pandas as pd
 import pytest
 
 import learnopt as lo

@@ -1,6 +1,5 @@
 """Recipes and the command line: same task as the Python API, clear errors, reports."""
 import json
-import os
 import subprocess
 import sys
 from pathlib import Path

@@ -86,7 +86,7 @@ def eligible(task) -> str | None:
 
 
 def _size(n: int, p: int) -> int:
-    """Rows in the first subset and in each growth step."""
+    """Rows in the first working set (and a quarter of it per growth step)."""
     return int(min(n, max(1000, 20 * p)))
 
 
@@ -111,7 +111,7 @@ class Runner(RunnerBase):
         """Which piece each row is on: the number of kinks below z."""
         return np.searchsorted(self.kinks, z, side="left")
 
-    def _reduced(self, rows, theta_now, scale_weights: bool, radius: float | None = None):
+    def _reduced(self, rows, theta_now, radius: float | None = None):
         """The reduced problem over working rows ``rows`` with the others folded at ``theta_now``.
 
         ``radius`` adds the trust box |theta - theta_now| <= radius: the folded objective is a
@@ -126,15 +126,13 @@ class Runner(RunnerBase):
         z = cp.Variable(len(rows), name="z")
         Mw = M[rows]
         Xw = Mw.explicit()
-        a_w = a[rows] / a[rows].sum() if scale_weights else a[rows]
+        a_w = a[rows]
         tie = z == Xw @ theta - q[rows]
         objective = task.loss.mean_expr(z, a_w)
-        if not scale_weights:
-            folded = np.ones(n, bool)
-            folded[rows] = False
-            zf = M @ theta_now - q
-            slope = np.where(folded, task.loss.gradient(zf), 0.0)
-            objective = objective + (M.T @ (a * slope)) @ theta
+        folded = np.ones(n, bool)
+        folded[rows] = False
+        slope = np.where(folded, task.loss.gradient(M @ theta_now - q), 0.0)
+        objective = objective + (M.T @ (a * slope)) @ theta
         for pen in task.penalties:
             objective = objective + pen.expr(theta[: task.dataset.d], task.features)
         with warnings.catch_warnings():
@@ -193,7 +191,7 @@ class Runner(RunnerBase):
             working[order[:take]] = True
             rows = np.flatnonzero(working)
             before = self._piece(z)
-            problem, theta_var, tie, pairs, _ = self._reduced(rows, theta, scale_weights=False, radius=radius)
+            problem, theta_var, tie, pairs, _ = self._reduced(rows, theta, radius=radius)
             status, c_s, _, _ = run(problem, spec, options, verbose, warm=False)
             compile_s += c_s
             new = theta_var.value
