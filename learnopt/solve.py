@@ -15,6 +15,7 @@ from . import params
 from .certify import certify
 from .fit import Attempt, Fit, Timings
 from .routes import direct, prepare
+from .basis import conditioned
 from .routes.base import SOLVER_FAULTS, loss_argument
 from .solvers import plan as plan_solvers
 
@@ -53,7 +54,10 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
     if time_limit is not None:
         params.check("solve", time_limit=(time_limit, params.POSITIVE))
     t_start = time.perf_counter()
-    runner = prepare(task, route) if runner is None else runner
+    original, T = task, None
+    if runner is None:
+        work, T = conditioned(task)          # centred and scaled columns when the data need it
+        runner = prepare(work, route)
     task = runner.task
     chain = plan_solvers(runner.problem_class, solver, fallback=fallback, prefer=getattr(runner, "prefer", ()))
     attempts: list[Attempt] = []
@@ -135,7 +139,31 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         if verdict is not None or done:
             break
     total = time.perf_counter() - t_start
+    if T is not None:
+        best = _back_to_original(original, T, best)
+        task = original
     return _assemble(task, runner.name, attempts, best, verdict, conflicts, gap_tol, feas_tol, total)
+
+
+def _back_to_original(task, T, best):
+    """Map the best point theta' of the rewritten task back (theta = T theta') and recompute the
+    objective and violations on the original data; the dual bound carries over unchanged (the
+    two problems are the same problem), so any rounding in the rewrite shows in the gap."""
+    if best is None:
+        return None
+    from dataclasses import replace
+    key, name, theta_w, cert, timing, prices, extras = best
+    theta = T @ theta_w
+    M, q, a = loss_argument(task)
+    d = task.dataset.d
+    primal = float(a @ task.loss.value(M @ theta - q)
+                   + sum(p.value(theta[:d], task.features) for p in task.penalties))
+    viol = [r.violation(theta) for r in task.requirements]
+    rel = max((v / r.scale() for v, r in zip(viol, task.requirements)), default=0.0)
+    gap = max(primal - cert.dual, 0.0) if np.isfinite(cert.dual) else np.inf
+    cert = replace(cert, primal=primal, gap=gap, rel_gap=gap / max(1.0, abs(primal)),
+                   violation=max(viol, default=0.0), rel_violation=rel)
+    return key, name, theta, cert, timing, prices, {**extras, "basis": "centred and scaled columns"}
 
 
 def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol, total) -> Fit:
