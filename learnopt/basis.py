@@ -19,7 +19,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .data import Dataset
-from .penalties import Separable, elastic_net, l1, l2
+from .penalties import Separable, l1, l2
 from .rules import Requirement
 
 SCALE_SPREAD = 1e3      # rewrite when column scales differ by more than this factor

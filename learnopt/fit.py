@@ -9,13 +9,16 @@ rule holds with equality (within tolerance) at the returned point.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
 from .certify import Certificate
 from .errors import DataError
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .evaluate import Evaluation
 
 STATUSES = ("optimal", "unverified", "infeasible", "unbounded", "failed")
 
@@ -151,7 +154,7 @@ class Fit:
                  f"solver     {self.solver}  route {self.route}",
                  *([f"KKT        stationarity {self.certificate.stationarity:.3g} (before repair), "
                     f"complementarity {self.certificate.complementarity:.3g}"] if self.certificate else []),
-                 f"timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items())]
+                 "timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items())]
         table = pd.DataFrame({"coef": self.coef})
         lines.append(table.to_string(float_format=lambda v: f"{v:.6g}"))
         if self.task is not None and self.task.intercept:

@@ -24,7 +24,7 @@ import ast
 import difflib
 import io
 import tokenize
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
