@@ -25,7 +25,6 @@ import os
 import platform
 import statistics
 import sys
-import tempfile
 import time
 import warnings
 
@@ -34,6 +33,7 @@ import numpy as np
 import pandas as pd
 
 import learnopt as lo
+from learnopt.files import write_atomic
 
 
 def _timed(fn, repeat):
@@ -59,11 +59,8 @@ def _data(n, d, seed, kind):
 
 def _objective(task, coef, intercept):
     """learnopt's objective for (coef, intercept) on the task's own data."""
-    from learnopt.routes.base import loss_argument
-    M, q, a = loss_argument(task)
-    theta = np.append(coef, intercept) if task.intercept else np.asarray(coef)
-    z = M @ theta - q
-    return float(a @ task.loss.value(z) + sum(p.value(np.asarray(coef), task.features) for p in task.penalties))
+    from learnopt.routes.base import objective
+    return objective(task, np.append(coef, intercept) if task.intercept else np.asarray(coef))
 
 
 def _plain_cvxpy(task):
@@ -231,13 +228,6 @@ def growth(quick: bool, repeat: int):
     return rows
 
 
-def _write(path, text):
-    fd, tmp = tempfile.mkstemp(dir=os.path.dirname(path), suffix=".tmp")
-    with os.fdopen(fd, "w") as fh:
-        fh.write(text)
-    os.replace(tmp, path)
-
-
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="one tenth of the sizes")
@@ -274,8 +264,8 @@ def main(argv=None) -> int:
         print(pd.DataFrame(g).to_string(index=False, float_format=lambda v: f"{v:.4g}"))
         result["growth"] = g
     here = os.path.dirname(os.path.abspath(__file__))
-    _write(os.path.join(here, "results.csv"), table.to_csv(index=False))
-    _write(os.path.join(here, "results.json"), json.dumps(result, indent=2, default=float))
+    write_atomic(os.path.join(here, "results.csv"), table.to_csv(index=False))
+    write_atomic(os.path.join(here, "results.json"), json.dumps(result, indent=2, default=float))
     return 0
 
 

@@ -172,6 +172,11 @@ def assign(X: np.ndarray, C: np.ndarray, xx: np.ndarray | None = None) -> tuple[
     return labels, d2
 
 
+def _allowed(reqs, point) -> bool:
+    """Does the point already meet every rule (then its projection is itself)?"""
+    return all(r.violation(point) <= 1e-12 * r.scale() for r in reqs)
+
+
 class _Projector:
     """Projection of a point onto one centre's allowed set, compiled once (cvxpy, DPP)."""
 
@@ -186,8 +191,8 @@ class _Projector:
                                       [requirement_constraint(r, self.c) for r in reqs])
 
     def __call__(self, point: np.ndarray) -> np.ndarray:
-        if all(r.violation(point) <= 1e-12 * r.scale() for r in self.reqs):
-            return point.copy()                  # already allowed: the projection is the point
+        if _allowed(self.reqs, point):
+            return point.copy()
         self.m.value = point
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -239,7 +244,7 @@ class _ConeProjector:
         return all(r.sense in ("<=", "==") or (r.sense == "norm" and r.order == 2) for r in reqs)
 
     def __call__(self, point: np.ndarray) -> np.ndarray:
-        if all(r.violation(point) <= 1e-12 * r.scale() for r in self.reqs):
+        if _allowed(self.reqs, point):
             return point.copy()
         solver = self.clarabel.DefaultSolver(self.P, -2.0 * point, self.A, self.b, self.cones, self.settings)
         sol = solver.solve()

@@ -44,6 +44,15 @@ class Certificate:
     note: str = ""
     complementarity: float = 0.0  # largest |multiplier x slack| over the rules (KKT residual)
 
+    def rebased(self, primal: float, dual: float | None = None) -> "Certificate":
+        """The same certificate with the primal value recomputed elsewhere (and the dual bound
+        shifted, when given): the gap follows from the two."""
+        from dataclasses import replace
+        dual = self.dual if dual is None else dual
+        gap = max(primal - dual, 0.0) if np.isfinite(dual) else np.inf
+        return replace(self, primal=primal, dual=dual, gap=gap,
+                       rel_gap=gap / max(1.0, abs(primal)) if np.isfinite(gap) else np.inf)
+
     def passes(self, gap_tol: float, feas_tol: float) -> bool:
         return bool(np.isfinite(self.gap) and self.rel_gap <= gap_tol and self.rel_violation <= feas_tol)
 
@@ -181,6 +190,31 @@ def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
     return u
 
 
+def requirement_terms(requirements, multipliers, theta) -> tuple[np.ndarray, float]:
+    """The rules' part of the Lagrangian at theta: its gradient sum_k A_k' mu_k (norm rules
+    through their subgradient) and its constant part, multipliers clipped to their signs."""
+    g_req = np.zeros(len(theta))
+    const_req = 0.0
+    for r, m in zip(requirements, multipliers):
+        if r.sense == "norm":
+            lam = max(float(m), 0.0)
+            y = r.A @ theta + r.rhs
+            if r.order == 2:
+                nrm = np.linalg.norm(y)
+                v = y / nrm if nrm > 0 else np.zeros_like(y)
+            else:
+                v = np.sign(y)
+            g_req += lam * (r.A.T @ v + r.f)
+            const_req += lam * (v @ r.rhs - r.bound)
+        else:
+            m = np.asarray(m, float).ravel()
+            if r.sense == "<=":
+                m = np.maximum(m, 0.0)
+            g_req += r.A.T @ m
+            const_req -= m @ r.rhs
+    return g_req, const_req
+
+
 def _complementarity(requirements, multipliers, theta) -> float:
     """Largest |multiplier x slack| over inequality and norm rules (zero at an exact KKT point)."""
     worst = 0.0
@@ -220,26 +254,7 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     low, high = loss.dual_domain()
     u = np.clip(np.asarray(u, float), low, high)
 
-    # fixed part of g from the requirements
-    g_req = np.zeros(len(theta))
-    const_req = 0.0
-    for r, m in zip(requirements, multipliers):
-        if r.sense == "norm":
-            lam = max(float(m), 0.0)
-            y = r.A @ theta + r.rhs
-            if r.order == 2:
-                nrm = np.linalg.norm(y)
-                v = y / nrm if nrm > 0 else np.zeros_like(y)
-            else:
-                v = np.sign(y)
-            g_req += lam * (r.A.T @ v + r.f)
-            const_req += lam * (v @ r.rhs - r.bound)
-        else:
-            m = np.asarray(m, float).ravel()
-            if r.sense == "<=":
-                m = np.maximum(m, 0.0)
-            g_req += r.A.T @ m
-            const_req -= m @ r.rhs
+    g_req, const_req = requirement_terms(requirements, multipliers, theta)
 
     recent: list = []       # the last few (u, g(u)): the repair and the bound ask for the same ones
 

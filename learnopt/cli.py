@@ -70,11 +70,7 @@ def _show(job, as_json: bool) -> None:
                                       "solver", "timings"], name="evidence"))
     con.print(_frame_table(ev, job.recipe.title or "learnopt fit"))
     con.print(fit.message)
-    coef = pd.DataFrame({"coefficient": fit.coef})
-    coef.index.name = "name"
-    if fit.task.intercept:
-        coef.loc["intercept"] = fit.intercept
-    con.print(_frame_table(coef, "coefficients"))
+    con.print(_frame_table(fit.coefficients(), "coefficients"))
     if len(fit.prices):
         pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
         pr.index.name = "rule"

@@ -64,7 +64,7 @@ def demo_recipe() -> str:
 def write_demo(folder: str) -> str:
     """Write the demo data (seeded) and recipe into ``folder``; return the recipe's path."""
     import os
-    from .jobs import write_atomic
+    from .files import write_atomic
     os.makedirs(os.path.join(folder, "data"), exist_ok=True)
     write_atomic(os.path.join(folder, "data", "deliveries.csv"), make_data().to_csv(index=False))
     path = os.path.join(folder, "deliveries.toml")

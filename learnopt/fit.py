@@ -94,6 +94,21 @@ class Fit:
     task: Any = field(repr=False, default=None)
     extras: dict = field(default_factory=dict, repr=False)
 
+    # ---- the point
+    @property
+    def theta(self) -> np.ndarray:
+        """The point as one vector: coefficients, then the intercept when the task has one."""
+        w = self.coef.to_numpy()
+        return np.append(w, self.intercept) if self.task is not None and self.task.intercept else w
+
+    def coefficients(self) -> pd.DataFrame:
+        """Coefficients by name with the intercept as a last row (when the task has one)."""
+        table = pd.DataFrame({"coefficient": self.coef})
+        table.index.name = "name"
+        if self.task is not None and self.task.intercept:
+            table.loc["intercept"] = self.intercept
+        return table
+
     # ---- predictions
     def _scores(self, data) -> np.ndarray:
         from .data import new_design

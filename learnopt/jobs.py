@@ -1,13 +1,12 @@
 """Running a recipe: build the task, do the action, write the outputs (each atomically)."""
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
+from .files import write_atomic
 from .recipes import Recipe, _frame, build_task
 
 
@@ -26,20 +25,6 @@ class Job:
     @property
     def ok(self) -> bool:
         return self.fit is not None and self.fit.status == "optimal"
-
-
-def write_atomic(path: str, text: str | bytes) -> None:
-    folder = os.path.dirname(os.path.abspath(path))
-    os.makedirs(folder, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(text.encode("utf-8") if isinstance(text, str) else text)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
 
 
 def _split(recipe: Recipe, frame: pd.DataFrame):
@@ -81,15 +66,11 @@ def _outputs(job: Job, frame: pd.DataFrame, report: str | None) -> None:
     out, fit, recipe = job.recipe.outputs, job.fit, job.recipe
     if out.fit:
         path = recipe.resolve(out.fit)
-        os.makedirs(os.path.dirname(path) or ".", exist_ok=True)
         fit.save(path)
         job.written.append(path)
     if out.coefficients:
-        table = pd.DataFrame({"coefficient": fit.coef})
-        if fit.task.intercept:
-            table.loc["intercept", "coefficient"] = fit.intercept
         path = recipe.resolve(out.coefficients)
-        write_atomic(path, table.to_csv(index_label="name"))
+        write_atomic(path, fit.coefficients().to_csv(index_label="name"))
         job.written.append(path)
     if out.predictions and fit.status in ("optimal", "unverified"):
         pred = pd.DataFrame({"prediction": fit.predict(frame)})

@@ -12,7 +12,6 @@ from __future__ import annotations
 import dataclasses
 import json
 import os
-import tempfile
 from importlib import metadata
 
 import numpy as np
@@ -115,18 +114,8 @@ def to_dict(fit) -> dict:
 
 def save(fit, path) -> None:
     """Write ``fit`` to ``path`` as JSON, atomically (a temporary file renamed into place)."""
-    text = json.dumps(to_dict(fit), indent=1)
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    from .files import write_atomic
+    write_atomic(path, json.dumps(to_dict(fit), indent=1))
 
 
 def load(path):

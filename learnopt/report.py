@@ -77,11 +77,7 @@ def html(job) -> str:
                                       "worst violation", "solver", "route"]
                                      + [f"{k} seconds" for k in fit.timings.as_dict()], name="evidence"))
     parts.append("<h2>Evidence</h2>" + _table(ev))
-    coef = pd.DataFrame({"coefficient": fit.coef})
-    coef.index.name = "name"
-    if task.intercept:
-        coef.loc["intercept"] = fit.intercept
-    parts.append("<h2>Coefficients</h2>" + _table(coef))
+    parts.append("<h2>Coefficients</h2>" + _table(fit.coefficients()))
     if len(fit.prices):
         pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
         pr.index.name = "rule"
@@ -91,8 +87,7 @@ def html(job) -> str:
     if np.all(np.isfinite(fit.coef.to_numpy())):
         from .routes.base import loss_argument
         M, q, _ = loss_argument(task)
-        theta = np.append(fit.coef.to_numpy(), fit.intercept) if task.intercept else fit.coef.to_numpy()
-        z = M @ theta - q
+        z = M @ fit.theta - q
         label = "margin y (x'w + b)" if task.loss.argument == "margin" else "residual (prediction - target)"
         parts.append("<h2>Training " + label.split(" ")[0] + "s</h2>" +
                      _png(lambda ax: (ax.hist(z, bins=40, color="#4a7"), ax.set_xlabel(label), ax.set_ylabel("rows"))))

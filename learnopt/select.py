@@ -86,18 +86,12 @@ def zero_strength(task, index: int, fit) -> float:
     ``fit`` is a certified fit at a strength above that (all penalised coefficients zero);
     the answer is the dual norm of the rest of the stationarity condition there.
     """
+    from .certify import requirement_terms
     from .routes.base import loss_argument
     M, q, a = loss_argument(task)
-    theta = np.append(fit.coef.to_numpy(), fit.intercept) if task.intercept else fit.coef.to_numpy()
+    theta = fit.theta
     u = task.loss.gradient(M @ theta - q)
-    g = M.T @ (a * u)
-    for r, m in zip(task.requirements, fit.extras.get("multipliers", [])):
-        if r.sense == "norm":
-            y = r.A @ theta + r.rhs
-            v = y / max(np.linalg.norm(y, r.order), 1e-300) if r.order == 2 else np.sign(y)
-            g = g + max(float(m), 0.0) * (r.A.T @ v + r.f)
-        else:
-            g = g + r.A.T @ np.asarray(m, float).ravel()
+    g = M.T @ (a * u) + requirement_terms(task.requirements, fit.extras.get("multipliers", []), theta)[0]
     # the other penalties' gradients at the point (their coefficients may be non-zero)
     d = task.dataset.d
     names = task.features
@@ -219,8 +213,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
             runner.set_strength(lam)
             fit = solve_task(task, runner=runner, **opts)
             if fit.status in ("optimal", "unverified"):
-                runner.start = np.append(fit.coef.to_numpy(), fit.intercept) if task.intercept \
-                    else fit.coef.to_numpy()
+                runner.start = fit.theta
             fits.append(fit)
             w = fit.coef.to_numpy()
             cut = 1e-8 * max(1.0, float(np.max(np.abs(w), initial=0.0)))

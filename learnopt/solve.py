@@ -16,7 +16,7 @@ from .certify import certify
 from .fit import Attempt, Fit, Timings
 from .routes import direct, prepare
 from .basis import conditioned
-from .routes.base import SOLVER_FAULTS, loss_argument
+from .routes.base import SOLVER_FAULTS, loss_argument, objective
 from .solvers import plan as plan_solvers
 
 POLISH_ROUNDS = 2      # tighter re-solves of one solver before moving down the chain
@@ -78,8 +78,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         seen.update(theta=theta.copy(), cert=cert, seconds=seen.get("seconds", 0.0) + time.perf_counter() - t)
         return cert.passes(gap_tol, feas_tol)
 
-    if hasattr(runner, "goal"):
-        runner.goal, runner.gap_tol, runner.tol = goal, gap_tol, tol
+    runner.goal, runner.gap_tol, runner.tol = goal, gap_tol, tol
     for spec in chain:
         rounds = [tol] + ([max(tol * POLISH_FACTOR ** k, TOL_FLOOR) for k in range(1, POLISH_ROUNDS + 1)]
                           if polish else [])
@@ -154,15 +153,9 @@ def _back_to_original(task, T, best):
     from dataclasses import replace
     key, name, theta_w, cert, timing, prices, extras = best
     theta = T @ theta_w
-    M, q, a = loss_argument(task)
-    d = task.dataset.d
-    primal = float(a @ task.loss.value(M @ theta - q)
-                   + sum(p.value(theta[:d], task.features) for p in task.penalties))
     viol = [r.violation(theta) for r in task.requirements]
     rel = max((v / r.scale() for v, r in zip(viol, task.requirements)), default=0.0)
-    gap = max(primal - cert.dual, 0.0) if np.isfinite(cert.dual) else np.inf
-    cert = replace(cert, primal=primal, gap=gap, rel_gap=gap / max(1.0, abs(primal)),
-                   violation=max(viol, default=0.0), rel_violation=rel)
+    cert = replace(cert.rebased(objective(task, theta)), violation=max(viol, default=0.0), rel_violation=rel)
     return key, name, theta, cert, timing, prices, {**extras, "basis": "centred and scaled columns"}
 
 

@@ -104,6 +104,17 @@ def loss_argument(task):
     return Design(ds.X, task.intercept), ds.y, a
 
 
+def objective(task, theta: np.ndarray) -> float:
+    """The task's objective at theta, on every row: weighted mean loss plus the penalties."""
+    M, q, a = loss_argument(task)
+    return float(a @ task.loss.value(M @ theta - q) + penalty_value(task, theta))
+
+
+def penalty_value(task, theta: np.ndarray) -> float:
+    d = task.dataset.d
+    return float(sum(p.value(theta[:d], task.features) for p in task.penalties))
+
+
 class RunnerBase:
     """What every route runner shares: the task it solves and how a path changes one strength.
 
@@ -116,6 +127,11 @@ class RunnerBase:
     vary: int | None = None
     strength: cp.Parameter | None = None
     start: np.ndarray | None = None
+    # set by the solve loop for iterative routes: goal(theta, u, multipliers) -> certificate
+    # passes, and the tolerances it works to
+    goal = None
+    gap_tol: float = 1e-7
+    tol: float = 1e-9
 
     def penalties_expr(self, w):
         """Sum of the task's penalty expressions, the varied one through the strength Parameter."""

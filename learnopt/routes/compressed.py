@@ -25,7 +25,7 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
-from .base import Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
+from .base import Outcome, RunnerBase, objective, read_multipliers, requirement_constraint, run
 
 GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
 QR_DENSE_LIMIT = 2e7  # a sparse design larger than this (rows x columns) is never densified for QR
@@ -79,6 +79,12 @@ def _note_condition(eig) -> None:
                       stacklevel=4)
 
 
+def _rest(task, r: np.ndarray) -> float:
+    """The constant y'Ay - |r|^2 left over when the loss is written ||R theta - r||^2 from the Gram."""
+    ds = task.dataset
+    return float((ds.weights / ds.weights.sum()) @ ds.y ** 2 - r @ r)
+
+
 def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
     """(R, r, how, constant) with sum_i a_i (m_i' theta - y_i)^2 = ||R theta - r||^2 + constant."""
     G, c = gram(task)
@@ -95,8 +101,7 @@ def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
     if ok:
         R = R * scale[None, :]      # undo the column scaling: G = (R D)'(R D)
         r = np.linalg.solve(R.T, c)
-        a = task.dataset.weights / task.dataset.weights.sum()
-        return R, r, "gram", float(a @ task.dataset.y ** 2 - r @ r)
+        return R, r, "gram", _rest(task, r)
     ds = task.dataset
     if sp.issparse(ds.X) and ds.n * (ds.d + 2) > QR_DENSE_LIMIT:
         # QR would densify a large sparse design: factor the Gram matrix by its eigenvalues
@@ -105,8 +110,7 @@ def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
         keep = vals > vals.max() * 1e-15
         R = np.sqrt(vals[keep])[:, None] * vecs[:, keep].T
         r = (vecs[:, keep].T @ c) / np.sqrt(vals[keep])
-        a = ds.weights / ds.weights.sum()
-        return R, r, "gram-eig", float(a @ ds.y ** 2 - r @ r)
+        return R, r, "gram-eig", _rest(task, r)
     X = ds.X.toarray() if sp.issparse(ds.X) else ds.X
     sa = np.sqrt(ds.weights / ds.weights.sum())
     cols = [X] + ([np.ones((ds.n, 1))] if task.intercept else []) + [ds.y[:, None]]
@@ -148,21 +152,12 @@ class Runner(RunnerBase):
         task up to the rounding of the factor) and shifted by the constant; the primal value is
         recomputed on every row, so any rounding of the factor shows up in the gap.
         """
-        from dataclasses import replace
         from ..certify import certify
         task = self.task
         small = certify(M=self.R, q=self.r, a=np.ones(len(self.r)), loss=task.loss, penalties=task.penalties,
                         names=task.features, requirements=list(task.requirements), theta=theta, u=None,
                         multipliers=mults, intercept=task.intercept, enough=enough)
-        M, q, a = loss_argument(task)
-        d = task.dataset.d
-        primal = float(a @ task.loss.value(M @ theta - q)
-                       + sum(p.value(theta[:d], task.features) for p in task.penalties))
-        dual = small.dual + self.constant
-        if not np.isfinite(dual):
-            return replace(small, primal=primal, dual=dual)
-        gap = max(primal - dual, 0.0)
-        return replace(small, primal=primal, dual=dual, gap=gap, rel_gap=gap / max(1.0, abs(primal)))
+        return small.rebased(objective(task, theta), small.dual + self.constant)
 
     def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
         if not self.task.penalties and not self.task.requirements and self.vary is None:

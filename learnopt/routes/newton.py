@@ -27,7 +27,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..penalties import Separable
-from .base import SOLVER_FAULTS, Outcome, RunnerBase, loss_argument, read_multipliers, requirement_constraint, run
+from .base import (SOLVER_FAULTS, Outcome, RunnerBase, loss_argument, penalty_value, read_multipliers,
+                   requirement_constraint, run)
 
 MAX_STEPS = 60
 ARMIJO = 1e-4
@@ -79,9 +80,6 @@ class Runner(RunnerBase):
                                           [v == self.F @ theta] + [c for _, c in self.pairs])
             self.theta = theta
         self.build_seconds = time.perf_counter() - t0
-        self.goal = None      # set by the solve loop: goal(theta, u, multipliers) -> certificate passes
-        self.gap_tol = 1e-7   # set by the solve loop
-        self.tol = 1e-9       # set by the solve loop
 
     def set_strength(self, lam: float) -> None:
         super().set_strength(lam)
@@ -90,14 +88,11 @@ class Runner(RunnerBase):
 
     # ---- the true objective
     def objective(self, theta):
-        z = self.M @ theta - self.q
-        d = self.task.dataset.d
-        return float(self.a @ self.task.loss.value(z)
-                     + sum(p.value(theta[:d], self.task.features) for p in self.task.penalties))
+        """The task's objective, with the design and row weights held by the runner (line searches)."""
+        return float(self.a @ self.task.loss.value(self.M @ theta - self.q) + penalty_value(self.task, theta))
 
     def penalty(self, theta):
-        d = self.task.dataset.d
-        return float(sum(p.value(theta[:d], self.task.features) for p in self.task.penalties))
+        return penalty_value(self.task, theta)
 
     def _model(self, theta):
         """Gradient and Hessian of the mean loss at theta."""

@@ -99,8 +99,6 @@ class Runner(RunnerBase):
         self.M, self.q, self.a = loss_argument(task)
         self.kinks = np.asarray(task.loss.kinks(), float)
         self.problem_class = task.problem_class()
-        self.goal = None
-        self.gap_tol = 1e-7
         self.build_seconds = time.perf_counter() - t0
 
     def _distance(self, z):
