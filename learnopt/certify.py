@@ -226,6 +226,25 @@ def _complementarity(requirements, multipliers, theta) -> float:
     return worst
 
 
+def feasibility(requirements, multipliers, theta) -> tuple[float, float, float]:
+    """(worst violation, worst relative violation, complementarity) of the rules at theta."""
+    viol = [r.violation(theta) for r in requirements]
+    violation = max(viol, default=0.0)
+    rel_violation = max((v / r.scale() for v, r in zip(viol, requirements)), default=0.0)
+    return violation, rel_violation, _complementarity(requirements, multipliers, theta)
+
+
+def no_conjugate(loss, primal, violation, rel_violation, comp) -> Certificate | None:
+    """The certificate of a loss without a conjugate (no dual bound), or None when it has one."""
+    try:
+        loss.conjugate(np.zeros(1))
+    except NotImplementedError:
+        return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, np.nan,
+                           f"the loss {loss.describe()} has no conjugate, so no dual bound can be "
+                           f"computed; give custom(..., conjugate=...) to certify it", comp)
+    return None
+
+
 def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement], theta, u,
             multipliers, intercept: bool, enough: float = 0.0) -> Certificate:
     """Certificate for the point ``theta`` with dual point ``u`` and requirement multipliers.
@@ -239,17 +258,10 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     if u is None:
         u = loss.gradient(z)
     primal = float(a @ loss.value(z) + sum(p.value(w, names) for p in penalties))
-    viol = [r.violation(theta) for r in requirements]
-    violation = max(viol, default=0.0)
-    rel_violation = max((v / r.scale() for v, r in zip(viol, requirements)), default=0.0)
-    comp = _complementarity(requirements, multipliers, theta)
-
-    try:
-        loss.conjugate(np.zeros(1))
-    except NotImplementedError:
-        return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, np.nan,
-                           f"the loss {loss.describe()} has no conjugate, so no dual bound can be "
-                           f"computed; give custom(..., conjugate=...) to certify it", comp)
+    violation, rel_violation, comp = feasibility(requirements, multipliers, theta)
+    missing = no_conjugate(loss, primal, violation, rel_violation, comp)
+    if missing is not None:
+        return missing
 
     low, high = loss.dual_domain()
     u = np.clip(np.asarray(u, float), low, high)

@@ -135,8 +135,14 @@ def _levels(col: pd.Series, name: str) -> list[str]:
     return sorted({str(v) for v in col.tolist()})
 
 
-def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool) -> Encoding:
-    """Decide the encoding of ``columns`` of ``frame`` (levels, names)."""
+def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
+           levels: dict[str, list] | None = None) -> Encoding:
+    """Decide the encoding of ``columns`` of ``frame`` (levels, names).
+
+    ``levels``: the distinct values of text columns when ``frame`` holds only the column types
+    (sharded data, where they come from a pass over the partitions).
+    """
+    seen = levels or {}
     names, levels, reference = [], {}, {}
     for c in columns:
         col = frame[c]
@@ -145,7 +151,7 @@ def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool) -> Enco
             raise DataError(f"Column {c!r} holds dates/times; convert it to a number (e.g. days "
                             f"since a start date) or to text categories before fitting.")
         if kind == "category":
-            lv = _levels(col, c)
+            lv = _levels(pd.Series(seen[c], dtype=object) if c in seen else col, c)
             kept = lv[1:] if intercept and len(lv) > 1 else lv
             if intercept and len(lv) > 1:
                 reference[c] = lv[0]
@@ -208,7 +214,16 @@ def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
     s = pd.Series(values)
     if s.isna().any():
         raise DataError(f"The target {name} has {int(s.isna().sum())} missing label(s); drop those rows.")
-    labels = sorted(set(s.tolist()), key=lambda v: (str(type(v)), v))
+    neg, pos = labels_of(s.tolist(), positive, name)
+    y = np.where(s.to_numpy() == pos, 1.0, -1.0)
+    return y, (neg, pos)
+
+
+def labels_of(values: list, positive, name: str) -> tuple:
+    """(negative, positive) labels of a binary target from its values (or distinct values)."""
+    if pd.Series(values, dtype=object).isna().any():
+        raise DataError(f"The target {name} has missing label(s); drop those rows.")
+    labels = sorted(set(values), key=lambda v: (str(type(v)), v))
     if len(labels) != 2:
         shown = labels[:6]
         raise DataError(f"The target {name} has {len(labels)} label(s) {shown}{'...' if len(labels) > 6 else ''}; "
@@ -220,13 +235,17 @@ def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
     else:
         raise DataError(f"positive={positive!r} is not one of the target labels {labels}.")
     neg = labels[0] if pos == labels[1] else labels[1]
-    y = np.where(s.to_numpy() == pos, 1.0, -1.0)
-    return y, (neg, pos)
+    return neg, pos
 
 
 def from_data(data, target, *, kind: str = "regression", features: Sequence[str] | None = None,
               weights=None, intercept: bool = True, positive=None) -> Dataset:
-    """Validate the inputs of a task and return a :class:`Dataset`."""
+    """Validate the inputs of a task and return a :class:`Dataset` (or, for a dask DataFrame or
+    a file pattern, a :class:`~learnopt.shards.ShardedDataset`)."""
+    from .shards import is_sharded_source, open_source
+    if is_sharded_source(data):
+        return open_source(data, target, kind=kind, features=features, weights=weights,
+                           intercept=intercept, positive=positive)
     if isinstance(data, (str, os.PathLike)):
         data = _read(data)
     if isinstance(data, pd.DataFrame):

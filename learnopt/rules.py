@@ -88,6 +88,7 @@ class Context:
     design: object | None           # n x p design (dense or CSR, with the column of ones), or None
     frame: pd.DataFrame | None      # raw data columns, row-aligned with design
     reference: tuple[str, ...] = () # reference levels of encoded columns: coefficients fixed at 0
+    no_rows: str = ""               # why rules cannot refer to data rows here (sharded data)
 
     @property
     def p(self) -> int:
@@ -409,7 +410,7 @@ class _Compiler:
     # ---- conditions (where ...): boolean masks over data rows
     def condition(self, node: ast.AST) -> np.ndarray:
         if self.ctx.frame is None:
-            raise self.fail("'where' conditions need data columns; give the data as a DataFrame.")
+            raise self.fail(self.ctx.no_rows or "'where' conditions need data columns; give the data as a DataFrame.")
         mask = self._cond(node)
         if not mask.any():
             raise self.fail(f"the condition {_shown(node, self.quoted)!r} selects no rows of the data.")
@@ -503,7 +504,7 @@ class _Compiler:
             return _scalar(self.ctx)  # a reference level's coefficient is 0 by construction
         if name == "prediction":
             if self.ctx.design is None:
-                raise self.fail("'prediction' needs the training data.")
+                raise self.fail(self.ctx.no_rows or "'prediction' needs the training data.")
             rows = np.arange(self.ctx.design.shape[0]) if mask is None else np.flatnonzero(mask)
             block = self.ctx.design[rows]
             block = block.toarray() if hasattr(block, "toarray") else block   # only the selected rows

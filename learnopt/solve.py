@@ -47,7 +47,7 @@ def _prices(task, mults, theta, feas_tol, noise):
 
 
 def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_options, verbose,
-               time_limit=None, polish=False, runner=None) -> Fit:
+               time_limit=None, polish=False, runner=None, client=None, progress=None) -> Fit:
     """Solve and certify ``task`` (or, with ``runner``, the runner's current task: paths)."""
     params.check("solve", tol=(tol, params.POSITIVE), gap_tol=(gap_tol, params.POSITIVE),
                  feas_tol=(feas_tol, params.POSITIVE))
@@ -55,7 +55,9 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         params.check("solve", time_limit=(time_limit, params.POSITIVE))
     t_start = time.perf_counter()
     original, T = task, None
-    if runner is None:
+    if runner is None and getattr(task, "sharded", False):
+        runner = prepare(task, route, client=client, progress=progress)
+    elif runner is None:
         work, T = conditioned(task)          # centred and scaled columns when the data need it
         runner = prepare(work, route)
     task = runner.task
@@ -138,6 +140,8 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         if verdict is not None or done:
             break
     total = time.perf_counter() - t_start
+    if hasattr(runner, "finish"):
+        best = runner.finish(best)           # route facts known only at the end (sharded: passes)
     if T is not None:
         best = _back_to_original(original, T, best)
         task = original

@@ -25,6 +25,8 @@ from .penalties import CustomPenalty, Penalty
 from .rules import Context, Requirement, RuleSpec, as_spec, compile_all
 from .solvers import CLASS_LABEL, problem_class
 
+SHARDED_ROWS = ("rules on predictions or data rows are not available for sharded data (a dask "
+                "DataFrame or a file pattern); rules on coefficients are. Fit in memory for this rule.")
 REGRESSION_LOSSES = {"squared", "absolute", "huber", "quantile", "epsilon_insensitive"}
 CLASSIFICATION_LOSSES = {"hinge", "squared_hinge", "logistic", "squared", "zero_one"}
 
@@ -52,11 +54,19 @@ class Task:
     def coefficient_names(self) -> tuple[str, ...]:
         return self.dataset.names + (("intercept",) if self.intercept else ())
 
+    @property
+    def sharded(self) -> bool:
+        """Does the data live on a dask cluster (a dask DataFrame or a file pattern)?"""
+        return getattr(self.dataset, "sharded", False)
+
     def context(self) -> Context:
         from .routes.base import design_with_ones
+        enc = self.dataset.encoding
+        if self.sharded:
+            reference = tuple(f"{c}={v}" for c, v in enc.reference.items())
+            return Context(self.coefficient_names, None, None, reference, no_rows=SHARDED_ROWS)
         X = self.dataset.X
         Xt = design_with_ones(X, self.intercept)          # sparse stays sparse: rules take rows of it
-        enc = self.dataset.encoding
         reference = tuple(f"{c}={v}" for c, v in enc.reference.items()) if enc is not None else ()
         return Context(self.coefficient_names, Xt, self.dataset.frame, reference)
 
@@ -115,7 +125,7 @@ class Task:
         reasons = []
         from .routes.direct import build
         try:
-            prob = build(self).problem
+            prob = self._small_problem() if self.sharded else build(self).problem
             if not prob.is_dcp():
                 reasons.append("learnopt's own verdict says convex but cvxpy's DCP check disagrees; "
                                "this is a learnopt bug, please report it with the task.")
@@ -130,13 +140,31 @@ class Task:
         Variables: ``theta`` = (coefficients in :attr:`features` order, then the intercept).
         """
         from .routes.direct import build
+        self._in_memory("problem()")
         return build(self).problem
+
+    def _in_memory(self, what: str) -> None:
+        if self.sharded:
+            raise ParameterError(f"{what} needs the data in memory; this task's data is sharded "
+                                 f"({self.dataset.label}). Solve it with task.solve(), or load a sample "
+                                 f"into a pandas DataFrame for {what}.")
+
+    def _small_problem(self):
+        """The loss on one stand-in row with every penalty and rule: what the convexity check of
+        sharded data looks at (the rows only repeat the loss term)."""
+        import cvxpy as cp
+        theta = cp.Variable(len(self.coefficient_names))
+        from .routes.base import requirement_constraint
+        objective = cp.sum(self.loss.expr(cp.reshape(cp.sum(theta), (1,))))
+        objective = objective + sum(p.expr(theta[: self.dataset.d], self.features) for p in self.penalties)
+        return cp.Problem(cp.Minimize(objective), [requirement_constraint(r, theta) for r in self.requirements])
 
     # ---- solving
     def solve(self, solver: str | None = None, *, tol: float = 1e-9, gap_tol: float = 1e-7,
               feas_tol: float = 1e-6, route: str | None = None, fallback: bool = True,
               time_limit: float | None = None, polish: bool = False,
-              solver_options: dict | None = None, verbose: bool = False):
+              solver_options: dict | None = None, verbose: bool = False, client=None,
+              progress: bool | None = None):
         """Solve and certify; return a :class:`~learnopt.fit.Fit`.
 
         Parameters
@@ -155,11 +183,14 @@ class Task:
             (warm-started) at tol/1e3 and tol/1e6 before moving down the chain.
         solver_options : extra options passed unchanged to the solver (its own names).
         verbose : show the solver's own log.
+        client : sharded data only: a ``distributed.Client`` or a scheduler address (default:
+            dask's current client, else a local cluster learnopt starts).
+        progress : sharded data only: a line per round of passes (None: only on a terminal).
         """
         from .solve import solve_task
         return solve_task(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route,
                           fallback=fallback, solver_options=solver_options or {}, verbose=verbose,
-                          time_limit=time_limit, polish=polish)
+                          time_limit=time_limit, polish=polish, client=client, progress=progress)
 
     def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
              route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
@@ -179,6 +210,7 @@ class Task:
         from the previous one, and each point is certified; requirements hold at every point.
         """
         from .select import path
+        self._in_memory("path()")
         return path(self, penalty, grid, n, ratio=ratio, route=route, solver=solver, tol=tol,
                     gap_tol=gap_tol, feas_tol=feas_tol, progress=progress)
 
@@ -197,6 +229,7 @@ class Task:
         strengths from the zeroing strength on all rows down to ``ratio`` times it.
         """
         from .select import cross_validate
+        self._in_memory("cross_validate()")
         return cross_validate(self, folds, grid, metric, seed, groups, ordered=ordered, penalty=penalty, n=n,
                               ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
                               feas_tol=feas_tol, progress=progress)
@@ -211,6 +244,7 @@ class Task:
         installed or cannot handle the problem class get a row with the reason.
         """
         from .solve import compare
+        self._in_memory("compare()")
         return compare(self, list(solvers), tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
 
     def __repr__(self) -> str:

@@ -8,6 +8,8 @@ the task) and a ``Runner(task)`` with ``name``, ``build_seconds``, ``problem_cla
 - compressed: squared loss; X reduced exactly to a p x p factor, then a small problem.
 - newton: smooth losses; proximal Newton steps, each a small p-dim problem, line search.
 - working-set: piecewise-linear losses; solve on the rows near a kink, fold the rest exactly.
+- sharded: data on a dask cluster (learnopt.shards); exact partition-wise reductions for the
+  squared loss (Gram / TSQR) and smooth losses (Newton), consensus ADMM otherwise.
 """
 from __future__ import annotations
 
@@ -15,7 +17,7 @@ import importlib
 
 from ..errors import ParameterError
 
-ROUTES = ("direct", "compressed", "newton", "working-set")
+ROUTES = ("direct", "compressed", "newton", "working-set", "sharded")
 
 
 def _module(name: str):
@@ -24,6 +26,11 @@ def _module(name: str):
 
 def plan(task, route: str | None) -> str:
     """Pick the route for a task (or check that the one asked for can take it)."""
+    if getattr(task, "sharded", False):
+        if route not in (None, "sharded"):
+            raise ParameterError(f"This task's data is sharded ({task.dataset.label}); only the sharded route "
+                                 f"can solve it. Leave route=None.")
+        return "sharded"
     if route is None:
         return _auto(task)
     if route not in ROUTES:
@@ -36,10 +43,11 @@ def plan(task, route: str | None) -> str:
     return route
 
 
-def prepare(task, route: str | None, vary: int | None = None):
+def prepare(task, route: str | None, vary: int | None = None, **route_options):
     """The runner of the planned route, built once for every solver attempt (and, with
-    ``vary``, for every strength of penalty ``vary`` along a path)."""
-    return _module(plan(task, route)).Runner(task, vary=vary)
+    ``vary``, for every strength of penalty ``vary`` along a path). ``route_options`` go to
+    routes that take them (sharded: client, progress)."""
+    return _module(plan(task, route)).Runner(task, vary=vary, **route_options)
 
 
 DENSE_LIMIT = 2000   # largest p for routes that form dense p x p matrices (Gram, Hessian)

@@ -79,15 +79,19 @@ def _note_condition(eig) -> None:
                       stacklevel=4)
 
 
-def _rest(task, r: np.ndarray) -> float:
-    """The constant y'Ay - |r|^2 left over when the loss is written ||R theta - r||^2 from the Gram."""
-    ds = task.dataset
-    return float((ds.weights / ds.weights.sum()) @ ds.y ** 2 - r @ r)
-
-
 def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
     """(R, r, how, constant) with sum_i a_i (m_i' theta - y_i)^2 = ||R theta - r||^2 + constant."""
     G, c = gram(task)
+    ds = task.dataset
+    yay = float((ds.weights / ds.weights.sum()) @ ds.y ** 2)
+    return factor_gram(G, c, yay, lambda: _qr(task), big_sparse=sp.issparse(ds.X) and ds.n * (ds.d + 2) > QR_DENSE_LIMIT)
+
+
+def factor_gram(G, c, yay: float, qr, big_sparse: bool = False):
+    """The factor from the Gram moments G = M'AM, c = M'Ay, yay = y'Ay: Cholesky when the
+    column-scaled G is well conditioned, else ``qr()`` (a QR factorisation of the rows, which does
+    not square the condition number), or an eigenvalue factor when QR would densify a large
+    sparse design (``big_sparse``)."""
     scale = np.sqrt(np.maximum(np.diag(G), np.finfo(float).tiny))
     Gs = G / np.outer(scale, scale)
     eig = np.linalg.eigvalsh(Gs)
@@ -101,22 +105,30 @@ def factor(task) -> tuple[np.ndarray, np.ndarray, str, float]:
     if ok:
         R = R * scale[None, :]      # undo the column scaling: G = (R D)'(R D)
         r = np.linalg.solve(R.T, c)
-        return R, r, "gram", _rest(task, r)
-    ds = task.dataset
-    if sp.issparse(ds.X) and ds.n * (ds.d + 2) > QR_DENSE_LIMIT:
+        return R, r, "gram", yay - float(r @ r)
+    if big_sparse:
         # QR would densify a large sparse design: factor the Gram matrix by its eigenvalues
         # instead (exact for the quadratic; accuracy limited by the conditioning of X'X)
         vals, vecs = np.linalg.eigh(G)
         keep = vals > vals.max() * 1e-15
         R = np.sqrt(vals[keep])[:, None] * vecs[:, keep].T
         r = (vecs[:, keep].T @ c) / np.sqrt(vals[keep])
-        return R, r, "gram-eig", _rest(task, r)
+        return R, r, "gram-eig", yay - float(r @ r)
+    return qr()
+
+
+def qr_factor(Rfull: np.ndarray) -> tuple[np.ndarray, np.ndarray, str, float]:
+    """(R, r, "qr", 0) from the triangular factor of sqrt(a) [M y]."""
+    k = min(Rfull.shape)
+    return Rfull[:k, :-1], Rfull[:k, -1], "qr", 0.0
+
+
+def _qr(task):
+    ds = task.dataset
     X = ds.X.toarray() if sp.issparse(ds.X) else ds.X
     sa = np.sqrt(ds.weights / ds.weights.sum())
     cols = [X] + ([np.ones((ds.n, 1))] if task.intercept else []) + [ds.y[:, None]]
-    Rfull = np.linalg.qr(np.hstack(cols) * sa[:, None], mode="r")
-    k = min(Rfull.shape)
-    return Rfull[:k, :-1], Rfull[:k, -1], "qr", 0.0
+    return qr_factor(np.linalg.qr(np.hstack(cols) * sa[:, None], mode="r"))
 
 
 class Runner(RunnerBase):
@@ -128,10 +140,10 @@ class Runner(RunnerBase):
     # the class order follows when OSQP's point does not pass
     prefer = ("osqp",)
 
-    def __init__(self, task, vary: int | None = None):
+    def __init__(self, task, vary: int | None = None, factored=None):
         t0 = time.perf_counter()
         self.task, self.vary = task, vary
-        R, r, self.factorisation, self.constant = factor(task)
+        R, r, self.factorisation, self.constant = factored or factor(task)
         self.R, self.r = R, r
         p = R.shape[1]
         theta = cp.Variable(p, name="theta")
@@ -157,7 +169,11 @@ class Runner(RunnerBase):
         small = certify(M=self.R, q=self.r, a=np.ones(len(self.r)), loss=task.loss, penalties=task.penalties,
                         names=task.features, requirements=list(task.requirements), theta=theta, u=None,
                         multipliers=mults, intercept=task.intercept, enough=enough)
-        return small.rebased(objective(task, theta), small.dual + self.constant)
+        return small.rebased(self.primal(theta), small.dual + self.constant)
+
+    def primal(self, theta) -> float:
+        """The objective recomputed on every row."""
+        return objective(self.task, theta)
 
     def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
         if not self.task.penalties and not self.task.requirements and self.vary is None:

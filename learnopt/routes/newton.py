@@ -61,11 +61,10 @@ class Runner(RunnerBase):
     def __init__(self, task, vary: int | None = None):
         t0 = time.perf_counter()
         self.task, self.vary = task, vary
-        self.M, self.q, self.a = loss_argument(task)
-        p = self.M.shape[1]
+        p = task.dataset.d + int(task.intercept)
         self.p = p
         self.ridge = _plain_ridge(task)
-        self.size = max(_weighted_trace(self.M, self.a) / p, 1e-300)
+        self.size = max(self._rows() / p, 1e-300)
         self.problem_class = task.problem_class(loss_cone="quadratic")
         if self.ridge is None:
             theta = cp.Variable(p, name="theta")
@@ -85,6 +84,11 @@ class Runner(RunnerBase):
         super().set_strength(lam)
         if self.ridge is not None:
             self.ridge = _plain_ridge(self.task)
+
+    def _rows(self) -> float:
+        """Hold the loss argument's rows (M, q, a); return trace(M'AM), the damping's scale."""
+        self.M, self.q, self.a = loss_argument(self.task)
+        return _weighted_trace(self.M, self.a)
 
     # ---- the true objective
     def objective(self, theta):

@@ -1,0 +1,319 @@
+"""Sharded data: tables too large for one process, held as row blocks on a dask cluster.
+
+A source (a dask DataFrame, or a glob of CSV / Parquet files) is opened lazily. One pass when
+the task is built decides what the in-memory gateway decides from the whole table (the levels
+of text columns, the two labels of a classification target, the number of rows), reading only
+those columns; the rows themselves are never brought to the client. When the task is solved
+every partition is encoded on a worker into a block (X_k, y_k, w_k) of float64 arrays that stays
+on the cluster for the whole fit; routes send functions to the blocks and bring back only small
+results (p-vectors, p x p matrices, numbers), which the client adds up in a fixed order.
+
+The cluster: ``solve(client=...)`` takes a ``distributed.Client`` or a scheduler address; with
+none, dask's current default client is used, and failing that a local cluster that learnopt
+starts once per process (one single-threaded worker process per core, up to 4) and closes at
+exit. A worker that dies mid-fit costs only time: its blocks are rebuilt from the source by the
+scheduler and the lost tasks run again.
+"""
+from __future__ import annotations
+
+import atexit
+import glob as _glob
+import os
+import time
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+from .data import Encoding, _column, _close, _kind_of, design, encode, labels_of
+from .errors import DataError, LearnoptError, MissingDependencyError, ParameterError
+
+GLOB_CHARS = "*?["
+
+
+def _dask():
+    try:
+        import dask
+        import dask.dataframe as dd
+    except ImportError as exc:
+        raise MissingDependencyError("Sharded data needs dask and distributed: "
+                                     "pip install 'learnopt[scale]'.") from exc
+    return dask, dd
+
+
+def is_sharded_source(data) -> bool:
+    """A dask DataFrame, or a path with glob characters (several CSV / Parquet files)."""
+    if isinstance(data, (str, os.PathLike)):
+        return any(ch in os.fspath(data) for ch in GLOB_CHARS)
+    mod = type(data).__module__ or ""
+    return mod.startswith("dask") and hasattr(data, "to_delayed") and hasattr(data, "columns")
+
+
+def read_glob(pattern: str):
+    """A lazy dask DataFrame over every file matching ``pattern`` (all CSV or all Parquet)."""
+    _, dd = _dask()
+    pattern = os.fspath(pattern)
+    files = sorted(_glob.glob(pattern))
+    if not files:
+        raise DataError(f"No files match {pattern!r}; check the pattern (relative paths are taken "
+                        f"from the working directory {os.getcwd()!r}).")
+    kinds = {"parquet" if f.lower().endswith((".parquet", ".pq")) else
+             "csv" if f.lower().endswith((".csv", ".txt", ".csv.gz")) else "other" for f in files}
+    if kinds == {"parquet"}:
+        return dd.read_parquet(files)
+    if kinds == {"csv"}:
+        return dd.read_csv(files, blocksize=None)      # one partition per file
+    raise DataError(f"The files matching {pattern!r} mix types or have an unknown type "
+                    f"({', '.join(sorted(kinds))}); match only .csv or only .parquet files.")
+
+
+@dataclass(frozen=True)
+class BlockSpec:
+    """How a worker turns one partition into a block: everything the encoding pass decided."""
+
+    encoding: Encoding
+    target: str
+    weights: str | None
+    kind: str
+    labels: tuple | None
+
+
+@dataclass(eq=False)
+class ShardedDataset:
+    """A task's data when it lives on a dask cluster: names and encoding here, rows there.
+
+    Has the in-memory :class:`~learnopt.data.Dataset`'s names (``names``, ``encoding``,
+    ``labels``, ``notes``, ``n``, ``d``); ``X``, ``y``, ``weights`` and ``frame`` are None.
+    """
+
+    source: Any                           # the lazy dask DataFrame
+    spec: BlockSpec
+    n: int
+    partitions: int
+    label: str                            # what the user gave (pattern or "dask DataFrame")
+    notes: list[str] = field(default_factory=list)
+    X = y = weights = frame = None
+    sharded = True
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return self.spec.encoding.names
+
+    @property
+    def encoding(self) -> Encoding:
+        return self.spec.encoding
+
+    @property
+    def labels(self):
+        return self.spec.labels
+
+    @property
+    def d(self) -> int:
+        return len(self.names)
+
+
+def open_source(data, target, *, kind: str, features: Sequence[str] | None, weights, intercept: bool,
+                positive) -> ShardedDataset:
+    """Validate a sharded source and decide its encoding in one pass over the needed columns."""
+    dask, dd = _dask()
+    label = os.fspath(data) if isinstance(data, (str, os.PathLike)) else "dask DataFrame"
+    ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+    meta = ddf._meta
+    if not isinstance(target, str):
+        raise DataError("With sharded data (a dask DataFrame or a file pattern), 'target' must be a "
+                        "column name.")
+    if weights is not None and not isinstance(weights, str):
+        raise DataError("With sharded data, 'weights' must be a column name.")
+    if meta.columns.duplicated().any():
+        raise DataError(f"The data has duplicate column names "
+                        f"{sorted(set(map(str, meta.columns[meta.columns.duplicated()])))}; rename them.")
+    _column(meta, target, "target")
+    if weights is not None:
+        col = _column(meta, weights, "weights")
+        if not pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
+            raise DataError(f"The weights column {weights!r} must be numeric.")
+    if features is None:
+        features = [c for c in meta.columns if c != target and c != weights]
+    else:
+        features = [features] if isinstance(features, str) else list(features)
+        missing = [f for f in features if f not in meta.columns]
+        if missing:
+            raise DataError(f"Feature column(s) {missing} are not in the data.{_close(missing[0], meta.columns)} "
+                            f"Columns: {', '.join(map(str, meta.columns))}.")
+        if target in features:
+            raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
+    if not features and not intercept:
+        raise DataError("The task has no features and no intercept; nothing to fit.")
+    if kind == "regression":
+        tcol = meta[target]
+        if not pd.api.types.is_numeric_dtype(tcol) or pd.api.types.is_bool_dtype(tcol):
+            raise DataError(f"The target {target!r} must be numeric for regression (it is {tcol.dtype}); "
+                            f"for labels use lo.classification.")
+    text = [c for c in features if _kind_of(meta[c]) == "category"]
+    wanted = text + ([target] if kind == "classification" else [])
+    try:
+        found = dask.compute(*[ddf[c].drop_duplicates() for c in wanted], ddf.map_partitions(len))
+    except LearnoptError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - reading errors come in many types; all mean "cannot read"
+        raise DataError(f"The data {label!r} could not be read: {str(exc).splitlines()[0][:300]}") from None
+    uniques, sizes = found[:-1], np.asarray(found[-1], dtype=np.int64)
+    levels = {c: list(u) for c, u in zip(text, uniques)}
+    enc = encode(meta, features, intercept, levels=levels)
+    labels = labels_of(list(uniques[-1]), positive, repr(target)) if kind == "classification" else None
+    n = int(sizes.sum())
+    if n == 0:
+        raise DataError(f"The data {label!r} has no rows.")
+    spec = BlockSpec(enc, target, weights, kind, labels)
+    return ShardedDataset(ddf, spec, n, ddf.npartitions, label)
+
+
+def encode_block(part: pd.DataFrame, spec: BlockSpec, index: int):
+    """One partition -> (X, y, w) float64 arrays, on a worker; errors name the partition."""
+    part = part.reset_index(drop=True)
+    d = len(spec.encoding.names)
+    if len(part) == 0:
+        return np.zeros((0, d)), np.zeros(0), np.zeros(0)
+    try:
+        X = design(spec.encoding, part)
+        col = part[spec.target]
+        if spec.kind == "classification":
+            neg, pos = spec.labels
+            values = col.to_numpy()
+            unknown = sorted({str(v) for v in values if v != neg and v != pos})
+            if col.isna().any() or unknown:
+                raise DataError(f"The target {spec.target!r} has missing or unexpected labels {unknown[:5]}; "
+                                f"the labels are {neg!r} and {pos!r}.")
+            y = np.where(values == pos, 1.0, -1.0)
+        else:
+            y = col.to_numpy(dtype=float)
+            if not np.all(np.isfinite(y)):
+                raise DataError(f"The target {spec.target!r} has missing or infinite values (first at row "
+                                f"{np.flatnonzero(~np.isfinite(y))[0]}); drop or fill those rows.")
+        if spec.weights is None:
+            w = np.ones(len(part))
+        else:
+            w = part[spec.weights].to_numpy(dtype=float)
+            bad = ~np.isfinite(w) | (w < 0)
+            if bad.any():
+                raise DataError(f"The weights column {spec.weights!r} has a negative, missing or infinite "
+                                f"value (first at row {np.flatnonzero(bad)[0]}); weights must be >= 0.")
+    except DataError as exc:
+        raise DataError(f"Partition {index} of the data: {exc}") from None
+    return X, y, w
+
+
+# ---- the cluster
+
+_LOCAL: dict = {}
+
+
+def connect(client=None):
+    """The distributed Client to use: the one given, a scheduler address, dask's default, or a
+    local cluster learnopt starts (once per process)."""
+    _dask()
+    try:
+        from distributed import Client, LocalCluster, default_client
+    except ImportError as exc:
+        raise MissingDependencyError("Sharded fits need distributed: pip install 'learnopt[scale]'.") from exc
+    if isinstance(client, Client):
+        return client
+    if isinstance(client, str):
+        key = ("address", client)
+        if key not in _LOCAL:
+            try:
+                _LOCAL[key] = Client(client, set_as_default=False, timeout=10)
+            except (OSError, TimeoutError) as exc:
+                raise ParameterError(f"No dask scheduler answered at {client!r} ({exc}); check the "
+                                     f"address, or leave client=None for a local cluster.") from None
+        return _LOCAL[key]
+    if client is not None:
+        raise ParameterError(f"The 'client' parameter must be a distributed.Client, a scheduler address "
+                             f"or None. Got {type(client).__name__} instead.")
+    try:
+        return default_client()
+    except ValueError:
+        pass
+    if "local" not in _LOCAL:
+        workers = max(1, min(os.cpu_count() or 1, 4))
+        try:
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                   dashboard_address=":0", silence_logs=50)
+        except (RuntimeError, OSError, TimeoutError) as exc:
+            raise ParameterError(
+                f"learnopt could not start a local dask cluster ({str(exc).splitlines()[0]}). Worker "
+                f"processes import the script that starts them: put a script's work under "
+                f"'if __name__ == \"__main__\":', or pass client= an existing distributed.Client or "
+                f"scheduler address.") from None
+        _LOCAL["local"] = Client(cluster, set_as_default=False)
+        atexit.register(close_local)
+    return _LOCAL["local"]
+
+
+def close_local() -> None:
+    """Close the clusters and connections learnopt opened itself."""
+    for key in list(_LOCAL):
+        client = _LOCAL.pop(key)
+        cluster = client.cluster if key == "local" else None
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def _add(parts):
+    """Sum a list of results (numbers, arrays, or tuples of them) in a fixed order."""
+    total = parts[0]
+    for part in parts[1:]:
+        total = tuple(a + b for a, b in zip(total, part)) if isinstance(total, tuple) else total + part
+    return total
+
+
+class Blocks:
+    """The encoded partitions of a sharded dataset, held on the cluster for one fit.
+
+    ``total(fn, *per_block, **common)`` runs ``fn(block, *per_block_args, **common)`` on every
+    block and returns the sum of the (small) results; ``map`` returns the futures themselves
+    (per-block state that stays on the workers). Seconds spent waiting for passes are counted
+    in ``seconds`` and the number of passes in ``passes``.
+    """
+
+    def __init__(self, dataset: ShardedDataset, client=None):
+        from dask import delayed
+        self.client = connect(client)
+        self.dataset = dataset
+        parts = dataset.source.to_delayed()
+        encode = delayed(encode_block, pure=True)
+        t0 = time.perf_counter()
+        self.futures = self.client.compute([encode(p, dataset.spec, k) for k, p in enumerate(parts)])
+        self.W = None
+        self.passes, self.seconds = 0, time.perf_counter() - t0
+
+    def __len__(self) -> int:
+        return len(self.futures)
+
+    def map(self, fn, *per_block, **common) -> list:
+        return self.client.map(fn, self.futures, *per_block, pure=False, **common)
+
+    def gather(self, futures) -> list:
+        t0 = time.perf_counter()
+        try:
+            out = self.client.gather(futures)
+        finally:
+            self.seconds += time.perf_counter() - t0
+            self.passes += 1
+        return out
+
+    def total(self, fn, *per_block, **common):
+        return _add(self.gather(self.map(fn, *per_block, **common)))
+
+    def pick(self, futures, index: int) -> list:
+        """Futures of one element of each per-block tuple result (nothing moves to the client)."""
+        return self.client.map(_item, futures, [index] * len(futures), pure=False)
+
+    def release(self) -> None:
+        self.futures = []
+
+
+def _item(result, index):
+    return result[index]
