@@ -155,7 +155,7 @@ class Task:
         import cvxpy as cp
         theta = cp.Variable(len(self.coefficient_names))
         from .routes.base import requirement_constraint
-        objective = cp.sum(self.loss.expr(cp.reshape(cp.sum(theta), (1,))))
+        objective = cp.sum(self.loss.expr(cp.reshape(cp.sum(theta), (1,), order="F")))
         objective = objective + sum(p.expr(theta[: self.dataset.d], self.features) for p in self.penalties)
         return cp.Problem(cp.Minimize(objective), [requirement_constraint(r, theta) for r in self.requirements])
 

@@ -1,0 +1,274 @@
+"""Sharded fits on a local dask cluster of 2 worker processes: the same answer and the same
+certificate as the in-memory fit, from Parquet files, CSV files and dask DataFrames.
+
+Outside references: the NIST StRD certified Longley values, the Stata values for the Spector
+logistic MLE (both as listed in ../shared/REFERENCES.md), numpy's lstsq on scikit-learn's
+diabetes data; otherwise the in-memory fit, itself checked against references elsewhere.
+"""
+from __future__ import annotations
+
+import os
+import threading
+import time
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import learnopt as lo
+from learnopt.errors import DataError, ParameterError
+
+dd = pytest.importorskip("dask.dataframe")
+distributed = pytest.importorskip("distributed")
+pytest.importorskip("pyarrow")
+
+
+@pytest.fixture(scope="module")
+def client():
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                       dashboard_address=":0", silence_logs=50)
+    c = distributed.Client(cluster, set_as_default=False)
+    yield c
+    c.close()
+    cluster.close()
+
+
+def write_parts(frame: pd.DataFrame, folder, parts: int, kind: str = "parquet") -> str:
+    """Split a frame into ``parts`` files; return the glob pattern."""
+    for k, rows in enumerate(np.array_split(np.arange(len(frame)), parts)):
+        piece = frame.iloc[rows]
+        if kind == "parquet":
+            piece.to_parquet(folder / f"part{k:02d}.parquet", index=False)
+        else:
+            piece.to_csv(folder / f"part{k:02d}.csv", index=False)
+    return str(folder / f"*.{kind}")
+
+
+def rel(a, b):
+    return abs(a - b) / max(1.0, abs(b))
+
+
+def make_classes(n=3000, d=5, seed=1):
+    """Invented two-class data with a text column (demo-style data, checked against the in-memory fit)."""
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, d))
+    s = X @ np.linspace(1.0, -1.0, d) + 0.3 + rng.normal(size=n)
+    frame = pd.DataFrame(X, columns=[f"f{j}" for j in range(d)])
+    frame["site"] = rng.choice(["harbour", "mill", "quarry"], size=n)
+    frame["label"] = np.where(s > 0, "late", "on time")
+    return frame
+
+
+# ---- squared loss: exact reduction
+
+def test_diabetes_least_squares_equals_lstsq(client, tmp_path):
+    # scikit-learn's diabetes data in 5 Parquet files; reference: numpy lstsq on all rows
+    from sklearn.datasets import load_diabetes
+    data = load_diabetes(as_frame=True).frame
+    pattern = write_parts(data, tmp_path, 5)
+    fit = lo.regression(pattern, target="target").solve(client=client)
+    M = np.column_stack([data.drop(columns="target").to_numpy(), np.ones(len(data))])
+    ref = np.linalg.lstsq(M, data["target"].to_numpy(), rcond=None)[0]
+    assert fit.status == "optimal" and fit.route == "sharded"
+    np.testing.assert_allclose(fit.theta, ref, rtol=1e-10, atol=1e-8)
+    assert fit.extras["partitions"] == 5 and fit.extras["method"] == "gram"
+    # the least-squares end point from REFERENCES.md (Efron et al. 2004 data, values computed)
+    assert np.sum(np.abs(fit.coef.to_numpy())) == pytest.approx(3459.9776, abs=1e-3)
+
+
+def test_squared_with_penalty_and_rules_equals_in_memory(client, tmp_path):
+    from sklearn.datasets import load_diabetes
+    data = load_diabetes(as_frame=True).frame
+    pattern = write_parts(data, tmp_path, 4)
+    build = lambda d: (lo.regression(d, target="target").penalize(lo.penalty.l1(0.5))  # noqa: E731
+                       .require("bmi <= 400", "s1 + s2 == 0", "bp >= 0"))
+    fit = build(pattern).solve(client=client)
+    ref = build(data).solve()
+    assert fit.status == ref.status == "optimal"
+    assert rel(fit.objective, ref.objective) <= 1e-10          # issue target: same optimum to 1e-10
+    np.testing.assert_allclose(fit.theta, ref.theta, atol=1e-6 * np.abs(ref.theta).max())
+    assert fit.gap <= 1e-7 * max(1, abs(fit.objective))
+    pd.testing.assert_series_equal(fit.binding, ref.binding)
+    np.testing.assert_allclose(fit.prices.to_numpy(), ref.prices.to_numpy(), rtol=1e-4, atol=1e-6)
+
+
+def test_longley_by_tsqr_reaches_certified_values(client, tmp_path):
+    # NIST StRD certified values (REFERENCES.md); the Gram matrix is too ill-conditioned, so the
+    # route switches to a tall-skinny QR over the partitions
+    sm = pytest.importorskip("statsmodels.api")
+    data = sm.datasets.longley.load_pandas().data
+    pattern = write_parts(data, tmp_path, 3)
+    fit = lo.regression(pattern, target="TOTEMP").solve(client=client)
+    certified = {"GNPDEFL": 15.0618722713733, "GNP": -0.0358191792925910, "UNEMP": -2.02022980381683,
+                 "ARMED": -1.03322686717359, "POP": -0.0511041056535807, "YEAR": 1829.15146461355}
+    assert fit.extras["factor"] == "qr"
+    for name, value in certified.items():
+        assert fit.coef[name] == pytest.approx(value, rel=1e-7), name
+    assert fit.intercept == pytest.approx(-3482258.63459582, rel=1e-7)
+
+
+def test_csv_glob_and_text_levels_spread_over_files(client, tmp_path):
+    # a level that occurs in one file only must still get its column, in the in-memory order
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({"size": rng.uniform(1, 5, 600), "area": np.repeat(["east", "north", "west"], 200)})
+    frame["price"] = 2.0 * frame["size"] + frame["area"].map({"east": 0.0, "north": 1.0, "west": -1.0}) \
+        + rng.normal(scale=0.1, size=600)
+    pattern = write_parts(frame, tmp_path, 3, kind="csv")
+    task = lo.regression(pattern, target="price")
+    ref = lo.regression(frame, target="price").solve()
+    assert task.features == ref.task.features == ("size", "area=north", "area=west")
+    fit = task.solve(client=client)
+    assert rel(fit.objective, ref.objective) <= 1e-10
+    # predictions on new pandas data use the same encoding
+    np.testing.assert_allclose(fit.predict(frame.head(5)).to_numpy(), ref.predict(frame.head(5)).to_numpy(),
+                               rtol=1e-9)
+
+
+def test_dask_dataframe_with_weights(client):
+    frame = make_classes(2000)
+    frame["w"] = np.random.default_rng(4).integers(1, 4, len(frame)).astype(float)
+    frame["y"] = frame["f0"] * 2 - frame["f1"] + np.random.default_rng(5).normal(size=len(frame))
+    source = dd.from_pandas(frame.drop(columns="label"), npartitions=3)
+    fit = lo.regression(source, target="y", weights="w").solve(client=client)
+    ref = lo.regression(frame.drop(columns="label"), target="y", weights="w").solve()
+    assert fit.extras["partitions"] == 3
+    assert rel(fit.objective, ref.objective) <= 1e-10
+    np.testing.assert_allclose(fit.theta, ref.theta, rtol=1e-9, atol=1e-10)
+
+
+# ---- smooth losses: newton with row sums
+
+def test_spector_logistic_matches_stata(client, tmp_path):
+    # Stata 11 values in statsmodels' discrete-model test results (REFERENCES.md)
+    sm = pytest.importorskip("statsmodels.api")
+    data = sm.datasets.spector.load_pandas().data
+    pattern = write_parts(data, tmp_path, 4)
+    task = lo.classification(pattern, target="GRADE", loss="logistic", positive=1.0)
+    fit = task.solve(client=client, tol=1e-11, gap_tol=1e-11)   # a flat optimum needs a tight gap
+    assert fit.status == "optimal" and fit.extras["method"] == "newton"
+    expected = {"GPA": 2.82611297201, "TUCE": 0.0951576702557, "PSI": 2.37868772835}
+    for name, value in expected.items():
+        assert fit.coef[name] == pytest.approx(value, rel=1e-6)
+    assert fit.intercept == pytest.approx(-13.0213483201, rel=1e-6)
+    res = sm.Logit(data["GRADE"], sm.add_constant(data[["GPA", "TUCE", "PSI"]])).fit(disp=0)
+    assert fit.objective == pytest.approx(-res.llf / len(data), rel=1e-9)
+
+
+def test_logistic_with_penalty_and_rule_equals_in_memory(client, tmp_path):
+    frame = make_classes()
+    pattern = write_parts(frame, tmp_path, 4)
+    build = lambda d: (lo.classification(d, target="label", loss="logistic")  # noqa: E731
+                       .penalize(lo.penalty.l1(0.01)).require("f0 >= 0.8", "`site=mill` <= 0"))
+    fit = build(pattern).solve(client=client)
+    ref = build(frame).solve()
+    assert fit.status == ref.status == "optimal"
+    assert rel(fit.objective, ref.objective) <= 1e-8           # issue target: same optimum to 1e-8
+    np.testing.assert_allclose(fit.theta, ref.theta, atol=1e-5)
+    assert fit.task.dataset.labels == ref.task.dataset.labels == ("late", "on time")
+
+
+# ---- everything else: consensus ADMM
+
+def test_hinge_by_admm_equals_in_memory(client, tmp_path):
+    frame = make_classes()
+    pattern = write_parts(frame, tmp_path, 4)
+    build = lambda d: (lo.classification(d, target="label", loss="hinge")  # noqa: E731
+                       .penalize(lo.penalty.l2(0.01)).require("f0 >= 0.6"))
+    fit = build(pattern).solve(client=client, gap_tol=1e-6)
+    ref = build(frame).solve()
+    assert fit.status == "optimal" and fit.extras["method"] == "admm"
+    assert fit.rel_gap <= 1e-6
+    assert ref.objective - 1e-9 <= fit.objective <= ref.objective + 1e-6 * max(1, ref.objective)
+    np.testing.assert_allclose(fit.theta, ref.theta, atol=1e-2)
+    assert fit.violation <= 1e-9
+    assert fit.extras["rounds"] >= 2 and fit.extras["passes"] > fit.extras["rounds"]
+
+
+def test_admm_on_a_smooth_loss_reaches_the_newton_answer(client, tmp_path):
+    from learnopt.routes import sharded
+    from learnopt.solve import solve_task
+    frame = make_classes(1200)
+    pattern = write_parts(frame, tmp_path, 3)
+    task = lo.classification(pattern, target="label", loss="logistic").penalize(lo.penalty.l2(0.05))
+    runner = sharded.Runner(task, client=client, progress=False, method="admm")
+    fit = solve_task(task, solver=None, tol=1e-9, gap_tol=1e-6, feas_tol=1e-6, route=None, fallback=True,
+                     solver_options={}, verbose=False, runner=runner)
+    ref = lo.classification(frame, target="label", loss="logistic").penalize(lo.penalty.l2(0.05)).solve()
+    assert fit.status == "optimal" and fit.extras["method"] == "admm"
+    assert rel(fit.objective, ref.objective) <= 1e-6
+
+
+def test_a_worker_killed_mid_fit_does_not_lose_the_fit(client, tmp_path):
+    frame = make_classes(2400)
+    pattern = write_parts(frame, tmp_path, 4)
+    task = lo.classification(pattern, target="label", loss="hinge").penalize(lo.penalty.l2(0.01))
+    result = {}
+
+    def fit_in_background():
+        result["fit"] = task.solve(client=client, gap_tol=1e-6)
+
+    worker = threading.Thread(target=fit_in_background)
+    worker.start()
+    deadline = time.time() + 60
+    victim = None
+    while time.time() < deadline and worker.is_alive():
+        busy = [addr for addr, tasks in client.processing().items() if tasks]
+        if busy and client.who_has():
+            victim = busy[0]
+            time.sleep(1.0)                          # let a few rounds run first
+            try:                                     # the nanny starts a new worker process
+                client.run(os._exit, 1, workers=[victim])
+            except (OSError, distributed.comm.CommClosedError):
+                pass                                 # the worker died before it could answer
+            break
+        time.sleep(0.05)
+    worker.join(timeout=300)
+    assert victim is not None, "the fit ended before a worker could be stopped"
+    fit = result["fit"]
+    ref = lo.classification(frame, target="label", loss="hinge").penalize(lo.penalty.l2(0.01)).solve()
+    assert fit.status == "optimal"
+    assert rel(fit.objective, ref.objective) <= 1e-6
+
+
+# ---- bad input: a LearnoptError naming the problem, nothing computed wrongly
+
+def test_bad_sharded_input_gets_clear_errors(client, tmp_path):
+    frame = make_classes(300)
+    pattern = write_parts(frame, tmp_path, 3)
+    with pytest.raises(DataError, match="No files match"):
+        lo.regression(str(tmp_path / "nothing-*.parquet"), target="f0")
+    with pytest.raises(DataError, match="'lable'.*Close matches: label"):
+        lo.classification(pattern, target="lable")
+    with pytest.raises(DataError, match="must be numeric for regression"):
+        lo.regression(pattern, target="label")
+    task = lo.classification(pattern, target="label")
+    with pytest.raises(DataError, match="not available for sharded data"):
+        task.require("prediction >= 0 where site == 'mill'")
+    with pytest.raises(ParameterError, match="needs the data in memory"):
+        task.path()
+    with pytest.raises(ParameterError, match="only the sharded route"):
+        task.solve(route="direct", client=client)
+    assert task.check().convex
+
+
+def test_bad_values_in_one_file_name_the_partition(client, tmp_path):
+    frame = make_classes(300)
+    frame["y"] = frame["f0"] + 1.0
+    frame.loc[250, "f2"] = np.nan
+    pattern = write_parts(frame.drop(columns="label"), tmp_path, 3)
+    with pytest.raises(DataError, match=r"Partition 2 of the data: Column 'f2' has 1 missing"):
+        lo.regression(pattern, target="y").solve(client=client)
+    three = make_classes(300)
+    three.loc[10, "label"] = "cancelled"
+    with pytest.raises(DataError, match="3 label"):
+        lo.classification(dd.from_pandas(three, npartitions=2), target="label")
+
+
+def test_sharded_fit_saves_and_loads(client, tmp_path):
+    frame = make_classes(600)
+    pattern = write_parts(frame, tmp_path, 2)
+    fit = lo.classification(pattern, target="label", loss="logistic").solve(client=client)
+    fit.save(tmp_path / "model.json")
+    back = lo.load_fit(tmp_path / "model.json")
+    pd.testing.assert_series_equal(back.predict(frame), fit.predict(frame), check_exact=True)
+    assert back.route == "sharded"
