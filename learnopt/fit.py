@@ -169,7 +169,8 @@ class Fit:
                  f"solver     {self.solver}  route {self.route}",
                  *([f"KKT        stationarity {self.certificate.stationarity:.3g} (before repair), "
                     f"complementarity {self.certificate.complementarity:.3g}"] if self.certificate else []),
-                 "timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items())]
+                 "timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items()),
+                 *([self._sharded_line()] if self.route == "sharded" and "passes" in self.extras else [])]
         table = pd.DataFrame({"coef": self.coef})
         lines.append(table.to_string(float_format=lambda v: f"{v:.6g}"))
         if self.task is not None and self.task.intercept:
@@ -182,6 +183,13 @@ class Fit:
             lines.append(self.conflicts.to_string())
         lines.append(DISCLAIMER)
         return "\n".join(lines)
+
+    def _sharded_line(self) -> str:
+        e = self.extras
+        data = e.get("data_seconds", 0.0)
+        rounds = f", {e['rounds']} rounds" if e.get("rounds") else ""
+        return (f"sharded    method {e.get('method')}, {e.get('partitions')} partitions{rounds}, "
+                f"{e.get('passes')} data passes {data:.3f}s, client {max(self.timings.total - data, 0.0):.3f}s")
 
     def __repr__(self) -> str:
         return (f"Fit(status={self.status!r}, objective={self.objective:.8g}, gap={self.gap:.3g}, "

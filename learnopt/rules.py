@@ -39,6 +39,10 @@ FUNCTIONS = ("increasing", "decreasing", "nonneg", "nonpos", "norm1", "norm2", "
 
 # ----------------------------------------------------------------------------- compiled form
 
+class NoRows(DataError):
+    """A rule's 'where' condition selects no rows (of the data, or of one partition of it)."""
+
+
 @dataclass(frozen=True, eq=False)
 class Requirement:
     """One compiled requirement. ``sense`` is "<=", "==" or "norm"."""
@@ -89,6 +93,7 @@ class Context:
     frame: pd.DataFrame | None      # raw data columns, row-aligned with design
     reference: tuple[str, ...] = () # reference levels of encoded columns: coefficients fixed at 0
     no_rows: str = ""               # why rules cannot refer to data rows here (sharded data)
+    aggregates: object | None = None  # sharded data: hook(compiler, fn, node, mask) for mean/sum
 
     @property
     def p(self) -> int:
@@ -326,10 +331,11 @@ class _Compiler:
         return self.quoted.names.get(node.id, node.id)
 
     def unknown(self, name: str) -> DataError:
-        known = list(self.ctx.names) + ["prediction"] + sorted(map(str, self.columns))
+        names = [n for n in self.ctx.names if not n.startswith("\x00")]   # not internal term slots
+        known = names + ["prediction"] + sorted(map(str, self.columns))
         close = difflib.get_close_matches(name, list(dict.fromkeys(known)), n=3, cutoff=0.6)
         hint = f" Close matches: {', '.join(close)}." if close else ""
-        return self.fail(f"unknown name {name!r}.{hint} Coefficients: {', '.join(self.ctx.names)}"
+        return self.fail(f"unknown name {name!r}.{hint} Coefficients: {', '.join(names)}"
                          + (f"; data columns: {', '.join(sorted(map(str, self.columns)))}" if self.columns else "")
                          + ". Quote names with symbols in backticks, e.g. `region=north`.")
 
@@ -413,7 +419,7 @@ class _Compiler:
             raise self.fail(self.ctx.no_rows or "'where' conditions need data columns; give the data as a DataFrame.")
         mask = self._cond(node)
         if not mask.any():
-            raise self.fail(f"the condition {_shown(node, self.quoted)!r} selects no rows of the data.")
+            raise NoRows(f"Rule {self.text!r}: the condition {_shown(node, self.quoted)!r} selects no rows of the data.")
         return mask
 
     def _cond(self, node):
@@ -503,6 +509,8 @@ class _Compiler:
         if name in self.ctx.reference:
             return _scalar(self.ctx)  # a reference level's coefficient is 0 by construction
         if name == "prediction":
+            if self.ctx.aggregates is not None:
+                self.ctx.aggregates.saw_prediction(self)
             if self.ctx.design is None:
                 raise self.fail(self.ctx.no_rows or "'prediction' needs the training data.")
             rows = np.arange(self.ctx.design.shape[0]) if mask is None else np.flatnonzero(mask)
@@ -584,6 +592,10 @@ class _Compiler:
             raise self.fail(f"{fn}(...) takes no keywords.")
         if fn in ("increasing", "decreasing", "nonneg", "nonpos"):
             raise self.fail(f"{fn}(...) is a whole rule; it cannot be part of an expression.")
+        if fn in ("mean", "sum") and self.ctx.aggregates is not None:
+            if len(node.args) != 1:
+                raise self.fail(f"{fn}(...) takes one row-wise expression, e.g. {fn}(prediction where region == 'north').")
+            return self.ctx.aggregates(self, fn, node.args[0], mask)
         args = [self.value(a, mask) for a in node.args]
         if not args:
             raise self.fail(f"{fn}(...) needs an argument.")

@@ -103,7 +103,11 @@ class Task:
         if len(rules) == 1 and isinstance(rules[0], (list, tuple)):
             rules = tuple(rules[0])
         specs = tuple(as_spec(r) for r in rules)
-        compiled = compile_all(specs, self.context())
+        if self.sharded:
+            from .shards import compile_rules
+            compiled = compile_rules(self, specs)      # mean/sum of predictions by one pass
+        else:
+            compiled = compile_all(specs, self.context())
         return replace(self, rules=self.rules + specs, requirements=self.requirements + tuple(compiled))
 
     # ---- verdict

@@ -136,6 +136,45 @@ def test_dask_dataframe_with_weights(client):
     np.testing.assert_allclose(fit.theta, ref.theta, rtol=1e-9, atol=1e-10)
 
 
+def test_rules_on_mean_and_sum_of_predictions_compile_exactly(client):
+    # a mean/sum of predictions is linear in the coefficients: one pass sums its rows, and the
+    # compiled rule equals the in-memory one (reference: the in-memory rule compiler)
+    frame = make_classes(3000).drop(columns="label")
+    frame["y"] = frame["f0"] * 2 - frame["f1"] + (frame["site"] == "mill") * 1.5 \
+        + np.random.default_rng(5).normal(size=len(frame))
+    rules = ["mean(prediction where site == 'mill') - mean(prediction where site == 'quarry') <= 0.5",
+             "sum(prediction where f0 > 1) / 100 >= 5",
+             "abs(mean(prediction where site == 'harbour') - 1) <= 0.2",
+             "f1 >= -0.9"]
+    task = lo.regression(dd.from_pandas(frame, npartitions=4), target="y").require(*rules)
+    ref = lo.regression(frame, target="y").require(*rules)
+    assert [r.text for r in task.requirements] == [r.text for r in ref.requirements]
+    for a, b in zip(task.requirements, ref.requirements):
+        assert a.sense == b.sense
+        np.testing.assert_allclose(a.A, b.A, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(a.rhs, b.rhs, rtol=1e-12, atol=1e-12)
+    fit, reference = task.solve(client=client), ref.solve()
+    assert fit.status == reference.status == "optimal"
+    assert rel(fit.objective, reference.objective) <= 1e-10
+    pd.testing.assert_series_equal(fit.binding, reference.binding)
+    np.testing.assert_allclose(fit.prices[reference.prices.index].to_numpy(), reference.prices.to_numpy(),
+                               rtol=1e-5, atol=1e-8)
+
+
+def test_rules_row_by_row_are_refused_with_the_reason(client):
+    frame = make_classes(600).drop(columns="label")
+    frame["y"] = frame["f0"]
+    task = lo.regression(dd.from_pandas(frame, npartitions=3), target="y")
+    with pytest.raises(DataError, match="row by row are not available for sharded data"):
+        task.require("prediction >= 0 where site == 'mill'")
+    with pytest.raises(DataError, match="unknown name 'sight'. Close matches: site. Coefficients: f0"):
+        task.require("mean(prediction where sight == 'mill') <= 1")
+    with pytest.raises(DataError, match="takes one row-wise expression"):
+        task.require("mean(f0) <= 1")
+    with pytest.raises(DataError, match="selects no rows of the data"):
+        task.require("mean(prediction where site == 'nowhere') <= 1")
+
+
 # ---- smooth losses: newton with row sums
 
 def test_spector_logistic_matches_stata(client, tmp_path):
