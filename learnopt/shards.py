@@ -399,10 +399,13 @@ def _rule_partials(part: pd.DataFrame, spec: BlockSpec, texts, names, reference,
     return out
 
 
-def compile_rules(task, specs) -> list:
-    """Compile rules for a sharded task: rules on coefficients at once; rules on mean(...) or
-    sum(...) of predictions by one pass over the partitions (each term's sums added up, then
-    substituted exactly). Rules on predictions row by row are refused with the reason."""
+def compile_rules(task, specs) -> tuple[list, list[str]]:
+    """Compile rules for a sharded task: (requirements, texts of rules row by row).
+
+    Rules on coefficients compile at once; rules on mean(...) or sum(...) of predictions by one
+    pass over the partitions (each term's sums added up, then substituted exactly). Rules on
+    predictions row by row are checked on a sample of rows and returned as text: each
+    partition compiles them for its own rows when the task is solved (consensus ADMM)."""
     import dask
     from dask import delayed
     from .routes.base import design_with_ones
@@ -414,8 +417,8 @@ def compile_rules(task, specs) -> list:
     reference = tuple(f"{c}={v}" for c, v in enc.reference.items())
     sample = None
     done: list = []
-    pending = []          # (text, extended requirements, slots hook)
-    problems = []
+    pending = []          # (text, extended requirements, slots hook, place)
+    problems, row_rules = [], []
     for spec in specs:
         if not isinstance(spec, TextRule):
             done.append(compile_all([spec], task.context()))
@@ -433,17 +436,20 @@ def compile_rules(task, specs) -> list:
                       aggregates=hook)
         try:
             reqs = parse(spec.text, ctx)
-        except NoRows:                 # a 'where' outside mean/sum: a rule row by row
-            problems.append(ROW_RULES.format(text=spec.text))
+        except NoRows:                 # a 'where' outside mean/sum selects none of the sample rows
+            if hook.calls:
+                problems.append(ROW_MIXED.format(text=spec.text))
+            else:
+                row_rules.append(spec.text)
             continue
         except LearnoptError as exc:
-            if hook.row_rule and not hook.calls:
-                problems.append(ROW_RULES.format(text=spec.text))
-                continue
             problems.append(str(exc))
             continue
         if hook.row_rule:
-            problems.append(ROW_RULES.format(text=spec.text))
+            if hook.calls:
+                problems.append(ROW_MIXED.format(text=spec.text))
+            else:
+                row_rules.append(spec.text)
             continue
         if not hook.calls:
             done.append([_narrow(r, p) for r in reqs])
@@ -478,12 +484,27 @@ def compile_rules(task, specs) -> list:
             G = np.array([g for g, _ in terms])
             c = np.array([cc for _, cc in terms])
             done[place] = [_substitute(r, p, G, c) for r in reqs]
-    return [r for group in done for r in group]
+    return [r for group in done for r in group], row_rules
 
 
-ROW_RULES = ("Rule {text!r}: rules on predictions row by row are not available for sharded data; "
-             "rules on mean(...) or sum(...) of predictions and rules on coefficients are. Fit a "
-             "sample in memory for this rule.")
+ROW_MIXED = ("Rule {text!r} mixes predictions row by row with mean(...) or sum(...) over rows; on "
+             "sharded data write them as two rules.")
+
+
+def row_requirements(part: pd.DataFrame, spec: BlockSpec, texts, names, reference, intercept: bool, index: int):
+    """The rules row by row compiled on one partition's rows: one list of requirements per rule
+    (empty when the partition has none of its rows)."""
+    from .routes.base import design_with_ones
+    from .rules import Context, NoRows, parse
+    X, _, _ = encode_block(part, spec, index)
+    ctx = Context(names, design_with_ones(X, intercept), part.reset_index(drop=True), reference)
+    out = []
+    for text in texts:
+        try:
+            out.append(parse(text, ctx) if len(X) else [])
+        except NoRows:
+            out.append([])
+    return out
 
 
 def _narrow(r, p: int):

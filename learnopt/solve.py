@@ -80,7 +80,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         seen.update(theta=theta.copy(), cert=cert, seconds=seen.get("seconds", 0.0) + time.perf_counter() - t)
         return cert.passes(gap_tol, feas_tol)
 
-    runner.goal, runner.gap_tol, runner.tol = goal, gap_tol, tol
+    runner.goal, runner.gap_tol, runner.tol, runner.feas_tol = goal, gap_tol, tol, feas_tol
     for spec in chain:
         rounds = [tol] + ([max(tol * POLISH_FACTOR ** k, TOL_FLOOR) for k in range(1, POLISH_ROUNDS + 1)]
                           if polish else [])

@@ -43,6 +43,8 @@ class Task:
     penalties: tuple[Penalty, ...] = ()
     rules: tuple[RuleSpec, ...] = ()
     requirements: tuple[Requirement, ...] = field(default=())
+    # sharded data only: rules on predictions row by row, compiled inside each partition
+    row_rules: tuple[str, ...] = ()
 
     # ---- names
     @property
@@ -103,12 +105,14 @@ class Task:
         if len(rules) == 1 and isinstance(rules[0], (list, tuple)):
             rules = tuple(rules[0])
         specs = tuple(as_spec(r) for r in rules)
+        rows: list[str] = []
         if self.sharded:
             from .shards import compile_rules
-            compiled = compile_rules(self, specs)      # mean/sum of predictions by one pass
+            compiled, rows = compile_rules(self, specs)      # mean/sum of predictions by one pass
         else:
             compiled = compile_all(specs, self.context())
-        return replace(self, rules=self.rules + specs, requirements=self.requirements + tuple(compiled))
+        return replace(self, rules=self.rules + specs, requirements=self.requirements + tuple(compiled),
+                       row_rules=self.row_rules + tuple(rows))
 
     # ---- verdict
     def problem_class(self, loss_cone: str | None = None) -> str:

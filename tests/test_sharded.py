@@ -161,12 +161,36 @@ def test_rules_on_mean_and_sum_of_predictions_compile_exactly(client):
                                rtol=1e-5, atol=1e-8)
 
 
-def test_rules_row_by_row_are_refused_with_the_reason(client):
+def test_rules_row_by_row_hold_inside_the_partitions(client):
+    # each partition applies the rule to its own rows in its ADMM step; reference: in-memory fit
+    frame = make_classes(1200).drop(columns="label")
+    frame["y"] = frame["f0"] * 2 - frame["f1"] + (frame["site"] == "mill") * 1.5 \
+        + np.random.default_rng(5).normal(size=len(frame))
+    rules = ["prediction <= 2 where f0 > 1.5", "f1 >= -0.9"]
+    build = lambda d: lo.regression(d, target="y").penalize(lo.penalty.l2(0.01)).require(*rules)  # noqa: E731
+    task = build(dd.from_pandas(frame, npartitions=3))
+    assert task.row_rules == ("prediction <= 2 where f0 > 1.5",) and len(task.requirements) == 1
+    fit, ref = task.solve(client=client), build(frame).solve()
+    assert fit.status == ref.status == "optimal" and fit.extras["method"] == "admm"
+    assert fit.violation <= 1e-6 * 3
+    assert rel(fit.objective, ref.objective) <= 1e-6
+    assert fit.binding.to_dict() == ref.binding.to_dict()
+    np.testing.assert_allclose(fit.prices[ref.prices.index].to_numpy(), ref.prices.to_numpy(), rtol=1e-3, atol=1e-6)
+    # the rule holds on every row it selects (checked on the full frame, in memory)
+    assert (fit.predict(frame)[frame["f0"] > 1.5] <= 2 + 1e-5).all()
+
+
+def test_rules_row_by_row_errors(client):
     frame = make_classes(600).drop(columns="label")
     frame["y"] = frame["f0"]
     task = lo.regression(dd.from_pandas(frame, npartitions=3), target="y")
-    with pytest.raises(DataError, match="row by row are not available for sharded data"):
-        task.require("prediction >= 0 where site == 'mill'")
+    with pytest.raises(DataError, match="mixes predictions row by row with mean"):
+        task.require("prediction - mean(prediction where site == 'mill') >= 0")
+    with pytest.raises(DataError, match="selects no rows of the data"):
+        task.require("prediction >= 0 where site == 'nowhere'").solve(client=client)
+    with pytest.raises(ParameterError, match="cannot apply rules row by row"):
+        from learnopt.routes import sharded
+        sharded.Runner(task.require("prediction >= 0 where site == 'mill'"), client=client, method="gram")
     with pytest.raises(DataError, match="unknown name 'sight'. Close matches: site. Coefficients: f0"):
         task.require("mean(prediction where sight == 'mill') <= 1")
     with pytest.raises(DataError, match="takes one row-wise expression"):

@@ -51,6 +51,8 @@ def eligible(task) -> str | None:
 
 
 def method_for(task) -> str:
+    if task.row_rules:
+        return "admm"             # rules row by row live in the partitions' own steps
     if compressed.eligible(task) is None:
         return "gram"
     if newton.eligible(task) is None:
@@ -67,6 +69,9 @@ def Runner(task, vary: int | None = None, client=None, progress: bool | None = N
     method = method or method_for(task)
     if method not in METHODS:
         raise ParameterError(f"The sharded method must be one of {', '.join(METHODS)}. Got {method!r} instead.")
+    if method != "admm" and task.row_rules:
+        raise ParameterError(f"The {method} method cannot apply rules row by row ({task.row_rules[0]!r}); "
+                             f"leave the method to learnopt (consensus ADMM applies them in each partition).")
     if method == "gram" and compressed.eligible(task) is not None:
         raise ParameterError(f"The gram method {compressed.eligible(task)}.")
     if method == "newton" and newton.eligible(task) is not None:
@@ -186,11 +191,14 @@ def _cert_scaled(block, state, s, loss, margin, intercept, W):
     return (float(a @ loss.conjugate(su)) if len(a) else 0.0), float((a * su) @ q)
 
 
-def _local(block, key, state, dvec, c, loss, margin, intercept, W, settings):
+def _local(block, key, state, dvec, rows, c, loss, margin, intercept, W, settings):
     """One block's ADMM step: argmin sum_i a_i f(m_i x - q_i) + 1/2 |c x - dvec|^2 (c = sqrt(rho),
-    dvec = c (z - u)); returns (x, u rows). The compiled problem is kept per worker process."""
+    dvec = c (z - u)) subject to the block's rules row by row (``rows``: one list of requirements
+    per rule); returns (x, u rows, multipliers of those rules). The compiled problem is kept per
+    worker process."""
     cache = _LOCAL_PROBLEMS
     entry = cache.get(key)
+    flat = [r for group in (rows or []) for r in group]
     if entry is None:
         M, q, a = _rows(block, margin, intercept, W)
         p = M.shape[1]
@@ -201,11 +209,13 @@ def _local(block, key, state, dvec, c, loss, margin, intercept, W, settings):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             tie = zr == M.explicit() @ x - q
-            prob = cp.Problem(cp.Minimize(loss.mean_expr(zr, a) + 0.5 * cp.sum_squares(cpar * x - dpar)), [tie])
-        entry = cache[key] = (prob, x, tie, cpar, dpar, a)
+            pairs = [(r, requirement_constraint(r, x)) for r in flat]
+            prob = cp.Problem(cp.Minimize(loss.mean_expr(zr, a) + 0.5 * cp.sum_squares(cpar * x - dpar)),
+                              [tie] + [con for _, con in pairs])
+        entry = cache[key] = (prob, x, tie, cpar, dpar, a, pairs)
         while len(cache) > 64:                  # blocks of finished fits
             cache.pop(next(iter(cache)))
-    prob, x, tie, cpar, dpar, a = entry
+    prob, x, tie, cpar, dpar, a, pairs = entry
     cpar.value, dpar.value = float(c), np.asarray(dvec, float)
     start = None if state is None else state[0]
     if start is not None:
@@ -218,7 +228,41 @@ def _local(block, key, state, dvec, c, loss, margin, intercept, W, settings):
     nu = np.asarray(tie.dual_value, float).ravel()
     with np.errstate(divide="ignore", invalid="ignore"):
         u = np.where(a > 0, -nu / a, 0.0)
-    return np.asarray(x.value, float).copy(), u
+    return np.asarray(x.value, float).copy(), u, read_multipliers(pairs)
+
+
+def _row_count(rows):
+    return [sum(r.rows for r in group) for group in rows]
+
+
+def _combine_rows(parts):
+    """Add up the blocks' :func:`_row_terms` (sums, worst cases, any binding)."""
+    g, const, viol, rel_viol, comp, prices, binding = parts[0]
+    for p in parts[1:]:
+        g, const, prices = g + p[0], const + p[1], prices + p[5]
+        viol, rel_viol, comp = max(viol, p[2]), max(rel_viol, p[3]), max(comp, p[4])
+        binding = np.maximum(binding, p[6])
+    return g, const, viol, rel_viol, comp, prices, binding
+
+
+def _row_terms(rows, mults, theta, feas_tol):
+    """The rules row by row at theta on one block: (their part of the Lagrangian's gradient and
+    constant, worst violation, worst relative violation, complementarity, price per rule,
+    binding per rule)."""
+    flat = [r for group in rows for r in group]
+    g, const = requirement_terms(flat, mults, theta)
+    viol, rel_viol, comp = feasibility(flat, mults, theta)
+    prices, binding, k = [], [], 0
+    for group in rows:
+        price, bind = 0.0, False
+        for r in group:
+            m = np.asarray(mults[k], float)
+            price += float(np.sum(np.maximum(m, 0.0) if r.sense == "<=" else m))
+            bind = bind or (r.sense == "==" or bool(np.min(r.slack(theta), initial=np.inf) <= feas_tol * r.scale()))
+            k += 1
+        prices.append(price)
+        binding.append(bind)
+    return g, const, viol, rel_viol, comp, np.array(prices), np.array(binding, dtype=float)
 
 
 _LOCAL_PROBLEMS: dict = {}
@@ -227,13 +271,19 @@ _LOCAL_PROBLEMS: dict = {}
 # ---- the certificate by passes
 
 def certify_sharded(blocks: Blocks, task, theta, multipliers, common: dict, u_blocks=None,
-                    enough: float = 0.0) -> Certificate:
-    """learnopt's certificate (see :mod:`learnopt.certify`) with every row sum done on the blocks."""
+                    enough: float = 0.0, row_terms=None) -> Certificate:
+    """learnopt's certificate (see :mod:`learnopt.certify`) with every row sum done on the blocks.
+
+    ``row_terms``: the summed :func:`_row_terms` of the rules row by row at theta, if any.
+    """
     loss, names, penalties = task.loss, task.features, task.penalties
     requirements = list(task.requirements)
     theta = np.asarray(theta, float)
     d = len(names)
     violation, rel_violation, comp = feasibility(requirements, multipliers, theta)
+    if row_terms is not None:
+        violation, rel_violation, comp = (max(violation, row_terms[2]), max(rel_violation, row_terms[3]),
+                                          max(comp, row_terms[4]))
     pen = float(sum(p.value(theta[:d], names) for p in penalties))
     results = blocks.map(_cert_start, u_blocks or [None] * len(blocks), theta=theta, **common)
     states = blocks.pick(results, 0)
@@ -244,6 +294,8 @@ def certify_sharded(blocks: Blocks, task, theta, multipliers, common: dict, u_bl
     if missing is not None:
         return missing
     g_req, const_req = requirement_terms(requirements, multipliers, theta)
+    if row_terms is not None:
+        g_req, const_req = g_req + row_terms[0], const_req + row_terms[1]
     N = _null_space(penalties, names, d, task.intercept)
     stationarity = float(np.linalg.norm(N.T @ (g0 + g_req))) if N.shape[1] else 0.0
     scale = max(np.abs(g_req).max(initial=0.0) + 1.0, float(np.abs(absg).max(initial=0.0)) + 1.0)
@@ -402,7 +454,33 @@ class AdmmRunner(_Sharded, RunnerBase):
         self.plain = not task.penalties and not task.requirements
         self.problem_class = task.problem_class()
         self.rounds = 0
-        self.u_blocks = None
+        self.u_blocks = self.m_blocks = None
+        self.rows = self._row_rules(task) if task.row_rules else [None] * self.K
+
+    def _row_rules(self, task):
+        """Each partition compiles the rules row by row for its own rows (kept on the workers)."""
+        from dask import delayed
+        from ..shards import row_requirements
+        ds, blocks = task.dataset, self.blocks
+        reference = tuple(f"{c}={v}" for c, v in ds.encoding.reference.items())
+        fn = delayed(row_requirements, pure=True)
+        rows = blocks.client.compute([fn(part, ds.spec, list(task.row_rules), task.coefficient_names, reference,
+                                         task.intercept, k) for k, part in enumerate(ds.source.to_delayed())])
+        counts = np.sum(blocks.gather(blocks.client.map(_row_count, rows, pure=False)), axis=0)
+        empty = [t for t, c in zip(task.row_rules, counts) if c == 0]
+        if empty:
+            from ..errors import DataError
+            raise DataError(f"Rule {empty[0]!r}: its condition selects no rows of the data.")
+        self.report(f"rules row by row compiled in {len(rows)} partitions ({int(np.sum(counts))} rows)")
+        return rows
+
+    def row_terms(self, theta):
+        """The rules row by row at theta with the blocks' latest multipliers (None without such rules)."""
+        if not self.task.row_rules or self.m_blocks is None:
+            return None
+        futs = self.blocks.client.map(_row_terms, self.rows, self.m_blocks, theta=np.asarray(theta, float),
+                                      feas_tol=getattr(self, "feas_tol", 1e-6), pure=False)
+        return _combine_rows(self.blocks.gather(futs))
 
     def _consensus(self, v, rho, spec, options):
         if self.plain:
@@ -434,10 +512,11 @@ class AdmmRunner(_Sharded, RunnerBase):
             self.rounds = rnd
             c = np.sqrt(rho)
             futs = blocks.map(_local, keys, [None if rnd == 1 else (x[k],) for k in range(K)],
-                              [c * (z - u[k]) for k in range(K)], c=c, settings=local,
+                              [c * (z - u[k]) for k in range(K)], self.rows, c=c, settings=local,
                               **self.common)
             xs = blocks.gather(blocks.pick(futs, 0))
             self.u_blocks = blocks.pick(futs, 1)   # the blocks' loss dual points, for the certificate
+            self.m_blocks = blocks.pick(futs, 2)   # ... and their rules' multipliers
             x = np.vstack(xs)
             xr = self.relax * x + (1 - self.relax) * z          # over-relaxation (section 3.4.3)
             z_old = z
@@ -457,7 +536,7 @@ class AdmmRunner(_Sharded, RunnerBase):
                 if reached:
                     status = "optimal"
                     break
-                next_check = rnd + self.CHECK_EVERY
+                next_check = rnd + max(self.CHECK_EVERY, rnd // 5)   # checks cost passes: space them out
             elif self.goal is None and small:
                 status = "optimal"
                 break
@@ -471,4 +550,17 @@ class AdmmRunner(_Sharded, RunnerBase):
                        self.rounds, note=f"consensus ADMM, {self.rounds} rounds", solved_by=None)
 
     def certify(self, theta, u, mults, enough: float = 0.0):
-        return certify_sharded(self.blocks, self.task, theta, mults, self.common, self.u_blocks, enough)
+        return certify_sharded(self.blocks, self.task, theta, mults, self.common, self.u_blocks, enough,
+                               row_terms=self.row_terms(theta))
+
+    def finish(self, best):
+        if best is not None and self.task.row_rules:
+            import pandas as pd
+            terms = self.row_terms(best[2])
+            if terms is not None:
+                prices, binding = best[5]
+                noise = 1e-2 * self.gap_tol * max(1.0, abs(best[3].primal))
+                extra_p = pd.Series(np.where(np.abs(terms[5]) <= noise, 0.0, terms[5]), index=list(self.task.row_rules))
+                extra_b = pd.Series(terms[6] > 0, index=list(self.task.row_rules))
+                best = best[:5] + ((pd.concat([prices, extra_p]), pd.concat([binding, extra_b])),) + best[6:]
+        return super().finish(best)
