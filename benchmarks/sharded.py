@@ -1,7 +1,7 @@
 """Sharded fits on a local dask cluster (2 single-threaded worker processes).
 
-    python -m benchmarks.sharded              # squared loss at 1e5, 1e6, 1e7 rows; ADMM at 2e4 rows
-    python -m benchmarks.sharded --quick      # 1e5 and 1e6 rows; ADMM at 4e3 rows
+    python -m benchmarks.sharded              # squared loss at 1e5, 1e6, 1e7 rows; ADMM at 8e3 rows
+    python -m benchmarks.sharded --quick      # 1e5 and 1e6 rows; ADMM at 2e3 rows
     python -m benchmarks.sharded --only growth|admm
 
 Data: an invented seeded table (10 numeric features, a target) written as Parquet files of at
@@ -108,7 +108,7 @@ def admm_rounds(client, n: int) -> list[dict]:
         for loss, method in [("logistic", "newton"), ("logistic", "admm"), ("hinge", "admm")]:
             task = lo.classification(pattern, target="y", loss=loss).penalize(lo.penalty.l2(1e-3))
             t0 = time.perf_counter()
-            runner = sharded.Runner(task, client=client, progress=False, method=method)
+            runner = sharded.Runner(task, client=client, progress=True, method=method)
             fit = solve_task(task, solver=None, tol=1e-9, gap_tol=1e-6, feas_tol=1e-6, route=None, fallback=True,
                              solver_options={}, verbose=False, runner=runner)
             row = {"loss": loss, "method": method, "rows": n, "status": fit.status, "rel_gap": fit.rel_gap,
@@ -138,7 +138,7 @@ def main(argv=None) -> int:
             print(f"slope {slope:.3f} s per million rows, intercept {intercept:.3f} s")
         if only in (None, "admm"):
             print("\nADMM rounds to a 1e-6 relative gap (4 partitions)")
-            admm_rounds(client, 4_000 if quick else 20_000)
+            admm_rounds(client, 2_000 if quick else 8_000)
     finally:
         client.close()
         cluster.close()

@@ -56,6 +56,7 @@ class CentresTask:
     fixed: tuple[tuple[float, ...], ...] = ()
     rules: tuple[Placement, ...] = ()
     index: pd.Index | None = None
+    source: object | None = None          # sharded points (learnopt.shards.ShardedPoints); X is empty then
 
     def require(self, *rules, centre: int | None = None) -> "CentresTask":
         """A new task with rules on the centres (text, lo.rule.polygon / ball / segment / bounds).
@@ -94,11 +95,16 @@ class CentresTask:
         return per
 
     def solve(self, restarts: int = 10, seed: int = 0, *, max_iter: int = MAX_ITER,
-              tol: float = 1e-10) -> "CentresFit":
-        """k-means++ seeds, alternate exact steps, keep the best restart (a local optimum)."""
+              tol: float = 1e-10, client=None) -> "CentresFit":
+        """k-means++ seeds, alternate exact steps, keep the best restart (a local optimum).
+
+        Sharded points (a dask DataFrame or a file pattern): the seeds come from a sample drawn
+        from every partition in proportion to the weights; each assignment step is a pass over
+        the partitions returning per-centre sums; ``client`` as in :meth:`learnopt.Task.solve`.
+        """
         params.check("centres.solve", restarts=(restarts, params.Interval(1, None)),
                      max_iter=(max_iter, params.Interval(1, None)))
-        return _solve(self, int(restarts), int(seed), int(max_iter), float(tol))
+        return _solve(self, int(restarts), int(seed), int(max_iter), float(tol), client)
 
 
 def centres(data, k: int = 5, weights=None, features: Sequence[str] | None = None, fixed=None) -> CentresTask:
@@ -113,6 +119,14 @@ def centres(data, k: int = 5, weights=None, features: Sequence[str] | None = Non
     """
     params.check("centres", k=(k, params.Interval(1, None)))
     index = None
+    from .shards import is_sharded_source, open_points
+    if is_sharded_source(data):
+        points = open_points(data, weights, features)
+        if k > points.positive:
+            raise ParameterError(f"centres: k = {k} is more than the {points.positive} points with positive weight.")
+        pinned = _pinned(fixed, k, len(points.names))
+        return CentresTask(np.zeros((0, len(points.names))), np.zeros(0), points.names, int(k), pinned, (), None,
+                           points)
     if isinstance(data, pd.DataFrame):
         wcol = weights if isinstance(weights, str) else None
         cols = list(features) if features is not None else [c for c in data.columns
@@ -145,10 +159,14 @@ def centres(data, k: int = 5, weights=None, features: Sequence[str] | None = Non
         raise DataError("centres: weights must be one finite non-negative number per point, not all zero.")
     if k > int(np.sum(w > 0)):
         raise ParameterError(f"centres: k = {k} is more than the {int(np.sum(w > 0))} points with positive weight.")
+    return CentresTask(X, w, names, int(k), _pinned(fixed, k, X.shape[1]), (), index)
+
+
+def _pinned(fixed, k: int, d: int) -> tuple:
     pinned = tuple(tuple(float(v) for v in c) for c in (fixed or ()))
-    if len(pinned) > k or any(len(c) != X.shape[1] for c in pinned):
-        raise ParameterError(f"centres: fixed must hold at most k = {k} points of {X.shape[1]} coordinates each.")
-    return CentresTask(X, w, names, int(k), pinned, (), index)
+    if len(pinned) > k or any(len(c) != d for c in pinned):
+        raise ParameterError(f"centres: fixed must hold at most k = {k} points of {d} coordinates each.")
+    return pinned
 
 
 # ------------------------------------------------------------------ the two exact steps
@@ -257,26 +275,35 @@ class _ConeProjector:
         return np.asarray(sol.x, float)
 
 
-def _lloyd(task, X, w, C, movable, project, max_iter, tol, xx):
-    objective, it, converged = np.inf, 0, False
-    labels = None
+def _lloyd(task, stats, C, movable, project, max_iter, tol):
+    """Alternate the two exact steps until the assignment stops changing.
+
+    ``stats(C) -> (key, objective, W, S, far)``: a fingerprint of the assignment, the weighted
+    sum of squared distances, per-centre weight W and weighted coordinate sums S, and the
+    worst-served point (for reseeding an empty cluster); in memory or by passes over shards.
+    """
+    objective, it, key = np.inf, 0, None
     for it in range(1, max_iter + 1):
-        new_labels, d2 = assign(X, C, xx)
-        value = float(w @ d2)
-        if labels is not None and (np.array_equal(new_labels, labels) or objective - value <= tol * max(1.0, value)):
-            objective, labels, converged = min(objective, value), new_labels, True
-            break
-        labels, objective = new_labels, value
+        new_key, value, W, S, far = stats(C)
+        if key is not None and (_same(new_key, key) or objective - value <= tol * max(1.0, value)):
+            return C, value, it, True         # value belongs to these centres
+        key, objective = new_key, value
+        for j in np.flatnonzero(movable):
+            C[j] = project[j](S[j] / W[j] if W[j] > 0 else far)   # empty: reseed at the worst-served point
+    return C, stats(C)[1], it, False
+
+
+def _same(a, b) -> bool:
+    return np.array_equal(a, b) if isinstance(a, np.ndarray) else a == b
+
+
+def _memory_stats(task, X, w, xx):
+    def stats(C):
+        labels, d2 = assign(X, C, xx)
         W = np.bincount(labels, weights=w, minlength=task.k)
         S = np.vstack([np.bincount(labels, weights=w * X[:, j], minlength=task.k) for j in range(X.shape[1])]).T
-        for j in np.flatnonzero(movable):
-            if W[j] > 0:
-                C[j] = project[j](S[j] / W[j])
-            else:                                # empty cluster: reseed at the worst-served point
-                far = int(np.argmax(w * d2))
-                C[j] = project[j](X[far])
-    labels, d2 = assign(X, C, xx)
-    return C, labels, float(w @ d2), it, converged
+        return labels, float(w @ d2), W, S, X[int(np.argmax(w * d2))]
+    return stats
 
 
 def _seed(task, X, w, rng, project):
@@ -298,31 +325,49 @@ def _seed(task, X, w, rng, project):
     return C
 
 
-def _solve(task, restarts, seed, max_iter, tol):
-    t0 = time.perf_counter()
-    X, w = task.X, task.weights
+def _projectors(task, d: int):
+    """Per centre: the exact projection onto its allowed set (identity for fixed centres)."""
     reqs = task._constraints()
     movable = np.ones(task.k, bool)
     movable[:len(task.fixed)] = False          # existing centres stay where they are, rules or not
+
     def projector(r):
         if not r:
             return lambda point: point.copy()
-        return _ConeProjector(r, X.shape[1]) if _ConeProjector.handles(r) else _Projector(r, X.shape[1])
+        return _ConeProjector(r, d) if _ConeProjector.handles(r) else _Projector(r, d)
 
-    project = [projector(r) if movable[j] else (lambda point: point.copy()) for j, r in enumerate(reqs)]
+    return reqs, movable, [projector(r) if movable[j] else (lambda point: point.copy()) for j, r in enumerate(reqs)]
+
+
+def _solve(task, restarts, seed, max_iter, tol, client=None):
+    t0 = time.perf_counter()
+    reqs, movable, project = _projectors(task, len(task.names))
+    if task.source is not None:
+        from .shards import PointBlocks
+        blocks = PointBlocks(task.source, client)
+        stats, X, w = blocks.stats, blocks.sample(seed), None
+    else:
+        X, w = task.X, task.weights
+        stats = _memory_stats(task, X, w, np.einsum("ij,ij->i", X, X))
     rows, best = [], None
-    xx = np.einsum("ij,ij->i", X, X)
     for r in range(restarts):
         rng = np.random.default_rng(seed + r)
-        C = _seed(task, X, w, rng, project)
-        C, labels, value, iters, converged = _lloyd(task, X, w, C, movable, project, max_iter, tol, xx)
+        C = _seed(task, X, np.ones(len(X)) if w is None else w, rng, project)
+        C, value, iters, converged = _lloyd(task, stats, C, movable, project, max_iter, tol)
         rows.append({"restart": r, "seed": seed + r, "objective": value, "iterations": iters, "converged": converged})
-        if best is None or value < best[2] - 1e-12 * max(1.0, abs(value)):
-            best = (C.copy(), labels, value, iters, r)
-    C, labels, value, iters, r = best
+        if best is None or value < best[1] - 1e-12 * max(1.0, abs(value)):
+            best = (C.copy(), value, iters, r)
+    C, value, iters, r = best
+    if task.source is not None:
+        labels, W, counts = blocks.labels(C), *blocks.loads(C, task.k)
+    else:
+        labels = assign(X, C)[0]
+        W = np.bincount(labels, weights=task.weights, minlength=task.k)
+        counts = np.bincount(labels, minlength=task.k)
+        labels = labels + 1
     violation = max((q.violation(C[j]) for j in np.flatnonzero(movable) for q in reqs[j]), default=0.0)
     table = pd.DataFrame(rows).set_index("restart")
-    return CentresFit.build(task, C, labels, value, iters, table, violation, time.perf_counter() - t0)
+    return CentresFit.build(task, C, labels, W, counts, value, iters, table, violation, time.perf_counter() - t0)
 
 
 @dataclass
@@ -330,7 +375,8 @@ class CentresFit:
     """Centres found by alternating exact steps; a local optimum of a non-convex problem.
 
     Attributes: status ("local optimum"), message, objective (weighted within-cluster sum of
-    squares), centres (DataFrame, centres numbered from 1), labels (centre number per point),
+    squares), centres (DataFrame, centres numbered from 1), labels (centre number per point; for
+    sharded data a lazy dask Series computed partition by partition),
     loads (weight and count per centre), iterations, restarts (table), violation, seconds.
     """
 
@@ -347,16 +393,15 @@ class CentresFit:
     task: CentresTask = field(repr=False)
 
     @classmethod
-    def build(cls, task, C, labels, value, iters, table, violation, seconds):
+    def build(cls, task, C, labels, W, counts, value, iters, table, violation, seconds):
         number = pd.Index(np.arange(1, task.k + 1), name="centre")
         frame = pd.DataFrame(C, index=number, columns=list(task.names))
-        loads = pd.DataFrame({"weight": np.bincount(labels, weights=task.weights, minlength=task.k),
-                              "points": np.bincount(labels, minlength=task.k)}, index=number)
+        loads = pd.DataFrame({"weight": W, "points": np.asarray(counts, dtype=int)}, index=number)
         same = int(np.sum(np.isclose(table["objective"], value, rtol=1e-9, atol=0)))
         msg = (f"local optimum: the best of {len(table)} restarts ({same} reached it); each step was solved "
                f"exactly, but placing centres is not a convex problem, so a better placement may exist"
                + (" (k = 1 is convex: this is the global optimum)" if task.k == 1 else ""))
-        return cls("local optimum", msg, value, frame, labels + 1, loads, iters, table, violation, seconds, task)
+        return cls("local optimum", msg, value, frame, labels, loads, iters, table, violation, seconds, task)
 
     def assign(self, points) -> np.ndarray:
         """Centre number (from 1) of the nearest centre for each new point."""

@@ -8,6 +8,7 @@ rule holds with equality (within tolerance) at the returned point.
 """
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -16,9 +17,26 @@ import pandas as pd
 
 from .certify import Certificate
 from .errors import DataError
+from .shards import is_sharded_source
 
 if TYPE_CHECKING:  # pragma: no cover
     from .evaluate import Evaluation
+
+def _partition_values(part: pd.DataFrame, encoding, w, b, labels, what: str) -> pd.Series:
+    """Scores, predictions or probabilities of one partition (run on a dask worker)."""
+    from .data import design
+    if len(part) == 0:
+        return pd.Series([], dtype=object if what == "prediction" and labels else float, name=what)
+    score = design(encoding, part.reset_index(drop=True)) @ w + b
+    if what == "probability":
+        from scipy.special import expit
+        values = expit(score)
+    elif what == "prediction" and labels is not None:
+        values = np.where(score > 0, labels[1], labels[0]).astype(object)
+    else:
+        values = score
+    return pd.Series(values, index=part.index, name=what)
+
 
 STATUSES = ("optimal", "unverified", "infeasible", "unbounded", "failed")
 
@@ -123,14 +141,34 @@ class Fit:
             return pd.Series(values, index=data.index, name=name)
         return values
 
+    def _partitionwise(self, data, what: str):
+        """The same values computed partition by partition on sharded data: a lazy dask Series
+        (nothing is computed or loaded until the caller asks)."""
+        from .shards import read_glob
+        self._need_point()
+        enc = self.task.dataset.encoding
+        if enc is None:
+            raise DataError("This fit was built from arrays; predictions on a dask DataFrame or a file "
+                            "pattern need a fit built from a table (named columns).")
+        ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+        labels = self.task.dataset.labels if self.task.kind == "classification" else None
+        dtype = object if what == "prediction" and labels is not None else float
+        return ddf.map_partitions(_partition_values, enc, self.coef.to_numpy(), self.intercept, labels, what,
+                                  meta=pd.Series([], dtype=dtype, name=what))
+
     def decision(self, data):
         """Raw predictions X w + b on new data (for classification: the score, sign = class)."""
+        if is_sharded_source(data):
+            return self._partitionwise(data, "score")
         return self._shaped(self._scores(data), data, "score")
 
     def predict(self, data):
         """Predictions on new data: values for regression, labels for classification.
 
-        A Series with the input's index when ``data`` is a DataFrame, else a numpy array."""
+        A Series with the input's index when ``data`` is a DataFrame, else a numpy array; for a
+        dask DataFrame or a file pattern, a lazy dask Series computed partition by partition."""
+        if is_sharded_source(data):
+            return self._partitionwise(data, "prediction")
         score = self._scores(data)
         labels = self.task.dataset.labels
         if self.task.kind == "classification":
@@ -141,6 +179,8 @@ class Fit:
         """P(positive label) for logistic fits: 1 / (1 + exp(-score))."""
         if self.task.loss.name != "logistic":
             raise DataError("probability() needs a logistic fit; hinge-type scores are not probabilities.")
+        if is_sharded_source(data):
+            return self._partitionwise(data, "probability")
         from scipy.special import expit
         return self._shaped(expit(self._scores(data)), data, "probability")
 

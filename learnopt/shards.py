@@ -521,3 +521,146 @@ def _substitute(r, p: int, G: np.ndarray, c: np.ndarray):
         f, fph = r.f[:p], r.f[p:]
         return replace(r, A=A + Aph @ G, rhs=r.rhs + Aph @ c, f=f + fph @ G, bound=float(r.bound - fph @ c))
     return replace(r, A=A + Aph @ G, rhs=r.rhs - Aph @ c)
+
+
+# ---- points for constrained centres
+
+@dataclass(eq=False)
+class ShardedPoints:
+    """Points for :func:`learnopt.centres` that live on a dask cluster."""
+
+    source: Any
+    names: tuple[str, ...]
+    weights: str | None
+    n: int
+    positive: int                # points with positive weight
+    label: str
+
+
+def open_points(data, weights, features) -> ShardedPoints:
+    """Validate sharded points: numeric coordinate columns, a weights column; count them."""
+    dask, _ = _dask()
+    label = os.fspath(data) if isinstance(data, (str, os.PathLike)) else "dask DataFrame"
+    ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+    meta = ddf._meta
+    if weights is not None and not isinstance(weights, str):
+        raise DataError("centres: with sharded data, 'weights' must be a column name.")
+    if weights is not None and weights not in meta.columns:
+        raise DataError(f"centres: no weights column {weights!r}.{_close(weights, meta.columns)}")
+    cols = list(features) if features is not None else [
+        c for c in meta.columns if c != weights and pd.api.types.is_numeric_dtype(meta[c])
+        and not pd.api.types.is_bool_dtype(meta[c])]
+    missing = [c for c in cols if c not in meta.columns]
+    if missing:
+        raise DataError(f"centres: no column(s) {missing}; the data has {list(meta.columns)}.")
+    bad = [c for c in cols if not pd.api.types.is_numeric_dtype(meta[c])]
+    if bad:
+        raise DataError(f"centres: column(s) {bad} are not numeric; centres need numeric coordinates.")
+    if not cols:
+        raise DataError("centres: the data has no numeric coordinate columns.")
+    w = ddf[weights] if weights is not None else None
+    try:
+        n, positive = dask.compute(ddf.map_partitions(len).sum(), (w > 0).sum() if w is not None else 0)
+    except Exception as exc:  # noqa: BLE001 - reading errors come in many types
+        raise DataError(f"The data {label!r} could not be read: {str(exc).splitlines()[0][:300]}") from None
+    n = int(n)
+    if n == 0:
+        raise DataError("centres: the data has no points.")
+    return ShardedPoints(ddf, tuple(map(str, cols)), weights, n, int(positive) if w is not None else n, label)
+
+
+def _point_block(part: pd.DataFrame, names, weights, index: int):
+    X = part[list(names)].to_numpy(dtype=float)
+    w = np.ones(len(X)) if weights is None else part[weights].to_numpy(dtype=float)
+    if not np.all(np.isfinite(X)):
+        row = int(np.flatnonzero(~np.all(np.isfinite(X), axis=1))[0])
+        raise DataError(f"Partition {index} of the data: centres: missing or infinite coordinates (first at "
+                        f"row {row}); drop or fill them.")
+    if np.any(~np.isfinite(w)) or np.any(w < 0):
+        raise DataError(f"Partition {index} of the data: centres: weights must be finite and >= 0.")
+    return X, w
+
+
+def _point_weight(block) -> float:
+    return float(block[1].sum())
+
+
+def _point_stats(block, C):
+    """(assignment fingerprint, objective, W, S, (worst w d2, its point)) on one block."""
+    import hashlib
+    from .centres import assign
+    X, w = block
+    k, d = C.shape
+    if len(X) == 0:
+        return "", 0.0, np.zeros(k), np.zeros((k, d)), (-np.inf, np.zeros(d))
+    labels, d2 = assign(X, C)
+    W = np.bincount(labels, weights=w, minlength=k)
+    S = np.vstack([np.bincount(labels, weights=w * X[:, j], minlength=k) for j in range(d)]).T
+    worst = int(np.argmax(w * d2))
+    return (hashlib.blake2b(labels.astype(np.int32).tobytes(), digest_size=16).hexdigest(), float(w @ d2), W, S,
+            (float(w[worst] * d2[worst]), X[worst].copy()))
+
+
+def _point_loads(block, C):
+    from .centres import assign
+    X, w = block
+    k = C.shape[0]
+    if len(X) == 0:
+        return np.zeros(k), np.zeros(k)
+    labels = assign(X, C)[0]
+    return np.bincount(labels, weights=w, minlength=k), np.bincount(labels, minlength=k).astype(float)
+
+
+def _point_sample(block, size: int, total: float, seed: int, index: int):
+    """About size * (this block's weight / total) points drawn in proportion to their weights."""
+    X, w = block
+    if len(X) == 0 or w.sum() <= 0:
+        return np.zeros((0, X.shape[1]))
+    rng = np.random.default_rng([seed, index])
+    m = rng.poisson(size * w.sum() / total)
+    return X[rng.choice(len(X), size=m, p=w / w.sum())] if m else np.zeros((0, X.shape[1]))
+
+
+def _partition_labels(part: pd.DataFrame, names, C) -> pd.Series:
+    from .centres import assign
+    if len(part) == 0:
+        return pd.Series([], dtype=np.int64, name="centre")
+    return pd.Series(assign(part[list(names)].to_numpy(dtype=float), C)[0] + 1, index=part.index, name="centre")
+
+
+class PointBlocks:
+    """The points of a sharded centres task held on the cluster for one solve."""
+
+    SAMPLE = 20_000    # seeding sample size (k-means++ runs on it; the steps use every point)
+
+    def __init__(self, points: ShardedPoints, client=None):
+        from dask import delayed
+        self.client = connect(client)
+        self.points = points
+        fn = delayed(_point_block, pure=True)
+        self.futures = self.client.compute([fn(part, points.names, points.weights, k)
+                                            for k, part in enumerate(points.source.to_delayed())])
+        self.total = float(sum(self.client.gather(self.client.map(_point_weight, self.futures))))
+        self.passes = 1
+
+    def stats(self, C):
+        self.passes += 1
+        parts = self.client.gather(self.client.map(_point_stats, self.futures, C=np.asarray(C, float), pure=False))
+        key = tuple(p[0] for p in parts)
+        far = max((p[4] for p in parts), key=lambda t: t[0])[1]
+        return key, sum(p[1] for p in parts), sum(p[2] for p in parts), sum(p[3] for p in parts), far
+
+    def sample(self, seed: int) -> np.ndarray:
+        size = min(self.SAMPLE, self.points.n)
+        parts = self.client.gather(self.client.map(_point_sample, self.futures, [size] * len(self.futures),
+                                                   [self.total] * len(self.futures), [seed] * len(self.futures),
+                                                   list(range(len(self.futures))), pure=False))
+        return np.vstack(parts)
+
+    def loads(self, C, k: int):
+        parts = self.client.gather(self.client.map(_point_loads, self.futures, C=np.asarray(C, float), pure=False))
+        return sum(p[0] for p in parts), sum(p[1] for p in parts)
+
+    def labels(self, C):
+        return self.points.source.map_partitions(_partition_labels, self.points.names, np.asarray(C, float),
+                                                 meta=pd.Series([], dtype=np.int64, name="centre"))

@@ -335,3 +335,47 @@ def test_sharded_fit_saves_and_loads(client, tmp_path):
     back = lo.load_fit(tmp_path / "model.json")
     pd.testing.assert_series_equal(back.predict(frame), fit.predict(frame), check_exact=True)
     assert back.route == "sharded"
+    # predictions on sharded data are lazy dask Series, computed partition by partition
+    lazy = fit.predict(pattern)
+    assert type(lazy).__module__.startswith("dask")
+    pd.testing.assert_series_equal(lazy.compute(scheduler="sync").reset_index(drop=True),
+                                   fit.predict(frame).reset_index(drop=True), check_dtype=False)
+    probs = back.probability(dd.from_pandas(frame, npartitions=3)).compute(scheduler="sync")
+    np.testing.assert_allclose(probs.to_numpy(), fit.probability(frame).to_numpy(), rtol=1e-12)
+
+
+# ---- constrained centres: assignment and per-centre sums by passes
+
+def test_iris_centres_on_shards_reach_the_published_optimum(client, tmp_path):
+    # R kmeans on iris, k = 3: best within-cluster sum of squares 78.85144 (REFERENCES.md)
+    from sklearn.datasets import load_iris
+    iris = load_iris(as_frame=True).frame.drop(columns="target")
+    pattern = write_parts(iris, tmp_path, 3)
+    fit = lo.centres(pattern, k=3).solve(restarts=5, seed=0, client=client)
+    assert fit.objective == pytest.approx(78.85144, abs=5e-5)
+    assert sorted(fit.loads["points"].tolist()) == [38, 50, 62]
+    ref = lo.centres(iris, k=3).solve(restarts=5, seed=0)
+    order = lambda c: c.sort_values(list(c.columns)).to_numpy()  # noqa: E731 - centre numbers may differ
+    np.testing.assert_allclose(order(fit.centres), order(ref.centres), atol=1e-9)
+    labels = fit.labels.compute(scheduler="sync")
+    assert len(labels) == 150 and set(labels) == {1, 2, 3}
+    assert np.array_equal(labels.to_numpy(), fit.assign(iris))
+
+
+def test_constrained_centres_on_shards_match_the_in_memory_fit(client, tmp_path):
+    # invented demo points (Lanternfield bike stops); reference: the in-memory fit of the same task
+    from learnopt.demo import make_bike_stops
+    data = make_bike_stops()
+    pattern = write_parts(data, tmp_path, 4)
+    where = ["east_km", "north_km"]
+    district = lo.rule.polygon([(0, 0), (7, 0), (7.5, 4), (6, 7), (0, 6.5)], features=where)
+    river = lo.rule.segment((0.0, 3.0), (7.2, 3.0), features=where)
+    build = lambda d: (lo.centres(d, k=4, weights="refills", features=where, fixed=[(0.5, 0.5)])  # noqa: E731
+                       .require(district).require(river, centre=2))
+    fit = build(pattern).solve(restarts=10, seed=0, client=client)
+    ref = build(data).solve(restarts=10, seed=0)
+    assert fit.violation <= 1e-8
+    assert fit.objective == pytest.approx(ref.objective, rel=1e-9)
+    np.testing.assert_allclose(fit.centres.loc[1].to_numpy(), [0.5, 0.5])
+    assert abs(fit.centres.loc[2, "north_km"] - 3.0) <= 1e-8          # on the riverside road
+    assert fit.loads["weight"].sum() == pytest.approx(data["refills"].sum(), rel=1e-12)
