@@ -55,6 +55,10 @@ class Dataset:
 
 def _read(path: str | os.PathLike) -> pd.DataFrame:
     path = os.fspath(path)
+    if any(ch in path for ch in "*?["):
+        raise DataError(f"{path!r} is a file pattern: sharded data is read by lo.regression / "
+                        f"lo.classification / lo.centres from Python (recipes and new data for "
+                        f"evaluate() take one file).")
     if not os.path.exists(path):
         raise DataError(f"Data file {path!r} does not exist; check the path (relative paths are "
                         f"taken from the working directory {os.getcwd()!r}).")

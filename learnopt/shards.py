@@ -287,7 +287,6 @@ class Blocks:
         encode = delayed(encode_block, pure=True)
         t0 = time.perf_counter()
         self.futures = self.client.compute([encode(p, dataset.spec, k) for k, p in enumerate(parts)])
-        self.W = None
         self.passes, self.seconds = 0, time.perf_counter() - t0
 
     def __len__(self) -> int:

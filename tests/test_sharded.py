@@ -379,3 +379,18 @@ def test_constrained_centres_on_shards_match_the_in_memory_fit(client, tmp_path)
     np.testing.assert_allclose(fit.centres.loc[1].to_numpy(), [0.5, 0.5])
     assert abs(fit.centres.loc[2, "north_km"] - 3.0) <= 1e-8          # on the riverside road
     assert fit.loads["weight"].sum() == pytest.approx(data["refills"].sum(), rel=1e-12)
+
+
+def test_the_cluster_is_found_by_address_or_as_dask_s_current_client(client, tmp_path):
+    from learnopt import shards
+    frame = make_classes(400).drop(columns="label")
+    frame["y"] = 2.0 * frame["f0"] + 1.0
+    pattern = write_parts(frame, tmp_path, 2)
+    with client.as_current():
+        assert shards.connect(None) is client
+    fit = lo.regression(pattern, target="y").solve(client=client.scheduler.address)
+    assert fit.status == "optimal" and fit.coef["f0"] == pytest.approx(2.0, abs=1e-9)
+    shards.close_local()                     # closes learnopt's own connection, not the cluster
+    assert client.status == "running"
+    with pytest.raises(ParameterError, match="must be a distributed.Client, a scheduler address or None"):
+        shards.connect(42)
