@@ -33,7 +33,11 @@ class Evaluation:
 
 
 def evaluate(fit, data, target=None) -> Evaluation:
+    from .shards import is_sharded_source
     task = fit.task
+    if is_sharded_source(data):
+        raise DataError("evaluate() takes held-out data in memory (a DataFrame, or one CSV/Parquet file); "
+                        "for sharded data evaluate a sample, e.g. ddf.sample(frac=0.01).compute().")
     if target is None:
         if not isinstance(data, pd.DataFrame) or not isinstance(task.target_name, str):
             raise DataError("evaluate() needs the true targets: give a DataFrame with the target "

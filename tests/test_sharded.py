@@ -17,6 +17,7 @@ import pytest
 
 import learnopt as lo
 from learnopt.errors import DataError, ParameterError
+from learnopt.recipes import load_recipe
 
 dd = pytest.importorskip("dask.dataframe")
 distributed = pytest.importorskip("distributed")
@@ -305,10 +306,19 @@ def test_bad_sharded_input_gets_clear_errors(client, tmp_path):
     with pytest.raises(DataError, match="must be numeric for regression"):
         lo.regression(pattern, target="label")
     task = lo.classification(pattern, target="label")
-    with pytest.raises(DataError, match="not available for sharded data"):
-        task.require("prediction >= 0 where site == 'mill'")
+    assert task.require("prediction >= 0 where site == 'mill'").row_rules    # applied in the partitions
     with pytest.raises(ParameterError, match="needs the data in memory"):
         task.path()
+    with pytest.raises(ParameterError, match="needs the data in memory"):
+        task.problem()
+    recipe = tmp_path / "shards.toml"
+    recipe.write_text(f'title = "shards"\n[data]\npath = "{pattern}"\n[task]\nkind = "classification"\n'
+                      f'target = "label"\n[task.loss]\nname = "logistic"\n')
+    with pytest.raises(DataError, match="is a file pattern: sharded data is read by lo.regression"):
+        load_recipe(recipe)
+    small = lo.regression(pd.DataFrame({"a": [1.0, 2.0, 4.0], "b": [1.0, 3.0, 2.0]}), target="b").solve()
+    with pytest.raises(DataError, match="evaluate a sample"):
+        small.evaluate(pattern)
     with pytest.raises(ParameterError, match="only the sharded route"):
         task.solve(route="direct", client=client)
     assert task.check().convex
