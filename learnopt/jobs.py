@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from .errors import DataError
 from .files import write_atomic
 from .recipes import Recipe, _frame, build_task
 
@@ -27,10 +28,13 @@ class Job:
         return self.fit is not None and self.fit.status == "optimal"
 
 
-def _split(recipe: Recipe, frame: pd.DataFrame):
+def _split(recipe: Recipe, frame):
     hold = recipe.do.holdout
     if hold is None:
         return frame, None
+    if not isinstance(frame, pd.DataFrame) and hold.path is None:
+        raise DataError("do.holdout.fraction: a random held-out split of sharded data is not available; "
+                        "give do.holdout.path (a held-out file) instead.")
     if hold.path is not None:
         from .data import _read
         return frame, _read(recipe.resolve(hold.path))
@@ -55,14 +59,25 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
         job.path = task.path(recipe.do.penalty if task.penalties else None,
                              grid=grid if grid is not None else recipe.do.grid, n=n or recipe.do.n,
                              route=s.route, solver=s.solver, progress=None, **opts)
-    job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **opts)
+    extra = {"client": s.cluster} if task.sharded else {}
+    job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **extra, **opts)
     if held is not None and job.fit.status in ("optimal", "unverified"):
         job.evaluation = job.fit.evaluate(held)
     _outputs(job, frame, report)
     return job
 
 
-def _outputs(job: Job, frame: pd.DataFrame, report: str | None) -> None:
+def _prediction_chunks(lazy):
+    """CSV text of a lazy dask Series of predictions, one partition at a time."""
+    start = 0
+    for k, part in enumerate(lazy.to_delayed()):
+        values = part.compute()
+        chunk = pd.DataFrame({"prediction": values.to_numpy()}, index=pd.RangeIndex(start, start + len(values)))
+        start += len(values)
+        yield chunk.to_csv(index_label="row", header=k == 0)
+
+
+def _outputs(job: Job, frame, report: str | None) -> None:
     out, fit, recipe = job.recipe.outputs, job.fit, job.recipe
     if out.fit:
         path = recipe.resolve(out.fit)
@@ -73,9 +88,12 @@ def _outputs(job: Job, frame: pd.DataFrame, report: str | None) -> None:
         write_atomic(path, fit.coefficients().to_csv(index_label="name"))
         job.written.append(path)
     if out.predictions and fit.status in ("optimal", "unverified"):
-        pred = pd.DataFrame({"prediction": fit.predict(frame)})
         path = recipe.resolve(out.predictions)
-        write_atomic(path, pred.to_csv(index_label="row"))
+        if isinstance(frame, pd.DataFrame):
+            pred = pd.DataFrame({"prediction": fit.predict(frame)})
+            write_atomic(path, pred.to_csv(index_label="row"))
+        else:          # sharded: partition by partition, rows numbered across partitions
+            write_atomic(path, _prediction_chunks(fit.predict(frame)))
         job.written.append(path)
     if out.path and job.path is not None:
         path = recipe.resolve(out.path)

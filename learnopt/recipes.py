@@ -26,7 +26,8 @@ class _Strict(BaseModel):
 
 
 class DataPart(_Strict):
-    path: str = Field(description="CSV or Parquet file, relative to the recipe file")
+    path: str = Field(description="CSV or Parquet file, or a pattern of several (sharded data on dask), "
+                                  "relative to the recipe file")
     types: dict[str, Literal["number", "category", "text"]] = Field(default_factory=dict)
 
 
@@ -98,12 +99,14 @@ class TaskPart(_Strict):
 
 class SolvePart(_Strict):
     solver: Literal["clarabel", "osqp", "scs", "ecos", "highs"] | None = None
-    route: Literal["direct", "compressed", "newton", "working-set"] | None = None
+    route: Literal["direct", "compressed", "newton", "working-set", "sharded"] | None = None
     tol: float = Field(default=1e-9, gt=0, lt=1)
     gap_tol: float = Field(default=1e-7, gt=0, lt=1)
     feas_tol: float = Field(default=1e-6, gt=0, lt=1)
     time_limit: float | None = Field(default=None, gt=0)
     polish: bool = False
+    cluster: str | None = Field(default=None, description="dask scheduler address for sharded data "
+                                                          "(default: a local cluster)")
 
 
 class HoldoutPart(_Strict):
@@ -189,14 +192,18 @@ def read_recipe(path) -> Recipe:
 
 
 def _frame(recipe: Recipe):
+    """The recipe's data: a pandas DataFrame, or a lazy dask DataFrame for a file pattern."""
     import pandas as pd
     from .data import _read
-    frame = _read(recipe.resolve(recipe.data.path))
+    from .shards import is_sharded_source, read_glob
+    path = recipe.resolve(recipe.data.path)
+    frame = read_glob(path) if is_sharded_source(path) else _read(path)
     for column, kind in recipe.data.types.items():
         if column not in frame.columns:
             raise DataError(f"data.types names {column!r}, which is not a column of {recipe.data.path!r}.")
         if kind == "number":
-            frame[column] = pd.to_numeric(frame[column], errors="raise")
+            frame[column] = (pd.to_numeric(frame[column], errors="raise") if isinstance(frame, pd.DataFrame)
+                             else frame[column].astype(float))
         else:
             frame[column] = frame[column].astype(str)
     return frame

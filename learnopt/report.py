@@ -50,6 +50,16 @@ def _png(draw) -> str:
     return f'<img alt="plot" src="data:image/png;base64,{base64.b64encode(buf.getvalue()).decode()}">'
 
 
+def _argument_histogram(task, theta, bins: int = 40):
+    """Histogram of the loss argument on the training rows (by passes for sharded data)."""
+    if task.sharded:
+        from .shards import argument_histogram
+        return argument_histogram(task.dataset, theta, task.intercept, task.loss.argument == "margin", bins)
+    from .routes.base import loss_argument
+    M, q, _ = loss_argument(task)
+    return np.histogram(M @ theta - q, bins=bins)
+
+
 def _maths(task) -> str:
     f = task.loss.describe()
     arg = "y_i (x_i'w + b)" if task.loss.argument == "margin" else "x_i'w + b - y_i"
@@ -85,12 +95,11 @@ def html(job) -> str:
                      "relaxation of the rule; binding rules are highlighted.</p>"
                      + _table(pr, highlight=fit.binding.to_dict()))
     if np.all(np.isfinite(fit.coef.to_numpy())):
-        from .routes.base import loss_argument
-        M, q, _ = loss_argument(task)
-        z = M @ fit.theta - q
+        counts, edges = _argument_histogram(task, fit.theta)
         label = "margin y (x'w + b)" if task.loss.argument == "margin" else "residual (prediction - target)"
         parts.append("<h2>Training " + label.split(" ")[0] + "s</h2>" +
-                     _png(lambda ax: (ax.hist(z, bins=40, color="#4a7"), ax.set_xlabel(label), ax.set_ylabel("rows"))))
+                     _png(lambda ax: (ax.stairs(counts, edges, fill=True, color="#4a7"), ax.set_xlabel(label),
+                                      ax.set_ylabel("rows"))))
     if job.path is not None:
         parts.append("<h2>Path</h2>" + _png(lambda ax: job.path.plot(ax=ax))
                      + _table(job.path.table.set_index("strength")))

@@ -663,3 +663,34 @@ class PointBlocks:
     def labels(self, C):
         return self.points.source.map_partitions(_partition_labels, self.points.names, np.asarray(C, float),
                                                  meta=pd.Series([], dtype=np.int64, name="centre"))
+
+
+# ---- per-row summaries for reports
+
+def _argument(part, spec, theta, intercept: bool, margin: bool, index: int):
+    X, y, _ = encode_block(part, spec, index)
+    score = X @ theta[:X.shape[1]] + (theta[-1] if intercept else 0.0)
+    return y * score if margin else score - y
+
+
+def _extent(part, spec, theta, intercept, margin, index):
+    z = _argument(part, spec, theta, intercept, margin, index)
+    return (float(z.min()), float(z.max())) if len(z) else (np.inf, -np.inf)
+
+
+def _counts(part, spec, theta, intercept, margin, index, edges):
+    return np.histogram(_argument(part, spec, theta, intercept, margin, index), bins=edges)[0]
+
+
+def argument_histogram(dataset: ShardedDataset, theta, intercept: bool, margin: bool, bins: int = 40):
+    """(counts, edges) of the loss argument (residuals or margins) over every row, by two passes."""
+    import dask
+    from dask import delayed
+    parts = dataset.source.to_delayed()
+    theta = np.asarray(theta, float)
+    spans = dask.compute(*[delayed(_extent)(p, dataset.spec, theta, intercept, margin, k) for k, p in enumerate(parts)])
+    low, high = min(s[0] for s in spans), max(s[1] for s in spans)
+    edges = np.linspace(low, high if high > low else low + 1.0, bins + 1)
+    counts = dask.compute(*[delayed(_counts)(p, dataset.spec, theta, intercept, margin, k, edges)
+                            for k, p in enumerate(parts)])
+    return np.sum(counts, axis=0), edges

@@ -78,6 +78,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         t = time.perf_counter()
         cert = check(theta, u, mults)
         seen.update(theta=theta.copy(), cert=cert, seconds=seen.get("seconds", 0.0) + time.perf_counter() - t)
+        runner.last_certificate = cert       # for routes that report progress
         return cert.passes(gap_tol, feas_tol)
 
     runner.goal, runner.gap_tol, runner.tol, runner.feas_tol = goal, gap_tol, tol, feas_tol

@@ -536,6 +536,10 @@ class AdmmRunner(_Sharded, RunnerBase):
                 t_goal = time.perf_counter()
                 reached = self.goal(z, None, mults)
                 goal_s += time.perf_counter() - t_goal
+                cert = getattr(self, "last_certificate", None)
+                if cert is not None:
+                    self.report(f"certificate at round {rnd}: relative gap {cert.rel_gap:.3g}, "
+                                f"relative violation {cert.rel_violation:.3g}")
                 if reached:
                     status = "optimal"
                     break
