@@ -56,9 +56,9 @@ class Dataset:
 def _read(path: str | os.PathLike) -> pd.DataFrame:
     path = os.fspath(path)
     if any(ch in path for ch in "*?["):
-        raise DataError(f"{path!r} is a file pattern: sharded data is read by lo.regression / "
-                        f"lo.classification / lo.centres from Python (recipes and new data for "
-                        f"evaluate() take one file).")
+        raise DataError(f"{path!r} is a file pattern: patterns are read as sharded data by "
+                        f"lo.regression / lo.classification / lo.centres and a recipe's data.path; "
+                        f"here give one file.")
     if not os.path.exists(path):
         raise DataError(f"Data file {path!r} does not exist; check the path (relative paths are "
                         f"taken from the working directory {os.getcwd()!r}).")

@@ -314,8 +314,12 @@ def test_bad_sharded_input_gets_clear_errors(client, tmp_path):
     recipe = tmp_path / "shards.toml"
     recipe.write_text(f'title = "shards"\n[data]\npath = "{pattern}"\n[task]\nkind = "classification"\n'
                       f'target = "label"\n[task.loss]\nname = "logistic"\n')
-    with pytest.raises(DataError, match="is a file pattern: sharded data is read by lo.regression"):
-        load_recipe(recipe)
+    assert load_recipe(recipe).sharded
+    recipe.write_text(recipe.read_text() + '[do]\nholdout = { fraction = 0.2 }\n')
+    from learnopt.jobs import run
+    from learnopt.recipes import read_recipe
+    with pytest.raises(DataError, match="random held-out split of sharded data is not available"):
+        run(read_recipe(recipe))
     small = lo.regression(pd.DataFrame({"a": [1.0, 2.0, 4.0], "b": [1.0, 3.0, 2.0]}), target="b").solve()
     with pytest.raises(DataError, match="evaluate a sample"):
         small.evaluate(pattern)

@@ -431,6 +431,7 @@ class AdmmRunner(_Sharded, RunnerBase):
     method = "admm"
     MAX_ROUNDS = 2000
     CHECK_EVERY = 10          # rounds between certificates once the residuals are small
+    BALANCE = 10.0            # residual balancing: change rho when one residual is this many times the other
 
     def __init__(self, task, blocks: Blocks, report: _Report, rounds: int | None = None, rho: float | None = None,
                  relax: float = 1.6):
@@ -547,10 +548,10 @@ class AdmmRunner(_Sharded, RunnerBase):
             elif self.goal is None and small:
                 status = "optimal"
                 break
-            # residual balancing (section 3.4.1): keep the two residuals within a factor 10
-            if r > 10 * s:
+            # residual balancing (section 3.4.1): keep the two residuals within a factor BALANCE
+            if r > self.BALANCE * s:
                 rho, u = rho * 2, u / 2
-            elif s > 10 * r:
+            elif s > self.BALANCE * r:
                 rho, u = rho / 2, u * 2
         solve_s = time.perf_counter() - t_run - goal_s
         return Outcome(status if status == "optimal" else "optimal_inaccurate", z, None, mults, 0.0, solve_s,
