@@ -55,6 +55,10 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         params.check("solve", time_limit=(time_limit, params.POSITIVE))
     t_start = time.perf_counter()
     original, T = task, None
+    if (client is not None or progress is not None) and runner is None and not getattr(task, "sharded", False):
+        from .errors import ParameterError
+        raise ParameterError("client= and progress= are for sharded data; this task's data is in memory. "
+                             "Give a dask DataFrame or a file pattern to fit on a cluster.")
     if runner is None and getattr(task, "sharded", False):
         runner = prepare(task, route, client=client, progress=progress)
     elif runner is None:

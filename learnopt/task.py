@@ -25,8 +25,8 @@ from .penalties import CustomPenalty, Penalty
 from .rules import Context, Requirement, RuleSpec, as_spec, compile_all
 from .solvers import CLASS_LABEL, problem_class
 
-SHARDED_ROWS = ("rules on predictions or data rows are not available for sharded data (a dask "
-                "DataFrame or a file pattern); rules on coefficients are. Fit in memory for this rule.")
+SHARDED_ROWS = ("this rule object needs the data rows, which live in the partitions of sharded data; "
+                "write it as rule text (rules on predictions are compiled inside each partition).")
 REGRESSION_LOSSES = {"squared", "absolute", "huber", "quantile", "epsilon_insensitive"}
 CLASSIFICATION_LOSSES = {"hinge", "squared_hinge", "logistic", "squared", "zero_one"}
 
