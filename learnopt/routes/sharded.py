@@ -212,9 +212,9 @@ def _local(block, key, state, dvec, rows, c, loss, margin, intercept, W, setting
             pairs = [(r, requirement_constraint(r, x)) for r in flat]
             prob = cp.Problem(cp.Minimize(loss.mean_expr(zr, a) + 0.5 * cp.sum_squares(cpar * x - dpar)),
                               [tie] + [con for _, con in pairs])
+        for other in [k for k in cache if k[0] != key[0]]:
+            del cache[other]                    # problems of earlier fits (each holds its rows)
         entry = cache[key] = (prob, x, tie, cpar, dpar, a, pairs)
-        while len(cache) > 64:                  # blocks of finished fits
-            cache.pop(next(iter(cache)))
     prob, x, tie, cpar, dpar, a, pairs = entry
     cpar.value, dpar.value = float(c), np.asarray(dvec, float)
     start = None if state is None else state[0]
@@ -502,7 +502,7 @@ class AdmmRunner(_Sharded, RunnerBase):
         blocks, K, p = self.blocks, self.K, self.p
         t_run = time.perf_counter()
         token = f"{id(self)}-{time.time_ns()}"
-        keys = [f"{token}-{k}" for k in range(K)]
+        keys = [(token, k) for k in range(K)]
         local = {"solver": "CLARABEL", "tol_gap_abs": 1e-12, "tol_gap_rel": 1e-12, "tol_feas": 1e-12,
                  "max_iter": 500}
         rho = self.rho0
