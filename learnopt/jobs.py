@@ -37,7 +37,9 @@ def _split(recipe: Recipe, frame):
                         "give do.holdout.path (a held-out file) instead.")
     if hold.path is not None:
         from .data import _read
-        return frame, _read(recipe.resolve(hold.path))
+        from .shards import is_sharded_source, read_glob
+        path = recipe.resolve(hold.path)
+        return frame, (read_glob(path) if is_sharded_source(path) else _read(path))
     rng = np.random.default_rng(hold.seed)
     test = rng.random(len(frame)) < hold.fraction
     return frame.loc[~test], frame.loc[test]

@@ -324,11 +324,26 @@ def test_bad_sharded_input_gets_clear_errors(client, tmp_path):
     with pytest.raises(ParameterError, match="client= and progress= are for sharded data"):
         small_task.solve(client=client)
     small = small_task.solve()
-    with pytest.raises(DataError, match="evaluate a sample"):
-        small.evaluate(pattern)
+    with pytest.raises(DataError, match="reads the target from its column"):
+        small.evaluate(pattern, target=[1.0, 2.0])
     with pytest.raises(ParameterError, match="only the sharded route"):
         task.solve(route="direct", client=client)
     assert task.check().convex
+
+
+def test_held_out_evaluation_on_shards_equals_in_memory(client, tmp_path):
+    # the same metrics from row sums merged across partitions (reference: evaluate on the frame)
+    frame = make_classes(900)
+    frame["y"] = 3.0 + 2.0 * frame["f0"] + np.random.default_rng(8).normal(size=len(frame))
+    reg = lo.regression(frame.drop(columns="label").iloc[:600], target="y").solve()
+    held = frame.drop(columns="label").iloc[600:]
+    sharded = reg.evaluate(dd.from_pandas(held, npartitions=3))
+    pd.testing.assert_series_equal(sharded.metrics, reg.evaluate(held).metrics, rtol=1e-12)
+    cls = lo.classification(frame.drop(columns="y").iloc[:600], target="label", loss="hinge").solve()
+    pattern = write_parts(frame.drop(columns="y").iloc[600:], tmp_path, 3)
+    got, want = cls.evaluate(pattern), cls.evaluate(frame.drop(columns="y").iloc[600:])
+    pd.testing.assert_series_equal(got.metrics, want.metrics, rtol=1e-12)
+    pd.testing.assert_frame_equal(got.confusion, want.confusion)
 
 
 def test_bad_values_in_one_file_name_the_partition(client, tmp_path):
