@@ -129,14 +129,7 @@ def centres(data, k: int = 5, weights=None, features: Sequence[str] | None = Non
                            points)
     if isinstance(data, pd.DataFrame):
         wcol = weights if isinstance(weights, str) else None
-        cols = list(features) if features is not None else [c for c in data.columns
-                                                            if c != wcol and pd.api.types.is_numeric_dtype(data[c])]
-        missing = [c for c in cols if c not in data.columns]
-        if missing:
-            raise DataError(f"centres: no column(s) {missing}; the data has {list(data.columns)}.")
-        bad = [c for c in cols if not pd.api.types.is_numeric_dtype(data[c])]
-        if bad:
-            raise DataError(f"centres: column(s) {bad} are not numeric; centres need numeric coordinates.")
+        cols = coordinate_columns(data, features, wcol)
         X = data[cols].to_numpy(dtype=float)
         names = tuple(str(c) for c in cols)
         index = data.index
@@ -160,6 +153,20 @@ def centres(data, k: int = 5, weights=None, features: Sequence[str] | None = Non
     if k > int(np.sum(w > 0)):
         raise ParameterError(f"centres: k = {k} is more than the {int(np.sum(w > 0))} points with positive weight.")
     return CentresTask(X, w, names, int(k), _pinned(fixed, k, X.shape[1]), (), index)
+
+
+def coordinate_columns(frame: pd.DataFrame, features, weights: str | None) -> list:
+    """The coordinate columns: ``features``, or every numeric column but the weights; checked
+    against ``frame`` (the data, or only its column types for sharded data)."""
+    cols = list(features) if features is not None else [c for c in frame.columns
+                                                         if c != weights and pd.api.types.is_numeric_dtype(frame[c])]
+    missing = [c for c in cols if c not in frame.columns]
+    if missing:
+        raise DataError(f"centres: no column(s) {missing}; the data has {list(frame.columns)}.")
+    bad = [c for c in cols if not pd.api.types.is_numeric_dtype(frame[c])]
+    if bad:
+        raise DataError(f"centres: column(s) {bad} are not numeric; centres need numeric coordinates.")
+    return cols
 
 
 def _pinned(fixed, k: int, d: int) -> tuple:

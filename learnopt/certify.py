@@ -190,6 +190,23 @@ def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
     return u
 
 
+def repair_targets(theta, penalties, names, N):
+    """The systems T g = t a dual point is repaired to meet, one per distinct reading of which
+    coefficients are active: the free directions (N' g = 0), plus g_j = -R'_j(w_j) on the
+    coordinates read as active at thresholds 1e-9 and 1e-6 (and none)."""
+    d, seen = len(names), set()
+    for threshold in (1e-9, 1e-6, None):
+        active = None if threshold is None else _active_targets(theta[:d], penalties, names, len(theta), threshold)
+        key = None if active is None else tuple(np.flatnonzero(active[0].any(axis=0)))
+        if key in seen:
+            continue
+        seen.add(key)
+        T, t = N.T, np.zeros(N.shape[1])
+        if active is not None:
+            T, t = np.vstack([T, active[0]]), np.concatenate([t, active[1]])
+        yield T, t
+
+
 def requirement_terms(requirements, multipliers, theta) -> tuple[np.ndarray, float]:
     """The rules' part of the Lagrangian at theta: its gradient sum_k A_k' mu_k (norm rules
     through their subgradient) and its constant part, multipliers clipped to their signs."""
@@ -312,16 +329,8 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     # -inf. Asking also that active separable coordinates have g_j = -R'_j(w_j) keeps the bound
     # tight without rescaling, but which coordinates are active is a judgement on a numerical
     # point, so a few readings are tried and the best (largest) valid bound is kept.
-    readings, seen, dual = [], set(), -np.inf
-    for threshold in (1e-9, 1e-6, None):
-        active = None if threshold is None else _active_targets(theta[:d], penalties, names, len(theta), threshold)
-        key = None if active is None else tuple(np.flatnonzero(active[0].any(axis=0)))
-        if key in seen:
-            continue
-        seen.add(key)
-        T, t = N.T, np.zeros(N.shape[1])
-        if active is not None:
-            T, t = np.vstack([T, active[0]]), np.concatenate([t, active[1]])
+    readings, dual = [], -np.inf
+    for T, t in repair_targets(theta, penalties, names, N):
         readings.append(_repair(u, T, t, M, a, gradient, low, high) if T.shape[0] else u)
         dual = max(dual, bound(readings[-1]))
         if (primal - dual) <= enough * max(1.0, abs(primal)):

@@ -8,7 +8,6 @@ rule holds with equality (within tolerance) at the returned point.
 """
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -144,13 +143,13 @@ class Fit:
     def _partitionwise(self, data, what: str):
         """The same values computed partition by partition on sharded data: a lazy dask Series
         (nothing is computed or loaded until the caller asks)."""
-        from .shards import read_glob
+        from .shards import as_frame
         self._need_point()
         enc = self.task.dataset.encoding
         if enc is None:
             raise DataError("This fit was built from arrays; predictions on a dask DataFrame or a file "
                             "pattern need a fit built from a table (named columns).")
-        ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+        ddf, _ = as_frame(data)
         labels = self.task.dataset.labels if self.task.kind == "classification" else None
         dtype = object if what == "prediction" and labels is not None else float
         return ddf.map_partitions(_partition_values, enc, self.coef.to_numpy(), self.intercept, labels, what,

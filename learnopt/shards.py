@@ -69,6 +69,24 @@ def read_glob(pattern: str):
                     f"({', '.join(sorted(kinds))}); match only .csv or only .parquet files.")
 
 
+def as_frame(data):
+    """(lazy dask DataFrame, label for messages) of a file pattern or a dask DataFrame."""
+    if isinstance(data, (str, os.PathLike)):
+        return read_glob(data), os.fspath(data)
+    return data, "dask DataFrame"
+
+
+def compute(label: str, *lazy):
+    """dask.compute, with reading errors (which come in many types) turned into a DataError."""
+    dask, _ = _dask()
+    try:
+        return dask.compute(*lazy)
+    except LearnoptError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - every other failure here means "cannot read"
+        raise DataError(f"The data {label!r} could not be read: {str(exc).splitlines()[0][:300]}") from None
+
+
 @dataclass(frozen=True)
 class BlockSpec:
     """How a worker turns one partition into a block: everything the encoding pass decided."""
@@ -117,9 +135,7 @@ class ShardedDataset:
 def open_source(data, target, *, kind: str, features: Sequence[str] | None, weights, intercept: bool,
                 positive) -> ShardedDataset:
     """Validate a sharded source and decide its encoding in one pass over the needed columns."""
-    dask, dd = _dask()
-    label = os.fspath(data) if isinstance(data, (str, os.PathLike)) else "dask DataFrame"
-    ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+    ddf, label = as_frame(data)
     meta = ddf._meta
     if not isinstance(target, str):
         raise DataError("With sharded data (a dask DataFrame or a file pattern), 'target' must be a "
@@ -153,12 +169,7 @@ def open_source(data, target, *, kind: str, features: Sequence[str] | None, weig
                             f"for labels use lo.classification.")
     text = [c for c in features if _kind_of(meta[c]) == "category"]
     wanted = text + ([target] if kind == "classification" else [])
-    try:
-        found = dask.compute(*[ddf[c].drop_duplicates() for c in wanted], ddf.map_partitions(len))
-    except LearnoptError:
-        raise
-    except Exception as exc:  # noqa: BLE001 - reading errors come in many types; all mean "cannot read"
-        raise DataError(f"The data {label!r} could not be read: {str(exc).splitlines()[0][:300]}") from None
+    found = compute(label, *[ddf[c].drop_duplicates() for c in wanted], ddf.map_partitions(len))
     uniques, sizes = found[:-1], np.asarray(found[-1], dtype=np.int64)
     levels = {c: list(u) for c, u in zip(text, uniques)}
     enc = encode(meta, features, intercept, levels=levels)
@@ -405,7 +416,6 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
     pass over the partitions (each term's sums added up, then substituted exactly). Rules on
     predictions row by row are checked on a sample of rows and returned as text: each
     partition compiles them for its own rows when the task is solved (consensus ADMM)."""
-    import dask
     from dask import delayed
     from .routes.base import design_with_ones
     from .rules import Context, NoRows, TextRule, compile_all, parse
@@ -462,13 +472,8 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
     if pending:
         texts = [t for t, _, _, _ in pending]
         fn = delayed(_rule_partials, pure=True)
-        try:
-            parts = dask.compute(*[fn(part, ds.spec, texts, names, reference, task.intercept, k)
-                                   for k, part in enumerate(ds.source.to_delayed())])
-        except LearnoptError:
-            raise
-        except Exception as exc:  # noqa: BLE001 - reading errors come in many types
-            raise DataError(f"The data {ds.label!r} could not be read: {str(exc).splitlines()[0][:300]}") from None
+        parts = compute(ds.label, *[fn(part, ds.spec, texts, names, reference, task.intercept, k)
+                                    for k, part in enumerate(ds.source.to_delayed())])
         for i, (text, reqs, hook, place) in enumerate(pending):
             terms = []
             for j, fn_name in enumerate(hook.calls):
@@ -538,30 +543,18 @@ class ShardedPoints:
 
 def open_points(data, weights, features) -> ShardedPoints:
     """Validate sharded points: numeric coordinate columns, a weights column; count them."""
-    dask, _ = _dask()
-    label = os.fspath(data) if isinstance(data, (str, os.PathLike)) else "dask DataFrame"
-    ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+    ddf, label = as_frame(data)
     meta = ddf._meta
     if weights is not None and not isinstance(weights, str):
         raise DataError("centres: with sharded data, 'weights' must be a column name.")
     if weights is not None and weights not in meta.columns:
         raise DataError(f"centres: no weights column {weights!r}.{_close(weights, meta.columns)}")
-    cols = list(features) if features is not None else [
-        c for c in meta.columns if c != weights and pd.api.types.is_numeric_dtype(meta[c])
-        and not pd.api.types.is_bool_dtype(meta[c])]
-    missing = [c for c in cols if c not in meta.columns]
-    if missing:
-        raise DataError(f"centres: no column(s) {missing}; the data has {list(meta.columns)}.")
-    bad = [c for c in cols if not pd.api.types.is_numeric_dtype(meta[c])]
-    if bad:
-        raise DataError(f"centres: column(s) {bad} are not numeric; centres need numeric coordinates.")
+    from .centres import coordinate_columns
+    cols = coordinate_columns(meta, features, weights)
     if not cols:
         raise DataError("centres: the data has no numeric coordinate columns.")
     w = ddf[weights] if weights is not None else None
-    try:
-        n, positive = dask.compute(ddf.map_partitions(len).sum(), (w > 0).sum() if w is not None else 0)
-    except Exception as exc:  # noqa: BLE001 - reading errors come in many types
-        raise DataError(f"The data {label!r} could not be read: {str(exc).splitlines()[0][:300]}") from None
+    n, positive = compute(label, ddf.map_partitions(len).sum(), (w > 0).sum() if w is not None else 0)
     n = int(n)
     if n == 0:
         raise DataError("centres: the data has no points.")
@@ -724,7 +717,7 @@ def evaluation_sums(task, w, b, data) -> np.ndarray:
     from dask import delayed
     if task.dataset.encoding is None or not isinstance(task.target_name, str):
         raise DataError("evaluate() on sharded data needs a task built from a table with a named target column.")
-    ddf = read_glob(data) if isinstance(data, (str, os.PathLike)) else data
+    ddf, _ = as_frame(data)
     if task.target_name not in ddf.columns:
         raise DataError(f"The evaluation data has no target column {task.target_name!r}.")
     spec = BlockSpec(task.dataset.encoding, task.target_name, None, task.kind, task.dataset.labels)

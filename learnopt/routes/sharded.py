@@ -33,8 +33,8 @@ import warnings
 import cvxpy as cp
 import numpy as np
 
-from ..certify import (Certificate, _active_targets, _inf_penalty, _null_space, feasibility,
-                       requirement_terms, no_conjugate)
+from ..certify import (Certificate, _inf_penalty, _null_space, feasibility, no_conjugate, repair_targets,
+                       requirement_terms)
 from ..errors import ParameterError
 from ..shards import Blocks, _add
 from . import compressed, newton
@@ -316,16 +316,8 @@ def certify_sharded(blocks: Blocks, task, theta, multipliers, common: dict, u_bl
         value = float(-conj - lin + s * const_req + inner)
         return value if np.isfinite(value) else -np.inf
 
-    dual, seen = -np.inf, set()
-    for threshold in (1e-9, 1e-6, None):
-        active = None if threshold is None else _active_targets(theta[:d], penalties, names, len(theta), threshold)
-        key = None if active is None else tuple(np.flatnonzero(active[0].any(axis=0)))
-        if key in seen:
-            continue
-        seen.add(key)
-        T, t = N.T, np.zeros(N.shape[1])
-        if active is not None:
-            T, t = np.vstack([T, active[0]]), np.concatenate([t, active[1]])
+    dual = -np.inf
+    for T, t in repair_targets(theta, penalties, names, N):
         st, sums = states, (g0, absg, Q, conj, lin)
         target = 1e-14 * (1.0 + np.abs(t).max(initial=0.0))
         for _ in range(5 if T.shape[0] else 0):
@@ -361,7 +353,8 @@ class _Sharded:
             raise DataError("The weights sum to zero over every partition; at least one row needs a "
                             "positive weight.")
         self.W = W
-        self.common = dict(loss=task.loss, margin=task.loss.argument == "margin", intercept=task.intercept, W=W)
+        self.rows_args = dict(margin=task.loss.argument == "margin", intercept=task.intercept, W=W)
+        self.common = dict(loss=task.loss, **self.rows_args)
 
     def loss_sum(self, theta) -> float:
         return self.blocks.total(_loss_sum, theta=np.asarray(theta, float), **self.common)
@@ -410,7 +403,7 @@ class NewtonRunner(_Sharded, newton.Runner):
         newton.Runner.__init__(self, task, None)
 
     def _rows(self) -> float:
-        return self.blocks.total(_trace, **{k: v for k, v in self.common.items() if k != "loss"})
+        return self.blocks.total(_trace, **self.rows_args)
 
     def objective(self, theta):
         return self.loss_sum(theta) + penalty_value(self.task, theta)
@@ -445,7 +438,7 @@ class AdmmRunner(_Sharded, RunnerBase):
         self.relax = relax
         p = task.dataset.d + int(task.intercept)
         self.p, self.K = p, len(blocks)
-        self.size = blocks.total(_trace, **{k: v for k, v in self.common.items() if k != "loss"}) / p
+        self.size = blocks.total(_trace, **self.rows_args) / p
         self.rho0 = rho or max(self.size, 1e-12) / self.K
         # the consensus step: argmin penalties(z) + K rho / 2 |z - v|^2 subject to every rule
         z = cp.Variable(p, name="theta")
