@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 
 import learnopt as lo
-from learnopt.files import write_atomic
+from learnopt.core.files import write_atomic
 
 
 def _timed(fn, repeat):
@@ -59,7 +59,7 @@ def _data(n, d, seed, kind):
 
 def _objective(task, coef, intercept):
     """learnopt's objective for (coef, intercept) on the task's own data."""
-    from learnopt.routes.base import objective
+    from learnopt.problem.algebra import objective
     return objective(task, np.append(coef, intercept) if task.intercept else np.asarray(coef))
 
 
@@ -86,7 +86,7 @@ def _plain_cvxpy(task):
 
 def _constraint(r, w, b):
     theta = cp.hstack([w, cp.reshape(b, (1,), order="C")])
-    from learnopt.routes.base import requirement_constraint
+    from learnopt.problem.algebra import requirement_constraint
     return requirement_constraint(r, theta)
 
 

@@ -100,8 +100,8 @@ def growth(client, sizes) -> list[dict]:
 
 
 def admm_rounds(client, n: int) -> list[dict]:
-    from learnopt.routes import sharded
-    from learnopt.solve import solve_task
+    from learnopt.solve.routes import sharded
+    from learnopt.solve.loop import solve_task
     out = []
     with tempfile.TemporaryDirectory() as folder:
         pattern = write_table(folder, n, seed=1, kind="classification", file_rows=n // 4)

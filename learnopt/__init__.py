@@ -5,25 +5,25 @@ the answer back with evidence (certified gap, timings, prices of the rules).
 >>> lo.loss.huber(2.0)
 Huber(delta=2.0)
 """
-from . import losses as loss
-from . import penalties as penalty
-from . import rules as rule
-from .convexity import Verdict
-from .errors import (AccuracyWarning, DataError, LearnoptError, MissingDependencyError, NotConvexError, ParameterError,
+from learnopt.terms import losses as loss
+from learnopt.terms import penalties as penalty
+from learnopt import rules as rule
+from learnopt.terms.convexity import Verdict
+from learnopt.core.errors import (AccuracyWarning, DataError, LearnoptError, MissingDependencyError, NotConvexError, ParameterError,
                      SolverError, TooLargeError)
-from .evaluate import Evaluation
-from .fit import Attempt, Fit, Timings
-from .solvers import installed as installed_solvers
-from .centres import CentresFit, CentresTask, centres
-from .fusion import FusionFit, FusionTask, fusion
-from .task import Task, classification, regression
+from learnopt.solve.evaluation import Evaluation
+from learnopt.solve.fit import Attempt, Fit, Timings
+from learnopt.solve.solvers import installed as installed_solvers
+from learnopt.centres.placement import CentresFit, CentresTask, centres
+from learnopt.centres.fusion import FusionFit, FusionTask, fusion
+from learnopt.interface.task import Task, classification, regression
 
 __version__ = "0.1.0"
 
 
 def load_fit(path):
     """Read a fit saved with ``fit.save(path)``; it predicts exactly as the saved one did."""
-    from .modelfile import load
+    from learnopt.solve.fitfile import load
     return load(path)
 
 
@@ -32,7 +32,7 @@ def estimator(kind: str = "regression", loss=None, **options):
 
     See :func:`learnopt.adapter.estimator` for the parameters.
     """
-    from .adapter import estimator as _estimator
+    from learnopt.interface.adapter import estimator as _estimator
     return _estimator(kind, loss, **options)
 
 __all__ = [

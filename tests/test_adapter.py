@@ -12,7 +12,7 @@ from sklearn.pipeline import make_pipeline  # noqa: E402
 from sklearn.preprocessing import StandardScaler  # noqa: E402
 from sklearn.utils.estimator_checks import check_estimator  # noqa: E402
 
-from learnopt.adapter import expected_failed_checks  # noqa: E402
+from learnopt.interface.adapter import expected_failed_checks  # noqa: E402
 
 
 @pytest.mark.parametrize("est", [lo.estimator("regression"), lo.estimator("regression", l1=0.01),

@@ -153,7 +153,7 @@ def test_fusion_input_errors():
 
 
 def test_depot_demo_keeps_its_rules():
-    from learnopt.demo import depots
+    from learnopt.interface.demo import depots
     fit = depots()
     c = fit.centres
     assert tuple(c.loc[1]) == (0.5, 0.5)

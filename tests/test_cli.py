@@ -14,8 +14,8 @@ click = pytest.importorskip("click")
 pytest.importorskip("pydantic")
 from click.testing import CliRunner  # noqa: E402
 
-from learnopt.cli import main  # noqa: E402
-from learnopt.recipes import load_recipe, read_recipe  # noqa: E402
+from learnopt.interface.cli import main  # noqa: E402
+from learnopt.interface.recipes import load_recipe, read_recipe  # noqa: E402
 
 RECIPES = Path(__file__).resolve().parents[1] / "recipes"
 
@@ -86,7 +86,7 @@ def test_every_recipe_builds_the_same_task_as_the_python_api(name):
 
 
 def test_bundled_demo_recipe_is_the_one_in_recipes():
-    from learnopt.demo import demo_recipe
+    from learnopt.interface.demo import demo_recipe
     assert demo_recipe() == (RECIPES / "deliveries.toml").read_text(encoding="utf-8")
 
 
@@ -127,7 +127,7 @@ def test_demo_command_writes_data_recipe_and_report(tmp_path):
 
 
 def test_demo_as_a_subprocess(tmp_path):
-    proc = subprocess.run([sys.executable, "-m", "learnopt.cli", "demo", "--folder", str(tmp_path / "d"), "--json"],
+    proc = subprocess.run([sys.executable, "-m", "learnopt.interface.cli", "demo", "--folder", str(tmp_path / "d"), "--json"],
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode == 0, proc.stderr
     assert json.loads(proc.stdout)["fit"]["evidence"]["status"] == "optimal"

@@ -7,7 +7,7 @@ import pytest
 import scipy.sparse as sp
 
 import learnopt as lo
-from learnopt.demo import make_data
+from learnopt.interface.demo import make_data
 
 
 @pytest.fixture(scope="module")

@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 import learnopt as lo
-from learnopt.routes import ROUTES, _module
+from learnopt.solve.routes import ROUTES, _module
 
 NAMES = ["a", "b", "c", "d"]
 PENALTIES = [None, lo.penalty.l1(0.05), lo.penalty.l2(0.1), lo.penalty.elastic_net(0.05, 0.05),
@@ -73,7 +73,7 @@ def test_planner_names_the_route():
 def test_compressed_uses_qr_when_gram_is_ill_conditioned():
     # a design whose Gram matrix squares a condition number of ~1e6: the QR factor is used
     # and the answer matches numpy's lstsq (reference: numpy.linalg.lstsq, SVD based)
-    from learnopt.routes.compressed import factor
+    from learnopt.solve.routes.compressed import factor
     t = np.linspace(0.0, 1.0, 200)
     X = np.column_stack([t ** k for k in range(1, 7)])
     coef = np.array([1.0, -2.0, 3.0, -1.0, 0.5, 2.0])
@@ -136,7 +136,7 @@ def test_piecewise_linear_losses_declare_their_kinks():
 
 
 def test_direct_route_refuses_what_would_not_fit_in_memory():
-    from learnopt.routes.direct import check_size
+    from learnopt.solve.routes.direct import check_size
     X, y = _data(False)
     task = lo.regression(X, y, loss="absolute")
     check_size(task, available=1e12)                  # plenty: no complaint
@@ -149,8 +149,8 @@ def test_direct_route_refuses_what_would_not_fit_in_memory():
 def test_certificate_on_the_factor_agrees_with_the_one_on_every_row():
     # the compressed route's certificate works on ||R theta - r||^2 + constant; on the same
     # point it must give the dual bound of the full-data certificate (same quadratic)
-    from learnopt.routes import prepare
-    from learnopt.solve import certify_point
+    from learnopt.solve.routes import prepare
+    from learnopt.solve.loop import certify_point
     X, y = _data(False, n=400)
     task = lo.regression(X, y).penalize(lo.penalty.l1(0.05)).require("x0 >= 0.2", "x1 + x2 <= 0")
     fit = task.solve()
@@ -168,7 +168,7 @@ def test_large_ill_conditioned_sparse_design_is_not_densified(monkeypatch):
     # common practice: with the limit lowered, an ill-conditioned sparse design takes the
     # eigenvalue factor of the Gram matrix instead of a dense QR, and reaches the same optimum
     import scipy.sparse as sp
-    from learnopt.routes import compressed
+    from learnopt.solve.routes import compressed
     t = np.linspace(0.0, 1.0, 300)
     X = np.column_stack([t ** k for k in range(1, 7)])
     y = 1.0 + X @ np.array([1.0, -2.0, 3.0, -1.0, 0.5, 2.0]) + 0.01 * np.sin(40 * t)

@@ -16,8 +16,8 @@ import pandas as pd
 import pytest
 
 import learnopt as lo
-from learnopt.errors import DataError, ParameterError
-from learnopt.recipes import load_recipe
+from learnopt.core.errors import DataError, ParameterError
+from learnopt.interface.recipes import load_recipe
 
 dd = pytest.importorskip("dask.dataframe")
 distributed = pytest.importorskip("distributed")
@@ -190,7 +190,7 @@ def test_rules_row_by_row_errors(client):
     with pytest.raises(DataError, match="selects no rows of the data"):
         task.require("prediction >= 0 where site == 'nowhere'").solve(client=client)
     with pytest.raises(ParameterError, match="cannot apply rules row by row"):
-        from learnopt.routes import sharded
+        from learnopt.solve.routes import sharded
         sharded.Runner(task.require("prediction >= 0 where site == 'mill'"), client=client, method="gram")
     with pytest.raises(DataError, match="unknown name 'sight'. Close matches: site. Coefficients: f0"):
         task.require("mean(prediction where sight == 'mill') <= 1")
@@ -249,8 +249,8 @@ def test_hinge_by_admm_equals_in_memory(client, tmp_path):
 
 
 def test_admm_on_a_smooth_loss_reaches_the_newton_answer(client, tmp_path):
-    from learnopt.routes import sharded
-    from learnopt.solve import solve_task
+    from learnopt.solve.routes import sharded
+    from learnopt.solve.loop import solve_task
     frame = make_classes(1200)
     pattern = write_parts(frame, tmp_path, 3)
     task = lo.classification(pattern, target="label", loss="logistic").penalize(lo.penalty.l2(0.05))
@@ -316,8 +316,8 @@ def test_bad_sharded_input_gets_clear_errors(client, tmp_path):
                       f'target = "label"\n[task.loss]\nname = "logistic"\n')
     assert load_recipe(recipe).sharded
     recipe.write_text(recipe.read_text() + '[do]\nholdout = { fraction = 0.2 }\n')
-    from learnopt.jobs import run
-    from learnopt.recipes import read_recipe
+    from learnopt.interface.jobs import run
+    from learnopt.interface.recipes import read_recipe
     with pytest.raises(DataError, match="random held-out split of sharded data is not available"):
         run(read_recipe(recipe))
     small_task = lo.regression(pd.DataFrame({"a": [1.0, 2.0, 4.0], "b": [1.0, 3.0, 2.0]}), target="b")
@@ -396,7 +396,7 @@ def test_iris_centres_on_shards_reach_the_published_optimum(client, tmp_path):
 
 def test_constrained_centres_on_shards_match_the_in_memory_fit(client, tmp_path):
     # invented demo points (Lanternfield bike stops); reference: the in-memory fit of the same task
-    from learnopt.demo import make_bike_stops
+    from learnopt.interface.demo import make_bike_stops
     data = make_bike_stops()
     pattern = write_parts(data, tmp_path, 4)
     where = ["east_km", "north_km"]
@@ -414,7 +414,7 @@ def test_constrained_centres_on_shards_match_the_in_memory_fit(client, tmp_path)
 
 
 def test_the_cluster_is_found_by_address_or_as_dask_s_current_client(client, tmp_path):
-    from learnopt import shards
+    from learnopt.scale import cluster as shards
     frame = make_classes(400).drop(columns="label")
     frame["y"] = 2.0 * frame["f0"] + 1.0
     pattern = write_parts(frame, tmp_path, 2)
@@ -434,8 +434,8 @@ def test_a_recipe_with_a_file_pattern_runs_on_the_cluster(client, tmp_path):
     # few hundred rounds, tested above without a recipe); reference: the in-memory run
     import json
     from click.testing import CliRunner
-    from learnopt.cli import main
-    from learnopt.demo import demo_recipe, make_data
+    from learnopt.interface.cli import main
+    from learnopt.interface.demo import demo_recipe, make_data
     (tmp_path / "data").mkdir()
     write_parts(make_data(), tmp_path / "data", 3, kind="csv")
     make_data().to_csv(tmp_path / "data" / "whole.csv.gz", index=False)

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from learnopt.demo import make_data
+from learnopt.interface.demo import make_data
 
 HERE = Path(__file__).resolve().parent
 

@@ -161,7 +161,7 @@ def test_longley_certified_values(loss, route):
 def test_rules_and_penalties_survive_the_change_of_basis():
     # the rewritten task is the same problem: a rule and an l1 penalty on Longley give the same
     # certified objective whether or not the basis is changed (common practice: reparametrisation)
-    from learnopt import basis
+    from learnopt.problem import basis
     data = sm.datasets.longley.load_pandas().data
     task = lo.regression(data, target="TOTEMP").penalize(lo.penalty.elastic_net(0.5, 0.5)).require(
         "GNPDEFL <= 10", "0.5 * UNEMP + ARMED >= -3")

@@ -1,0 +1,386 @@
+"""The data gateway: every table enters here and leaves as float64 arrays with names attached.
+
+Accepted data: a pandas DataFrame (``target`` and ``weights`` are column names), a path to a
+CSV or Parquet file, or a numpy / scipy.sparse matrix (then ``target`` is the y array and the
+coefficient names are x0, x1, ...). Text and categorical columns are one-hot encoded with
+names like ``region=north``; when the task has an intercept the first level (in sorted order)
+is the reference level and gets no column, so the coefficients are differences from it.
+A rule may name the reference level (its coefficient is 0 by construction). Booleans become 0/1. Anything unusable raises :class:`DataError` naming the column and the fix.
+"""
+from __future__ import annotations
+
+import difflib
+import os
+from dataclasses import dataclass, field
+from typing import Any, ClassVar, Sequence
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from learnopt.core.errors import DataError
+
+
+@dataclass(frozen=True)
+class Encoding:
+    """How a frame's columns become the design matrix; reused for new data."""
+
+    columns: tuple[str, ...]                          # input columns, in order
+    levels: dict[str, tuple[str, ...]]               # categorical column -> kept levels
+    reference: dict[str, str]                        # categorical column -> dropped level
+    names: tuple[str, ...]                           # coefficient names
+
+
+@dataclass(eq=False)
+class Dataset:
+    """Validated data: design X (n x d), target y, row weights, names and the raw frame."""
+
+    X: np.ndarray | sp.csr_matrix
+    y: np.ndarray
+    weights: np.ndarray
+    names: tuple[str, ...]
+    frame: pd.DataFrame | None
+    encoding: Encoding | None
+    labels: tuple[Any, Any] | None = None          # (negative, positive) for classification
+    notes: list[str] = field(default_factory=list)
+    sharded: ClassVar[bool] = False
+    label: ClassVar[str] = "in-memory data"
+
+    @property
+    def n(self) -> int:
+        return self.X.shape[0]
+
+    @property
+    def d(self) -> int:
+        return self.X.shape[1]
+
+
+def read_table(path: str | os.PathLike) -> pd.DataFrame:
+    path = os.fspath(path)
+    if any(ch in path for ch in "*?["):
+        raise DataError(f"{path!r} is a file pattern: patterns are read as sharded data by "
+                        f"lo.regression / lo.classification / lo.centres and a recipe's data.path; "
+                        f"here give one file.")
+    if not os.path.exists(path):
+        raise DataError(f"Data file {path!r} does not exist; check the path (relative paths are "
+                        f"taken from the working directory {os.getcwd()!r}).")
+    lower = path.lower()
+    try:
+        if lower.endswith((".parquet", ".pq")):
+            return pd.read_parquet(path)
+        if lower.endswith((".csv", ".txt", ".csv.gz")):
+            return pd.read_csv(path)
+    except ImportError as exc:
+        raise DataError(f"Reading {path!r} needs an optional package: {exc}.") from None
+    except (ValueError, pd.errors.ParserError, UnicodeDecodeError, OSError) as exc:
+        raise DataError(f"Data file {path!r} could not be read: {exc}.") from None
+    raise DataError(f"Data file {path!r}: unknown file type; use .csv or .parquet.")
+
+
+def _close(name: str, options: Sequence[str]) -> str:
+    close = difflib.get_close_matches(str(name), [str(o) for o in options], n=3)
+    return f" Close matches: {', '.join(close)}." if close else ""
+
+
+def _column(frame: pd.DataFrame, name, role: str) -> pd.Series:
+    if not isinstance(name, str) or name not in frame.columns:
+        raise DataError(f"The {role} column {name!r} is not in the data.{_close(name, frame.columns)} "
+                        f"Columns: {', '.join(map(str, frame.columns))}.")
+    return frame[name]
+
+
+def _finite(values: np.ndarray, what: str) -> None:
+    bad = ~np.isfinite(values)
+    if bad.any():
+        rows = np.flatnonzero(bad)
+        raise DataError(f"{what} has {bad.sum()} missing or infinite value(s) (first at row "
+                        f"{rows[0]}); drop or fill those rows before fitting.")
+
+
+def _weights(weights, frame, n) -> tuple[np.ndarray, str | None]:
+    if weights is None:
+        return np.ones(n), None
+    if isinstance(weights, str):
+        if frame is None:
+            raise DataError("weights given as a column name, but the data is an array; pass the weights as an array.")
+        col = _column(frame, weights, "weights")
+        if not pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
+            raise DataError(f"The weights column {weights!r} must be numeric.")
+        w, label = col.to_numpy(dtype=float), f"weights column {weights!r}"
+    else:
+        w, label = np.asarray(weights, dtype=float).ravel(), "weights"
+        if w.size != n:
+            raise DataError(f"{w.size} weights given for {n} rows; give one weight per row.")
+    _finite(w, label.capitalize())
+    if np.any(w < 0):
+        raise DataError(f"{label.capitalize()} has negative values (first at row {np.flatnonzero(w < 0)[0]}); "
+                        f"weights must be >= 0.")
+    if w.sum() <= 0:
+        raise DataError(f"{label.capitalize()} sums to zero; at least one row needs a positive weight.")
+    return w, (weights if isinstance(weights, str) else None)
+
+
+def _kind_of(col: pd.Series) -> str:
+    if pd.api.types.is_bool_dtype(col):
+        return "bool"
+    if pd.api.types.is_datetime64_any_dtype(col) or pd.api.types.is_timedelta64_dtype(col):
+        return "datetime"
+    if pd.api.types.is_numeric_dtype(col):
+        return "numeric"
+    return "category"
+
+
+def _levels(col: pd.Series, name: str) -> list[str]:
+    if col.isna().any():
+        raise DataError(f"Column {name!r} has {int(col.isna().sum())} missing value(s); fill them "
+                        f"(e.g. with a level 'unknown') or drop those rows.")
+    types = {type(v) for v in col.tolist()}
+    if len(types) > 1 and str in types:
+        raise DataError(f"Column {name!r} mixes text and numbers ({', '.join(sorted(t.__name__ for t in types))}); "
+                        f"make it all text (a category) or all numbers.")
+    return sorted({str(v) for v in col.tolist()})
+
+
+def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
+           levels: dict[str, list] | None = None) -> Encoding:
+    """Decide the encoding of ``columns`` of ``frame`` (levels, names).
+
+    ``levels``: the distinct values of text columns when ``frame`` holds only the column types
+    (sharded data, where they come from a pass over the partitions).
+    """
+    seen = levels or {}
+    names, levels, reference = [], {}, {}
+    for c in columns:
+        col = frame[c]
+        kind = _kind_of(col)
+        if kind == "datetime":
+            raise DataError(f"Column {c!r} holds dates/times; convert it to a number (e.g. days "
+                            f"since a start date) or to text categories before fitting.")
+        if kind == "category":
+            lv = _levels(pd.Series(seen[c], dtype=object) if c in seen else col, c)
+            kept = lv[1:] if intercept and len(lv) > 1 else lv
+            if intercept and len(lv) > 1:
+                reference[c] = lv[0]
+            levels[c] = tuple(kept)
+            names.extend(f"{c}={v}" for v in kept)
+        else:
+            names.append(str(c))
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise DataError(f"Coefficient names {dup} occur more than once (a column name clashes with "
+                        f"an encoded level name); rename the columns.")
+    return Encoding(tuple(columns), levels, reference, tuple(names))
+
+
+def design(encoding: Encoding, frame: pd.DataFrame) -> np.ndarray:
+    """Apply an encoding to a frame: the float64 design matrix, columns in ``encoding.names``."""
+    missing = [c for c in encoding.columns if c not in frame.columns]
+    if missing:
+        raise DataError(f"The data lacks the feature column(s) {missing}; it needs "
+                        f"{', '.join(encoding.columns)}.")
+    if len(frame) == 0:
+        raise DataError("The data has no rows.")
+    blocks = []
+    for c in encoding.columns:
+        col = frame[c]
+        if c in encoding.levels:
+            text = col.astype(object)
+            lv = _levels(text, c)
+            known = set(encoding.levels[c]) | ({encoding.reference[c]} if c in encoding.reference else set())
+            unseen = [v for v in lv if v not in known]
+            if unseen:
+                raise DataError(f"Column {c!r} has level(s) {unseen} that the training data did not "
+                                f"have; known levels: {sorted(known)}. Map them to a known level first.")
+            s = text.map(str).to_numpy()
+            blocks.append(np.column_stack([(s == v).astype(float) for v in encoding.levels[c]])
+                          if encoding.levels[c] else np.zeros((len(frame), 0)))
+        else:
+            kind = _kind_of(col)
+            if kind not in ("numeric", "bool"):
+                raise DataError(f"Column {c!r} was numeric in the training data but is {col.dtype} here; "
+                                f"convert it to numbers.")
+            v = col.to_numpy(dtype=float)
+            _finite(v, f"Column {c!r}")
+            if np.any(np.abs(v) > 1e150):
+                raise DataError(f"Column {c!r} has values beyond 1e150 in size; rescale it (e.g. to "
+                                f"thousands or millions) before fitting.")
+            blocks.append(v[:, None])
+    return np.hstack(blocks) if blocks else np.zeros((len(frame), 0))
+
+
+def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
+    if kind == "regression":
+        s = pd.Series(values)
+        if not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
+            raise DataError(f"The target {name} must be numeric for regression (it is {s.dtype}); "
+                            f"for labels use lo.classification.")
+        y = s.to_numpy(dtype=float)
+        _finite(y, f"The target {name}")
+        return y, None
+    s = pd.Series(values)
+    if s.isna().any():
+        raise DataError(f"The target {name} has {int(s.isna().sum())} missing label(s); drop those rows.")
+    neg, pos = labels_of(s.tolist(), positive, name)
+    y = np.where(s.to_numpy() == pos, 1.0, -1.0)
+    return y, (neg, pos)
+
+
+def labels_of(values: list, positive, name: str) -> tuple:
+    """(negative, positive) labels of a binary target from its values (or distinct values)."""
+    if pd.Series(values, dtype=object).isna().any():
+        raise DataError(f"The target {name} has missing label(s); drop those rows.")
+    labels = sorted(set(values), key=lambda v: (str(type(v)), v))
+    if len(labels) != 2:
+        shown = labels[:6]
+        raise DataError(f"The target {name} has {len(labels)} label(s) {shown}{'...' if len(labels) > 6 else ''}; "
+                        f"a binary loss needs exactly two. Merge labels into two classes or pick two.")
+    if positive is None:
+        pos = labels[-1]
+    elif positive in labels:
+        pos = positive
+    else:
+        raise DataError(f"positive={positive!r} is not one of the target labels {labels}.")
+    neg = labels[0] if pos == labels[1] else labels[1]
+    return neg, pos
+
+
+def open_memory(data, target, *, kind: str = "regression", features: Sequence[str] | None = None,
+                weights=None, intercept: bool = True, positive=None) -> Dataset:
+    """Validate in-memory inputs of a task (a DataFrame, a CSV/Parquet path, a numpy or sparse
+    matrix) and return a :class:`Dataset`."""
+    if isinstance(data, (str, os.PathLike)):
+        data = read_table(data)
+    if isinstance(data, pd.DataFrame):
+        return _from_frame(data, target, kind, features, weights, intercept, positive)
+    if isinstance(data, (np.ndarray, list)) or sp.issparse(data):
+        return _from_array(data, target, kind, features, weights, positive)
+    raise DataError(f"Data of type {type(data).__name__} is not supported; give a pandas DataFrame, "
+                    f"a CSV/Parquet path, or a numpy / scipy.sparse matrix.")
+
+
+def _from_frame(frame, target, kind, features, weights, intercept, positive) -> Dataset:
+    if frame.shape[0] == 0:
+        raise DataError("The data has no rows.")
+    if frame.columns.duplicated().any():
+        dup = sorted(set(map(str, frame.columns[frame.columns.duplicated()])))
+        raise DataError(f"The data has duplicate column names {dup}; rename them.")
+    frame = frame.reset_index(drop=True)
+    if isinstance(target, str):
+        ycol = _column(frame, target, "target")
+        tname = repr(target)
+    else:
+        ycol = np.asarray(target)
+        if ycol.ndim != 1 or ycol.shape[0] != len(frame):
+            raise DataError(f"The target array has shape {ycol.shape}; it needs one value per row ({len(frame)}).")
+        tname = "array"
+    w, wcol = _weights(weights, frame, len(frame))
+    if features is None:
+        features = [c for c in frame.columns if c != target and c != wcol]
+    else:
+        if isinstance(features, str):
+            features = [features]
+        features = list(features)
+        missing = [f for f in features if f not in frame.columns]
+        if missing:
+            raise DataError(f"Feature column(s) {missing} are not in the data."
+                            f"{_close(missing[0], frame.columns)} Columns: {', '.join(map(str, frame.columns))}.")
+        if isinstance(target, str) and target in features:
+            raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
+    if not features and not intercept:
+        raise DataError("The task has no features and no intercept; nothing to fit.")
+    enc = encode(frame, features, intercept)
+    X = design(enc, frame)
+    y, labels = _target(ycol, kind, positive, tname)
+    notes = _notes(X, enc.names)
+    return Dataset(X, y, w, enc.names, frame, enc, labels, notes)
+
+
+def _from_array(X, target, kind, features, weights, positive) -> Dataset:
+    if sp.issparse(X):
+        X = sp.csr_matrix(X, dtype=float)
+        _finite(X.data, "The data matrix")
+    else:
+        X = np.asarray(X)
+        if X.dtype.kind not in "biuf":
+            raise DataError(f"The data matrix has dtype {X.dtype}; it must be numeric. Use a DataFrame "
+                            f"for text columns.")
+        X = np.asarray(X, dtype=float)
+        if X.ndim == 1:
+            X = X[:, None]
+        if X.ndim != 2:
+            raise DataError(f"The data matrix must be 2-D (rows x features); got shape {X.shape}.")
+        _finite(X, "The data matrix")
+    if X.shape[0] == 0:
+        raise DataError("The data has no rows.")
+    if target is None or isinstance(target, str):
+        raise DataError("With array data, 'target' must be the array of target values (one per row), "
+                        "not a column name.")
+    yv = np.asarray(target).ravel()
+    if yv.shape[0] != X.shape[0]:
+        raise DataError(f"The target has {yv.shape[0]} values for {X.shape[0]} rows.")
+    names = tuple(features) if features is not None else tuple(f"x{j}" for j in range(X.shape[1]))
+    if len(names) != X.shape[1] or len(set(names)) != len(names):
+        raise DataError(f"features must give {X.shape[1]} distinct names for the matrix columns; got {list(names)}.")
+    w, _ = _weights(weights, None, X.shape[0])
+    y, labels = _target(yv, kind, positive, "array")
+    return Dataset(X, y, w, names, None, None, labels, _notes(X, names))
+
+
+def _notes(X, names) -> list[str]:
+    """Data findings that do not stop the fit (reported by task.check())."""
+    notes = []
+    if X.shape[1] == 0:
+        return notes
+    dense = X.toarray() if sp.issparse(X) and X.shape[0] * X.shape[1] < 5e6 else X
+    if sp.issparse(dense):
+        return notes
+    span = dense.max(axis=0) - dense.min(axis=0)
+    const = [names[j] for j in np.flatnonzero(span == 0)]
+    if const:
+        notes.append(f"constant column(s) {const}: their coefficients are not identified apart from "
+                     f"the intercept unless a penalty or rule pins them.")
+    if X.shape[0] < X.shape[1]:
+        notes.append(f"more features ({X.shape[1]}) than rows ({X.shape[0]}): without a penalty the "
+                     f"coefficients are not unique.")
+    scale = np.abs(dense).max(axis=0)
+    scale = scale[scale > 0]
+    if scale.size and scale.max() / scale.min() > 1e6:
+        notes.append(f"column magnitudes differ by a factor {scale.max() / scale.min():.1e}; consider "
+                     f"rescaling for accuracy.")
+    return notes
+
+
+def new_design(ds: Dataset, data) -> np.ndarray | sp.csr_matrix:
+    """Design matrix of new data, encoded exactly like the training data."""
+    if isinstance(data, (str, os.PathLike)):
+        data = read_table(data)
+    if ds.encoding is not None:
+        if not isinstance(data, pd.DataFrame):
+            raise DataError("This task was built from a DataFrame; give new data as a DataFrame "
+                            f"with the columns {', '.join(ds.encoding.columns)}.")
+        return design(ds.encoding, data.reset_index(drop=True))
+    if sp.issparse(data):
+        X = sp.csr_matrix(data, dtype=float)
+    else:
+        X = np.asarray(data, dtype=float)
+        if X.ndim == 1:
+            X = X[None, :] if ds.d > 1 else X[:, None]
+        _finite(X, "The new data matrix")
+    if X.shape[1] != ds.d:
+        raise DataError(f"The new data has {X.shape[1]} columns; the task has {ds.d} features.")
+    return X
+
+
+def take_rows(ds: Dataset, rows: np.ndarray) -> Dataset:
+    """The same dataset restricted to ``rows`` (encoding, names and labels unchanged)."""
+    rows = np.asarray(rows)
+    frame = ds.frame.iloc[rows] if ds.frame is not None else None
+    return Dataset(ds.X[rows], ds.y[rows], ds.weights[rows], ds.names, frame, ds.encoding, ds.labels,
+                   list(ds.notes))
+
+
+def design_with_ones(X, intercept: bool):
+    if not intercept:
+        return X
+    ones = np.ones((X.shape[0], 1))
+    return sp.hstack([X, sp.csr_matrix(ones)], format="csr") if sp.issparse(X) else np.hstack([X, ones])

@@ -1,0 +1,113 @@
+"""Running a recipe: build the task, do the action, write the outputs (each atomically)."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from learnopt.core.errors import DataError
+from learnopt.core.files import write_atomic
+from learnopt.interface.recipes import Recipe, _frame, build_task
+
+
+@dataclass
+class Job:
+    """What a recipe run produced."""
+
+    recipe: Recipe
+    task: object
+    fit: object = None
+    compare: pd.DataFrame | None = None
+    path: object = None
+    evaluation: object = None
+    written: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return self.fit is not None and self.fit.status == "optimal"
+
+
+def _split(recipe: Recipe, frame):
+    hold = recipe.do.holdout
+    if hold is None:
+        return frame, None
+    if not isinstance(frame, pd.DataFrame) and hold.path is None:
+        raise DataError("do.holdout.fraction: a random held-out split of sharded data is not available; "
+                        "give do.holdout.path (a held-out file) instead.")
+    if hold.path is not None:
+        from learnopt.data.table import read_table
+        from learnopt.data.sharded import read_glob
+        from learnopt.data.gateway import is_sharded_source
+        path = recipe.resolve(hold.path)
+        return frame, (read_glob(path) if is_sharded_source(path) else read_table(path))
+    rng = np.random.default_rng(hold.seed)
+    test = rng.random(len(frame)) < hold.fraction
+    return frame.loc[~test], frame.loc[test]
+
+
+def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n=None,
+        report: str | None = None) -> Job:
+    """Do what the recipe says (``action``/``solvers``/``grid``/``n``/``report`` override it)."""
+    frame = _frame(recipe)
+    train, held = _split(recipe, frame)
+    task = build_task(recipe, train)
+    job = Job(recipe, task)
+    s = recipe.solve
+    opts = dict(tol=s.tol, gap_tol=s.gap_tol, feas_tol=s.feas_tol)
+    action = action or recipe.do.action
+    if action == "compare":
+        job.compare = task.compare(list(solvers or recipe.do.solvers), **opts)
+    if action == "path":
+        job.path = task.path(recipe.do.penalty if task.penalties else None,
+                             grid=grid if grid is not None else recipe.do.grid, n=n or recipe.do.n,
+                             route=s.route, solver=s.solver, progress=None, **opts)
+    extra = {"client": s.cluster} if task.sharded else {}
+    job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **extra, **opts)
+    if held is not None and job.fit.status in ("optimal", "unverified"):
+        job.evaluation = job.fit.evaluate(held)
+    _outputs(job, frame, report)
+    return job
+
+
+def _prediction_chunks(lazy):
+    """CSV text of a lazy dask Series of predictions, one partition at a time."""
+    start = 0
+    for k, part in enumerate(lazy.to_delayed()):
+        values = part.compute()
+        chunk = pd.DataFrame({"prediction": values.to_numpy()}, index=pd.RangeIndex(start, start + len(values)))
+        start += len(values)
+        yield chunk.to_csv(index_label="row", header=k == 0)
+
+
+def _outputs(job: Job, frame, report: str | None) -> None:
+    out, fit, recipe = job.recipe.outputs, job.fit, job.recipe
+    if out.fit:
+        path = recipe.resolve(out.fit)
+        fit.save(path)
+        job.written.append(path)
+    if out.coefficients:
+        path = recipe.resolve(out.coefficients)
+        write_atomic(path, fit.coefficients().to_csv(index_label="name"))
+        job.written.append(path)
+    if out.predictions and fit.status in ("optimal", "unverified"):
+        path = recipe.resolve(out.predictions)
+        if isinstance(frame, pd.DataFrame):
+            pred = pd.DataFrame({"prediction": fit.predict(frame)})
+            write_atomic(path, pred.to_csv(index_label="row"))
+        else:          # sharded: partition by partition, rows numbered across partitions
+            write_atomic(path, _prediction_chunks(fit.predict(frame)))
+        job.written.append(path)
+    if out.path and job.path is not None:
+        path = recipe.resolve(out.path)
+        write_atomic(path, job.path.table.to_csv(index=False))
+        job.written.append(path)
+    if out.compare and job.compare is not None:
+        path = recipe.resolve(out.compare)
+        write_atomic(path, job.compare.to_csv())
+        job.written.append(path)
+    target = report or (recipe.resolve(out.report) if out.report else None)
+    if target:
+        from learnopt.interface.report import html
+        write_atomic(target, html(job))
+        job.written.append(target)

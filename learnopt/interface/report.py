@@ -1,0 +1,115 @@
+"""A self-contained HTML report of a recipe run (tables, and plots inlined as PNG when
+matplotlib is installed)."""
+from __future__ import annotations
+
+import base64
+import html as _html
+import io
+
+import numpy as np
+import pandas as pd
+
+from learnopt.solve.fit import DISCLAIMER
+
+STYLE = """body{font-family:system-ui,sans-serif;max-width:60rem;margin:2rem auto;color:#222}
+table{border-collapse:collapse;margin:.5rem 0}td,th{border:1px solid #ccc;padding:.2rem .5rem;text-align:right}
+th{background:#f3f3f3}tr.binding td{background:#fff3cd}.note{color:#555;font-size:.9rem}
+code{background:#f5f5f5;padding:0 .2rem}img{max-width:100%}"""
+
+
+def _table(frame: pd.DataFrame, highlight=None) -> str:
+    head = "".join(f"<th>{_html.escape(str(c))}</th>" for c in [frame.index.name or ""] + list(frame.columns))
+    rows = []
+    for idx, row in frame.iterrows():
+        cls = ' class="binding"' if highlight is not None and highlight.get(idx, False) else ""
+        cells = "".join(f"<td>{_html.escape(_fmt(v))}</td>" for v in row)
+        rows.append(f"<tr{cls}><th>{_html.escape(str(idx))}</th>{cells}</tr>")
+    return f"<table><tr>{head}</tr>{''.join(rows)}</table>"
+
+
+def _fmt(v) -> str:
+    if isinstance(v, (float, np.floating)):
+        return f"{v:.6g}"
+    return str(v)
+
+
+def _png(draw) -> str:
+    """An <img> with the figure inlined, or a note when matplotlib is missing."""
+    try:
+        import matplotlib
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+    except ImportError:
+        return '<p class="note">Plots need matplotlib (pip install \'learnopt[plot]\').</p>'
+    fig, ax = plt.subplots(figsize=(6.5, 3.2))
+    draw(ax)
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=100)
+    plt.close(fig)
+    return f'<img alt="plot" src="data:image/png;base64,{base64.b64encode(buf.getvalue()).decode()}">'
+
+
+def _argument_histogram(task, theta, bins: int = 40):
+    """Histogram of the loss argument on the training rows (by passes for sharded data)."""
+    if task.sharded:
+        from learnopt.scale.passes import argument_histogram
+        return argument_histogram(task.dataset, theta, task.intercept, task.loss.argument == "margin", bins)
+    from learnopt.problem.algebra import loss_argument
+    M, q, _ = loss_argument(task)
+    return np.histogram(M @ theta - q, bins=bins)
+
+
+def _maths(task) -> str:
+    f = task.loss.describe()
+    arg = "y_i (x_i'w + b)" if task.loss.argument == "margin" else "x_i'w + b - y_i"
+    pens = " + ".join(p.describe() for p in task.penalties) or "0"
+    return (f"minimise over w{', b' if task.intercept else ''}: &Sigma;<sub>i</sub> a<sub>i</sub> "
+            f"{_html.escape(f)}({arg}) + {_html.escape(pens)} subject to the rules below, "
+            f"with row weights a<sub>i</sub> summing to one (the weighted mean loss).")
+
+
+def html(job) -> str:
+    fit, task, recipe = job.fit, job.task, job.recipe
+    parts = [f"<h1>{_html.escape(recipe.title or 'learnopt fit')}</h1>",
+             f"<p>{task.dataset.n} rows, {task.dataset.d} coefficients; {_html.escape(task.kind)} with the "
+             f"{_html.escape(task.loss.describe())} loss.</p><p>{_maths(task)}</p>"]
+    if task.rules:
+        parts.append("<h2>Rules</h2><ul>" + "".join(f"<li><code>{_html.escape(r.text)}</code></li>"
+                                                    for r in task.rules) + "</ul>")
+    verdict = task.check()
+    parts.append(f"<h2>Convexity</h2><p>{'convex by construction' if verdict.convex else 'NOT convex'} "
+                 f"(problem class: {_html.escape(verdict.problem_class)})</p><ul>"
+                 + "".join(f"<li>{_html.escape(a)}: {_html.escape(b)}</li>" for a, b in verdict.pieces) + "</ul>")
+    ev = pd.DataFrame({"value": [fit.status, fit.message, fit.objective, fit.gap, fit.rel_gap, fit.violation,
+                                 fit.solver, fit.route] + list(fit.timings.as_dict().values())},
+                      index=pd.Index(["status", "message", "objective", "certified gap", "relative gap",
+                                      "worst violation", "solver", "route"]
+                                     + [f"{k} seconds" for k in fit.timings.as_dict()], name="evidence"))
+    parts.append("<h2>Evidence</h2>" + _table(ev))
+    parts.append("<h2>Coefficients</h2>" + _table(fit.coefficients()))
+    if len(fit.prices):
+        pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
+        pr.index.name = "rule"
+        parts.append("<h2>Rules at the answer</h2><p class=\"note\">Price: fall in the objective per unit "
+                     "relaxation of the rule; binding rules are highlighted.</p>"
+                     + _table(pr, highlight=fit.binding.to_dict()))
+    if np.all(np.isfinite(fit.coef.to_numpy())):
+        counts, edges = _argument_histogram(task, fit.theta)
+        label = "margin y (x'w + b)" if task.loss.argument == "margin" else "residual (prediction - target)"
+        parts.append("<h2>Training " + label.split(" ")[0] + "s</h2>" +
+                     _png(lambda ax: (ax.stairs(counts, edges, fill=True, color="#4a7"), ax.set_xlabel(label),
+                                      ax.set_ylabel("rows"))))
+    if job.path is not None:
+        parts.append("<h2>Path</h2>" + _png(lambda ax: job.path.plot(ax=ax))
+                     + _table(job.path.table.set_index("strength")))
+    if job.compare is not None:
+        parts.append("<h2>Solver comparison</h2>" + _table(job.compare))
+    if job.evaluation is not None:
+        parts.append("<h2>Held-out evaluation</h2>" + _table(job.evaluation.metrics.to_frame("value")))
+        if job.evaluation.confusion is not None:
+            parts.append(_table(job.evaluation.confusion))
+    parts.append(f"<p class=\"note\">{_html.escape(DISCLAIMER)}</p>")
+    return (f"<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>"
+            f"{_html.escape(recipe.title or 'learnopt fit')}</title><style>{STYLE}</style></head><body>"
+            + "\n".join(parts) + "</body></html>\n")

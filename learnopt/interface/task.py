@@ -1,0 +1,325 @@
+"""The task builder: data + loss + penalties + requirements (+ intercept, row weights).
+
+Tasks are immutable: ``penalize`` and ``require`` return a new task and leave the original as
+it was, so one base task can be varied freely.
+
+Objective (the convention everywhere in learnopt)::
+
+    minimise  sum_i a_i f(z_i) + sum_k R_k(w)      a_i = weight_i / sum(weights)
+
+i.e. the weighted *mean* of the loss over rows plus the penalties; the intercept is never
+penalised.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from typing import Sequence
+
+import numpy as np
+
+from learnopt.terms import losses as _losses
+from learnopt.terms.convexity import Verdict, require_convex
+from learnopt.data.table import Dataset
+from learnopt.data.gateway import from_data
+from learnopt.core.errors import ParameterError
+from learnopt.terms.penalties import CustomPenalty, Penalty
+from learnopt.rules.language import as_spec, compile_all
+from learnopt.rules.requirements import Context, Requirement, RuleSpec
+from learnopt.solve.solvers import CLASS_LABEL, problem_class
+
+SHARDED_ROWS = ("this rule object needs the data rows, which live in the partitions of sharded data; "
+                "write it as rule text (rules on predictions are compiled inside each partition).")
+REGRESSION_LOSSES = {"squared", "absolute", "huber", "quantile", "epsilon_insensitive"}
+CLASSIFICATION_LOSSES = {"hinge", "squared_hinge", "logistic", "squared", "zero_one"}
+
+
+@dataclass(frozen=True, eq=False)
+class Task:
+    """A learning task. Build it with :func:`regression` or :func:`classification`."""
+
+    dataset: Dataset
+    kind: str
+    loss: _losses.Loss
+    intercept: bool
+    target_name: object
+    penalties: tuple[Penalty, ...] = ()
+    rules: tuple[RuleSpec, ...] = ()
+    requirements: tuple[Requirement, ...] = field(default=())
+    # sharded data only: rules on predictions row by row, compiled inside each partition
+    row_rules: tuple[str, ...] = ()
+
+    # ---- names
+    @property
+    def features(self) -> tuple[str, ...]:
+        """Coefficient names, in the order of the coefficient vector."""
+        return self.dataset.names
+
+    @property
+    def coefficient_names(self) -> tuple[str, ...]:
+        return self.dataset.names + (("intercept",) if self.intercept else ())
+
+    @property
+    def sharded(self) -> bool:
+        """Does the data live on a dask cluster (a dask DataFrame or a file pattern)?"""
+        return getattr(self.dataset, "sharded", False)
+
+    def context(self) -> Context:
+        from learnopt.data.table import design_with_ones
+        enc = self.dataset.encoding
+        if self.sharded:
+            reference = tuple(f"{c}={v}" for c, v in enc.reference.items())
+            return Context(self.coefficient_names, None, None, reference, no_rows=SHARDED_ROWS)
+        X = self.dataset.X
+        Xt = design_with_ones(X, self.intercept)          # sparse stays sparse: rules take rows of it
+        reference = tuple(f"{c}={v}" for c, v in enc.reference.items()) if enc is not None else ()
+        return Context(self.coefficient_names, Xt, self.dataset.frame, reference)
+
+    # ---- building
+    def penalize(self, *penalties: Penalty) -> "Task":
+        """A new task with these penalties added (see :mod:`learnopt.penalties`)."""
+        bad = [p for p in penalties if not isinstance(p, Penalty)]
+        if bad:
+            raise ParameterError(f"penalize() takes penalties such as lo.penalty.l1(0.1); got {bad!r}.")
+        for p in penalties:
+            self._check_penalty(p)
+        return replace(self, penalties=self.penalties + tuple(penalties))
+
+    def _check_penalty(self, p: Penalty) -> None:
+        names = self.features
+        if isinstance(p, CustomPenalty):
+            require_convex(p.fn, len(names), f"Custom penalty {p.describe()!r}", "w")
+            return
+        import cvxpy as cp
+        p.expr(cp.Variable(len(names)), names)   # resolves names; raises DataError on unknown names
+
+    def with_strength(self, index: int, lam: float) -> "Task":
+        """A new task with penalty ``index`` at strength ``lam`` (paths and cross-validation)."""
+        pens = list(self.penalties)
+        pens[index] = pens[index].with_strength(float(lam))
+        return replace(self, penalties=tuple(pens))
+
+    def require(self, *rules: str | RuleSpec) -> "Task":
+        """A new task with these requirements added (rule text or rule objects).
+
+        Raises NotConvexError for a rule that is not convex and DataError for unknown names,
+        listing every problem at once.
+        """
+        if len(rules) == 1 and isinstance(rules[0], (list, tuple)):
+            rules = tuple(rules[0])
+        specs = tuple(as_spec(r) for r in rules)
+        rows: list[str] = []
+        if self.sharded:
+            from learnopt.scale.partitions import compile_rules
+            compiled, rows = compile_rules(self, specs)      # mean/sum of predictions by one pass
+        else:
+            compiled = compile_all(specs, self.context())
+        return replace(self, rules=self.rules + specs, requirements=self.requirements + tuple(compiled),
+                       row_rules=self.row_rules + tuple(rows))
+
+    # ---- verdict
+    def problem_class(self, loss_cone: str | None = None) -> str:
+        """The widest cone class the pieces need (``loss_cone`` replaces the loss's own)."""
+        cones = [loss_cone or self.loss.cone] + [p.cone for p in self.penalties]
+        cones += ["second_order" if r.sense == "norm" and r.order == 2 else "linear" for r in self.requirements]
+        return problem_class(cones)
+
+    def check(self) -> Verdict:
+        """Convexity verdict and data findings, without solving."""
+        pieces = [(f"loss {self.loss.describe()}", f"convex, {self.loss.argument} loss, "
+                   f"{'smooth' if self.loss.smooth else 'piecewise'}; needs {self.loss.cone} cone")]
+        pieces += [(f"penalty {p.describe()}", f"convex; needs {p.cone} cone") for p in self.penalties]
+        for r in self.requirements:
+            fact = ("norm bounded above: a convex set" if r.sense == "norm"
+                    else f"linear {'equality' if r.sense == '==' else 'inequality'} ({r.rows} row{'s' * (r.rows > 1)})")
+            pieces.append((f"rule {r.text!r}", fact))
+        reasons = []
+        from learnopt.solve.routes.direct import build
+        try:
+            prob = self._small_problem() if self.sharded else build(self).problem
+            if not prob.is_dcp():
+                reasons.append("learnopt's own verdict says convex but cvxpy's DCP check disagrees; "
+                               "this is a learnopt bug, please report it with the task.")
+        except Exception as exc:  # noqa: BLE001 - surfaced in the verdict
+            reasons.append(f"the problem could not be built: {exc}")
+        return Verdict(not reasons, CLASS_LABEL[self.problem_class()], pieces, reasons,
+                       list(self.dataset.notes))
+
+    def problem(self):
+        """The underlying cvxpy.Problem (direct formulation), for people who want to go further.
+
+        Variables: ``theta`` = (coefficients in :attr:`features` order, then the intercept).
+        """
+        from learnopt.solve.routes.direct import build
+        self._in_memory("problem()")
+        return build(self).problem
+
+    def _in_memory(self, what: str) -> None:
+        if self.sharded:
+            raise ParameterError(f"{what} needs the data in memory; this task's data is sharded "
+                                 f"({self.dataset.label}). Solve it with task.solve(), or load a sample "
+                                 f"into a pandas DataFrame for {what}.")
+
+    def _small_problem(self):
+        """The loss on one stand-in row with every penalty and rule: what the convexity check of
+        sharded data looks at (the rows only repeat the loss term)."""
+        import cvxpy as cp
+        theta = cp.Variable(len(self.coefficient_names))
+        from learnopt.problem.algebra import requirement_constraint
+        objective = cp.sum(self.loss.expr(cp.reshape(cp.sum(theta), (1,), order="F")))
+        objective = objective + sum(p.expr(theta[: self.dataset.d], self.features) for p in self.penalties)
+        return cp.Problem(cp.Minimize(objective), [requirement_constraint(r, theta) for r in self.requirements])
+
+    # ---- solving
+    def solve(self, solver: str | None = None, *, tol: float = 1e-9, gap_tol: float = 1e-7,
+              feas_tol: float = 1e-6, route: str | None = None, fallback: bool = True,
+              time_limit: float | None = None, polish: bool = False,
+              solver_options: dict | None = None, verbose: bool = False, client=None,
+              progress: bool | None = None):
+        """Solve and certify; return a :class:`~learnopt.fit.Fit`.
+
+        Parameters
+        ----------
+        solver : name from the registry (clarabel, osqp, scs, ecos, highs); default: chosen by
+            problem class. The next capable solver is tried when one fails, unless fallback=False.
+        tol : solver tolerance, mapped to each solver's own options.
+        gap_tol, feas_tol : the certificate passes ("optimal") when gap / max(1, |objective|)
+            <= gap_tol and every requirement holds within feas_tol (relative to its numbers).
+        route : how to solve ("direct", ...); default: planned from the task's structure and
+            named in ``fit.route``.
+        time_limit : seconds allowed per solver attempt. Passed to solvers that have a limit of
+            their own (all but ECOS); an attempt that runs over is recorded in ``fit.attempts``
+            and the next solver is tried. Its point is kept if nothing better is found.
+        polish : when a solver's point fails the certificate, re-solve with the same solver
+            (warm-started) at tol/1e3 and tol/1e6 before moving down the chain.
+        solver_options : extra options passed unchanged to the solver (its own names).
+        verbose : show the solver's own log.
+        client : sharded data only: a ``distributed.Client`` or a scheduler address (default:
+            dask's current client, else a local cluster learnopt starts).
+        progress : sharded data only: a line per round of passes (None: only on a terminal).
+        """
+        from learnopt.solve.loop import solve_task
+        return solve_task(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route,
+                          fallback=fallback, solver_options=solver_options or {}, verbose=verbose,
+                          time_limit=time_limit, polish=polish, client=client, progress=progress)
+
+    def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
+             route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
+             feas_tol: float = 1e-6, progress: bool | None = None):
+        """Solve along a grid of strengths of one penalty; return a :class:`~learnopt.select.Path`.
+
+        Parameters
+        ----------
+        penalty : the penalty whose strength varies: one of the task's penalties (object or
+            index; default the first) or a new one (added, its own strength ignored).
+        grid : strengths in the task's own scaling (any order; walked from strong to weak).
+            Default: ``n`` strengths from the smallest strength that zeroes every penalised
+            coefficient down to ``ratio`` times it, evenly spaced on a log scale.
+        progress : progress bar (rich) on a terminal; None: only when stderr is a terminal.
+
+        The problem is compiled once (the strength is a cvxpy Parameter), each point starts
+        from the previous one, and each point is certified; requirements hold at every point.
+        """
+        from learnopt.selection.paths import path
+        self._in_memory("path()")
+        return path(self, penalty, grid, n, ratio=ratio, route=route, solver=solver, tol=tol,
+                    gap_tol=gap_tol, feas_tol=feas_tol, progress=progress)
+
+    def cross_validate(self, folds: int = 5, grid: Sequence[float] | None = None, metric=None, seed: int = 0,
+                       groups=None, *, ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
+                       route: str | None = None, solver: str | None = None, tol: float = 1e-9,
+                       gap_tol: float = 1e-7, feas_tol: float = 1e-6, progress: bool | None = None):
+        """k-fold cross-validation of one penalty's strength; a :class:`~learnopt.select.CrossValidation`.
+
+        Folds: random with ``seed`` (default), by ``groups`` (a column name or one label per
+        row; a group is never split), or ``ordered=True`` for time-ordered rows (forward
+        chaining). Each fold walks the grid as a path (compiled once per fold, warm-started)
+        with every requirement. ``metric``: the task's own loss (default), "mse", "mae",
+        "pinball(tau)", "accuracy", "zero_one", "hinge", "log_loss", or f(y_true, score)
+        (classification targets are +1/-1, scores are X w + b). Default grid: ``n``
+        strengths from the zeroing strength on all rows down to ``ratio`` times it.
+        """
+        from learnopt.selection.paths import cross_validate
+        self._in_memory("cross_validate()")
+        return cross_validate(self, folds, grid, metric, seed, groups, ordered=ordered, penalty=penalty, n=n,
+                              ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
+                              feas_tol=feas_tol, progress=progress)
+
+    def compare(self, solvers: Sequence[str] = ("clarabel", "osqp", "scs", "ecos", "highs"), *,
+                tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6):
+        """Solve the same task with each solver (no fallback); one row per solver.
+
+        Columns: status, objective, gap (learnopt's certificate), violation, iterations,
+        build/compile/solve/certify/total seconds, note, and max_coef_diff (largest coefficient
+        difference from the certified row with the lowest objective). Solvers that are not
+        installed or cannot handle the problem class get a row with the reason.
+        """
+        from learnopt.solve.loop import compare
+        self._in_memory("compare()")
+        return compare(self, list(solvers), tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
+
+    def __repr__(self) -> str:
+        return (f"Task({self.kind}, loss={self.loss.describe()}, {self.dataset.n} rows x {self.dataset.d} "
+                f"features, intercept={self.intercept}, penalties=[{', '.join(p.describe() for p in self.penalties)}], "
+                f"rules={[r.text for r in self.rules]})")
+
+
+def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
+    """Check that a (convex) loss object suits the task kind."""
+    if isinstance(obj, _losses.Custom):
+        require_convex(obj.fn, 5, f"Custom loss {obj.describe()!r}", "z")
+        return obj
+    allowed = REGRESSION_LOSSES if kind == "regression" else CLASSIFICATION_LOSSES
+    if obj.name not in allowed:
+        other = "lo.classification" if kind == "regression" else "lo.regression"
+        raise ParameterError(f"The {obj.describe()} loss is not a {kind} loss; use it with {other}, or "
+                             f"pick one of {', '.join(sorted(allowed - {'zero_one'}))}.")
+    return obj
+
+
+def _build(kind, data, target, loss, features, weights, intercept, positive) -> Task:
+    if not isinstance(intercept, (bool, np.bool_)):
+        raise ParameterError(f"The 'intercept' parameter must be True or False. Got {intercept!r} instead.")
+    lossobj = _losses.by_name(loss)
+    if not lossobj.convex:
+        raise lossobj.refusal()
+    ds = from_data(data, target, kind=kind, features=features, weights=weights,
+                   intercept=bool(intercept), positive=positive)
+    lossobj = _loss(lossobj, kind)
+    if kind == "classification" and lossobj.argument == "residual" and lossobj.name != "squared":
+        raise ParameterError(f"The {lossobj.describe()} loss needs a numeric target; use lo.regression.")
+    return Task(ds, kind, lossobj, bool(intercept), target if isinstance(target, str) else None)
+
+
+def regression(data, target, loss: _losses.Loss | str = "squared", *, features: Sequence[str] | None = None,
+               weights=None, intercept: bool = True) -> Task:
+    """Build a regression task.
+
+    Parameters
+    ----------
+    data : DataFrame, CSV/Parquet path, or numpy / scipy.sparse matrix.
+    target : column name (DataFrame) or the array of targets (arrays).
+    loss : a loss object (``lo.loss.huber(2.0)``) or the name of a parameter-free loss.
+    features : columns to use; default all columns except the target and weights.
+    weights : column name or array of non-negative row weights (weight k == k copies of the row).
+    intercept : fit an unpenalised intercept (default True).
+
+    Examples
+    --------
+    >>> import numpy as np, learnopt as lo
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.normal(size=(40, 2)); y = X @ [1.0, -2.0] + 0.5
+    >>> fit = lo.regression(X, y).solve()
+    >>> fit.status, np.round(fit.coef.to_numpy(), 6).tolist(), round(fit.intercept, 6)
+    ('optimal', [1.0, -2.0], 0.5)
+    """
+    return _build("regression", data, target, loss, features, weights, intercept, None)
+
+
+def classification(data, target, loss: _losses.Loss | str = "logistic", *, positive=None,
+                   features: Sequence[str] | None = None, weights=None, intercept: bool = True) -> Task:
+    """Build a binary classification task; labels are mapped to -1/+1.
+
+    ``positive`` is the label mapped to +1 (default: the label that sorts last). Margin losses:
+    hinge, squared_hinge, logistic (default); squared regresses the -1/+1 labels.
+    """
+    return _build("classification", data, target, loss, features, weights, intercept, positive)

@@ -1,0 +1,67 @@
+"""The dask cluster a sharded fit runs on.
+
+``solve(client=...)`` takes a ``distributed.Client`` or a scheduler address; with none, dask's
+current default client is used, and failing that a local cluster that learnopt starts once per
+process (one single-threaded worker process per core, up to 4) and closes at exit.
+"""
+from __future__ import annotations
+
+import atexit
+import os
+
+from learnopt.core.errors import MissingDependencyError, ParameterError
+from learnopt.data.sharded import _dask
+
+_LOCAL: dict = {}
+
+
+def connect(client=None):
+    """The distributed Client to use: the one given, a scheduler address, dask's default, or a
+    local cluster learnopt starts (once per process)."""
+    _dask()
+    try:
+        from distributed import Client, LocalCluster, default_client
+    except ImportError as exc:
+        raise MissingDependencyError("Sharded fits need distributed: pip install 'learnopt[scale]'.") from exc
+    if isinstance(client, Client):
+        return client
+    if isinstance(client, str):
+        key = ("address", client)
+        if key not in _LOCAL:
+            try:
+                _LOCAL[key] = Client(client, set_as_default=False, timeout=10)
+            except (OSError, TimeoutError) as exc:
+                raise ParameterError(f"No dask scheduler answered at {client!r} ({exc}); check the "
+                                     f"address, or leave client=None for a local cluster.") from None
+        return _LOCAL[key]
+    if client is not None:
+        raise ParameterError(f"The 'client' parameter must be a distributed.Client, a scheduler address "
+                             f"or None. Got {type(client).__name__} instead.")
+    try:
+        return default_client()
+    except ValueError:
+        pass
+    if "local" not in _LOCAL:
+        workers = max(1, min(os.cpu_count() or 1, 4))
+        try:
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                   dashboard_address=":0", silence_logs=50)
+        except (RuntimeError, OSError, TimeoutError) as exc:
+            raise ParameterError(
+                f"learnopt could not start a local dask cluster ({str(exc).splitlines()[0]}). Worker "
+                f"processes import the script that starts them: put a script's work under "
+                f"'if __name__ == \"__main__\":', or pass client= an existing distributed.Client or "
+                f"scheduler address.") from None
+        _LOCAL["local"] = Client(cluster, set_as_default=False)
+        atexit.register(close_local)
+    return _LOCAL["local"]
+
+
+def close_local() -> None:
+    """Close the clusters and connections learnopt opened itself."""
+    for key in list(_LOCAL):
+        client = _LOCAL.pop(key)
+        cluster = client.cluster if key == "local" else None
+        client.close()
+        if cluster is not None:
+            cluster.close()

@@ -1,0 +1,420 @@
+"""Choosing the penalty strength: paths and cross-validation.
+
+A path solves the task for a decreasing grid of strengths of one penalty. The route's problem
+is compiled once with the strength as a cvxpy Parameter (DPP), each point starts from the
+previous one, and every point is certified like any fit.
+
+The top of the default grid is the smallest strength at which every penalised coefficient is
+zero (for l1-type penalties: the dual norm of the gradient at the point where they are zero,
+weighted per coefficient), found from one fit at a strength far above it; the grid then falls
+geometrically to ``ratio`` times that.
+
+Cross-validation splits the rows into folds (random with a seed, by groups, or in time order),
+walks the same grid on each training part with every requirement, and scores the held-out
+part with a metric (default: the task's own loss).
+"""
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass, field
+from typing import Any, Callable, Sequence
+
+import numpy as np
+import pandas as pd
+
+from learnopt.core.errors import DataError, MissingDependencyError, ParameterError
+from learnopt.terms.penalties import CustomPenalty, Penalty, Separable
+
+
+# ---------------------------------------------------------------- progress
+class _Progress:
+    """A rich progress bar on a terminal; silent otherwise or when asked."""
+
+    def __init__(self, total: int, label: str, enabled: bool | None):
+        self.bar = None
+        if enabled is False or (enabled is None and not sys.stderr.isatty()):
+            return
+        try:
+            from rich.progress import Progress
+        except ImportError:
+            return
+        self.bar = Progress(transient=True)
+        self.bar.start()
+        self.job = self.bar.add_task(label, total=total)
+
+    def step(self):
+        if self.bar is not None:
+            self.bar.advance(self.job)
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.stop()
+
+
+# ---------------------------------------------------------------- the varied penalty
+def _pick(task, penalty) -> tuple[Any, int]:
+    """(task, index) with the penalty to vary in the task (added when it is not there yet)."""
+    if penalty is None:
+        if not task.penalties:
+            raise ParameterError("A path or cross-validation needs a penalty to vary: pass penalty=lo.penalty.l1(1.0) "
+                                 "(its strength is replaced along the grid), or add one with .penalize().")
+        index = 0
+    elif isinstance(penalty, int):
+        if not 0 <= penalty < len(task.penalties):
+            raise ParameterError(f"The 'penalty' parameter of path must index one of the task's "
+                                 f"{len(task.penalties)} penalties. Got {penalty} instead.")
+        index = penalty
+    elif isinstance(penalty, Penalty):
+        matches = [k for k, p in enumerate(task.penalties) if p == penalty]
+        if matches:
+            index = matches[0]
+        else:
+            task = task.penalize(penalty)
+            index = len(task.penalties) - 1
+    else:
+        raise ParameterError(f"The 'penalty' parameter of path must be a penalty object or an index. "
+                             f"Got {penalty!r} instead.")
+    if isinstance(task.penalties[index], CustomPenalty):
+        raise ParameterError("A custom penalty has no strength to vary; give it its own strength "
+                             "in the expression and fit each value, or vary a built-in penalty.")
+    return task, index
+
+
+def zero_strength(task, index: int, fit) -> float:
+    """The smallest strength of penalty ``index`` at which its penalised coefficients are zero.
+
+    ``fit`` is a certified fit at a strength above that (all penalised coefficients zero);
+    the answer is the dual norm of the rest of the stationarity condition there.
+    """
+    from learnopt.solve.certificate import requirement_terms
+    from learnopt.problem.algebra import loss_argument
+    M, q, a = loss_argument(task)
+    theta = fit.theta
+    u = task.loss.gradient(M @ theta - q)
+    g = M.T @ (a * u) + requirement_terms(task.requirements, fit.extras.get("multipliers", []), theta)[0]
+    # the other penalties' gradients at the point (their coefficients may be non-zero)
+    d = task.dataset.d
+    names = task.features
+    for k, pen in enumerate(task.penalties):
+        if k != index and isinstance(pen, Separable):
+            a1, c2 = pen.separable(names)
+            g[:d] = g[:d] + a1 * np.sign(theta[:d]) + 2.0 * c2 * theta[:d]
+    unit = task.penalties[index].with_strength(1.0)
+    gw = g[:d]
+    if isinstance(unit, Separable):
+        weight, _ = unit.separable(names)
+        on = weight > 0
+        if not on.any():
+            raise ParameterError(f"{unit.describe_name()} never sets coefficients to zero, so the grid "
+                                 f"has no natural top; pass grid=[...] with the strengths to try.")
+        # coefficients that rules hold away from zero at every strength do not set the top
+        w = theta[:d]
+        free = on & (np.abs(w) <= 1e-9 * max(1.0, float(np.max(np.abs(w), initial=0.0))))
+        if not free.any():
+            raise ParameterError("The rules keep every penalised coefficient away from zero; "
+                                 "pass grid=[...] explicitly.")
+        return float(np.max(np.abs(gw[free]) / weight[free]))
+    scale = 1e6 / max(float(np.max(np.abs(gw))), 1e-300)
+    s = unit.shrink(-gw * scale, names)
+    return float(1.0 / (s * scale)) if s < 1.0 else 0.0
+
+
+# ---------------------------------------------------------------- path
+@dataclass
+class Path:
+    """A path over strengths of one penalty.
+
+    Attributes
+    ----------
+    table : DataFrame, one row per strength: strength, status, objective, gap, rel_gap,
+        training_loss (the weighted mean loss, penalties excluded), nonzero (coefficients
+        with |w| > 1e-8 max(1, max|w|)), seconds.
+    coefs : DataFrame, one row per strength, one column per coefficient name.
+    fits : the certified fit at each strength, in grid order.
+    penalty : the varied penalty at strength 1; strengths multiply it.
+    """
+
+    table: pd.DataFrame
+    coefs: pd.DataFrame
+    fits: list = field(repr=False)
+    penalty: Penalty | None = None
+
+    def plot(self, ax=None):
+        """Coefficients against strength (log scale), one line per coefficient (matplotlib)."""
+        plt = _pyplot()
+        ax = ax or plt.subplots(figsize=(7, 4))[1]
+        for name in self.coefs.columns:
+            ax.plot(self.coefs.index, self.coefs[name], label=str(name))
+        ax.set_xscale("log")
+        ax.invert_xaxis()
+        ax.set_xlabel("strength")
+        ax.set_ylabel("coefficient")
+        if len(self.coefs.columns) <= 12:
+            ax.legend(fontsize="small")
+        return ax
+
+
+def _pyplot():
+    try:
+        import matplotlib.pyplot as plt
+    except ImportError:
+        raise MissingDependencyError("Plots need matplotlib: pip install 'learnopt[plot]'.") from None
+    return plt
+
+
+def _training_loss(task, fit) -> float:
+    """The weighted mean loss: the certified objective minus the penalties."""
+    w = fit.coef.to_numpy()
+    return float(fit.objective - sum(p.value(w, task.features) for p in task.penalties))
+
+
+def default_grid(task, index, top_fit, n: int, ratio: float) -> np.ndarray:
+    top = zero_strength(task, index, top_fit)
+    if not np.isfinite(top) or top <= 0:
+        raise ParameterError("Every penalised coefficient is zero at every strength (the gradient "
+                             "at zero vanishes); pass grid=[...] explicitly.")
+    return top * np.geomspace(1.0, ratio, n)
+
+
+def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
+         route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
+         feas_tol: float = 1e-6, progress: bool | None = None) -> Path:
+    from learnopt.core import checks as params
+    from learnopt.solve.routes import prepare
+    from learnopt.solve.loop import solve_task
+    params.check("path", n=(n, params.POSITIVE), ratio=(ratio, params.OPEN_UNIT))
+    task, index = _pick(task, penalty)
+    if grid is not None:
+        grid = np.asarray(grid, float).ravel()
+        if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
+            raise ParameterError("The 'grid' parameter of path must be non-negative finite strengths. "
+                                 f"Got {grid!r} instead.")
+    runner = prepare(task, route, vary=index)
+    opts = dict(solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route, fallback=True,
+                solver_options={}, verbose=False)
+    if grid is None:
+        # one fit far above the zeroing strength, on the same compiled problem
+        scale = _strength_scale(task, index)
+        for _ in range(3):
+            runner.set_strength(scale)
+            top_fit = solve_task(task, runner=runner, **opts)
+            if _all_zero(runner.task, index, top_fit) or _settled(top_fit):
+                break
+            scale *= 1e3
+        else:
+            raise ParameterError("No strength tried set the penalised coefficients to zero; "
+                                 "pass grid=[...] explicitly.")
+        grid = default_grid(runner.task, index, top_fit, int(n), ratio)
+    grid = np.sort(grid)[::-1]
+    fits, rows = [], []
+    bar = _Progress(len(grid), "path", progress)
+    try:
+        for lam in grid:
+            runner.set_strength(lam)
+            fit = solve_task(task, runner=runner, **opts)
+            if fit.status in ("optimal", "unverified"):
+                runner.start = fit.theta
+            fits.append(fit)
+            w = fit.coef.to_numpy()
+            cut = 1e-8 * max(1.0, float(np.max(np.abs(w), initial=0.0)))
+            rows.append({"strength": float(lam), "status": fit.status, "objective": fit.objective,
+                         "gap": fit.gap, "rel_gap": fit.rel_gap,
+                         "training_loss": _training_loss(runner.task, fit) if np.all(np.isfinite(w)) else np.nan,
+                         "nonzero": int(np.sum(np.abs(w) > cut)), "seconds": fit.timings.total})
+            bar.step()
+    finally:
+        bar.close()
+    table = pd.DataFrame(rows)
+    coefs = pd.DataFrame([f.coef.to_numpy() for f in fits], index=pd.Index(grid, name="strength"),
+                         columns=list(task.features))
+    return Path(table, coefs, fits, task.penalties[index].with_strength(1.0))
+
+
+def _strength_scale(task, index) -> float:
+    """A strength well above the zeroing one: 1e3 x the gradient at theta = 0 over the smallest weight."""
+    from learnopt.problem.algebra import loss_argument
+    M, q, a = loss_argument(task)
+    g = M.T @ (a * task.loss.gradient(-q))
+    unit = task.penalties[index].with_strength(1.0)
+    weight = 1.0
+    if isinstance(unit, Separable):
+        w1 = unit.separable(task.features)[0]
+        weight = float(np.min(w1[w1 > 0])) if np.any(w1 > 0) else 1.0
+    return 1e3 * (1.0 + float(np.max(np.abs(g)))) / weight
+
+
+def _settled(fit) -> bool:
+    """A certified fit at a huge strength where rules hold some coefficients away from zero."""
+    return fit.status == "optimal" and bool(fit.binding.any()) if len(fit.binding) else False
+
+
+def _all_zero(task, index, fit) -> bool:
+    """Are the coefficients penalty ``index`` acts on all (numerically) zero at this fit?"""
+    if fit.status not in ("optimal", "unverified"):
+        return False
+    unit = task.penalties[index].with_strength(1.0)
+    w = fit.coef.to_numpy()
+    N = unit.null_space(task.features)      # directions the penalty does not act on
+    moved = w - N @ (N.T @ w) if N.shape[1] else w
+    return bool(np.max(np.abs(moved), initial=0.0) <= 1e-7 * max(1.0, float(np.max(np.abs(w), initial=0.0))))
+
+
+# ---------------------------------------------------------------- cross-validation
+def fold_rows(n: int, folds: int, *, seed: int = 0, groups=None, ordered: bool = False):
+    """(train rows, held-out rows) per fold.
+
+    random (default): ``numpy.random.default_rng(seed).permutation(n)`` cut by ``numpy.array_split``
+    into ``folds`` parts, each held out once. groups: the distinct groups are permuted the same
+    way and dealt to the folds in turn, so a group is never split. ordered (time-ordered rows):
+    the rows are cut into ``folds + 1`` consecutive blocks; fold k trains on blocks 0..k-1 and
+    holds out block k (forward chaining: no fold trains on rows after the ones it predicts).
+    """
+    if ordered:
+        blocks = np.array_split(np.arange(n), folds + 1)
+        return [(np.concatenate(blocks[:k]), blocks[k]) for k in range(1, folds + 1)]
+    rng = np.random.default_rng(seed)
+    if groups is not None:
+        groups = np.asarray(groups)
+        uniq = np.unique(groups)
+        if len(uniq) < folds:
+            raise DataError(f"{len(uniq)} groups cannot fill {folds} folds; use folds <= {len(uniq)}.")
+        dealt = rng.permutation(uniq)
+        member = {g: k % folds for k, g in enumerate(dealt.tolist())}
+        fold_of = np.array([member[g] for g in groups.tolist()])
+        tests = [np.flatnonzero(fold_of == k) for k in range(folds)]
+    else:
+        tests = np.array_split(rng.permutation(n), folds)
+    every = np.arange(n)
+    return [(np.setdiff1d(every, t), np.sort(t)) for t in tests]
+
+
+_LOWER_IS_BETTER = {"loss", "mse", "mae", "pinball", "zero_one", "hinge", "log_loss"}
+
+
+def metric_function(task, metric) -> tuple[str, Callable, bool]:
+    """(name, fn(y, score, weights) -> float, higher_is_better). y: targets (+1/-1 for classes)."""
+    import re
+    if metric is None or metric == "loss":
+        loss = task.loss
+        if loss.argument == "margin":
+            return "loss", lambda y, s, w: float(np.average(loss.value(y * s), weights=w)), False
+        return "loss", lambda y, s, w: float(np.average(loss.value(s - y), weights=w)), False
+    if callable(metric):
+        name = getattr(metric, "__name__", "metric")
+        return name, lambda y, s, w: float(metric(y, s)), bool(getattr(metric, "higher_is_better", False))
+    text = str(metric).strip().lower().replace("-", "_").replace(" ", "_")
+    classify = task.kind == "classification"
+    simple = {
+        "mse": lambda y, s, w: float(np.average((s - y) ** 2, weights=w)),
+        "mae": lambda y, s, w: float(np.average(np.abs(s - y), weights=w)),
+        "accuracy": lambda y, s, w: float(np.average(np.where(s > 0, 1.0, -1.0) == y, weights=w)),
+        "zero_one": lambda y, s, w: float(np.average(np.where(s > 0, 1.0, -1.0) != y, weights=w)),
+        "hinge": lambda y, s, w: float(np.average(np.maximum(0.0, 1.0 - y * s), weights=w)),
+        "log_loss": lambda y, s, w: float(np.average(np.logaddexp(0.0, -y * s), weights=w)),
+    }
+    needs_classes = {"accuracy", "zero_one", "hinge", "log_loss"}
+    m = re.fullmatch(r"pinball\(\s*([0-9.eE+-]+)\s*\)", text)
+    if m:
+        tau = float(m.group(1))
+        if not 0.0 < tau < 1.0:
+            raise ParameterError(f"pinball(tau) needs 0 < tau < 1. Got {tau} instead.")
+        return (f"pinball({tau:g})", lambda y, s, w: float(np.average(
+            np.maximum(tau * (y - s), (tau - 1.0) * (y - s)), weights=w)), False)
+    if text not in simple:
+        raise ParameterError(f"Unknown metric {metric!r}; use one of loss, mse, mae, pinball(tau), accuracy, "
+                             f"zero_one, hinge, log_loss, or a callable f(y_true, score).")
+    if (text in needs_classes) != classify:
+        kind = "classification" if text in needs_classes else "regression"
+        raise ParameterError(f"The {text} metric is for {kind} tasks; this task is a {task.kind}.")
+    return text, simple[text], text == "accuracy"
+
+
+@dataclass
+class CrossValidation:
+    """Held-out scores over a grid of strengths.
+
+    Attributes
+    ----------
+    table : DataFrame, one row per strength: strength, mean and standard error (std over folds
+        / sqrt(folds)) of the held-out metric, and the number of certified fold fits.
+    scores : DataFrame, strengths x folds, the held-out metric of each fold fit.
+    best : the strength with the best mean. best_1se : the largest strength whose mean is
+        within one standard error of the best (the simpler model the data cannot tell apart).
+    metric : the metric's name; higher_is_better : its direction.
+    """
+
+    table: pd.DataFrame
+    scores: pd.DataFrame
+    best: float
+    best_1se: float
+    metric: str
+    higher_is_better: bool
+
+    def plot(self, ax=None):
+        """Mean held-out metric against strength with one-standard-error bars (matplotlib)."""
+        plt = _pyplot()
+        ax = ax or plt.subplots(figsize=(7, 4))[1]
+        ax.errorbar(self.table["strength"], self.table["mean"], yerr=self.table["se"], fmt="o-", ms=3)
+        ax.axvline(self.best, ls="--", label="best")
+        ax.axvline(self.best_1se, ls=":", label="best within 1 se")
+        ax.set_xscale("log")
+        ax.invert_xaxis()
+        ax.set_xlabel("strength")
+        ax.set_ylabel(f"held-out {self.metric}")
+        ax.legend(fontsize="small")
+        return ax
+
+
+def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, groups=None, *,
+                   ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
+                   route: str | None = None, solver: str | None = None, tol: float = 1e-9,
+                   gap_tol: float = 1e-7, feas_tol: float = 1e-6,
+                   progress: bool | None = None) -> CrossValidation:
+    from learnopt.core import checks as params
+    from learnopt.data.table import take_rows
+    from dataclasses import replace
+    params.check("cross_validate", folds=(folds, params.Interval(2, None)))
+    task, index = _pick(task, penalty)
+    name, score, higher = metric_function(task, metric)
+    ds = task.dataset
+    if groups is not None and isinstance(groups, str):
+        if ds.frame is None or groups not in ds.frame.columns:
+            raise DataError(f"groups={groups!r} is not a column of the data.")
+        groups = ds.frame[groups].to_numpy()
+    if groups is not None and len(groups) != ds.n:
+        raise DataError(f"groups has {len(groups)} entries for {ds.n} rows.")
+    splits = fold_rows(ds.n, int(folds), seed=seed, groups=groups, ordered=ordered)
+    if grid is None:
+        top = path(task, index, None, 1, ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
+                   feas_tol=feas_tol, progress=False)
+        grid = top.table["strength"].iloc[0] * np.geomspace(1.0, ratio, int(n))
+    grid = np.sort(np.asarray(grid, float).ravel())[::-1]
+    table = np.full((len(grid), len(splits)), np.nan)
+    certified = np.zeros(len(grid), int)
+    bar = _Progress(len(splits), "cross-validation", progress)
+    try:
+        for k, (train, held) in enumerate(splits):
+            sub = replace(task, dataset=take_rows(ds, train))
+            walk = path(sub, index, grid, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
+                        feas_tol=feas_tol, progress=False)
+            X, y, w = ds.X[held], ds.y[held], ds.weights[held]
+            for j, fit in enumerate(walk.fits):
+                if not np.all(np.isfinite(fit.coef.to_numpy())):
+                    continue
+                s = np.asarray(X @ fit.coef.to_numpy()).ravel() + fit.intercept
+                table[j, k] = score(y, s, w)
+                certified[j] += fit.status == "optimal"
+            bar.step()
+    finally:
+        bar.close()
+    mean = np.nanmean(table, axis=1)
+    counts = np.sum(np.isfinite(table), axis=1)
+    se = np.nanstd(table, axis=1, ddof=1) / np.sqrt(np.maximum(counts, 1))
+    out = pd.DataFrame({"strength": grid, "mean": mean, "se": se, "certified_folds": certified})
+    signed = -mean if higher else mean
+    b = int(np.nanargmin(signed))
+    within = np.flatnonzero(signed <= signed[b] + se[b])
+    best_1se = float(grid[within].max())
+    scores = pd.DataFrame(table, index=pd.Index(grid, name="strength"),
+                          columns=[f"fold {k}" for k in range(len(splits))])
+    return CrossValidation(out, scores, float(grid[b]), best_1se, name, higher)

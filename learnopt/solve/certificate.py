@@ -1,0 +1,345 @@
+"""The optimality certificate, computed by learnopt itself from its own conjugates.
+
+Task (theta = coefficients w and intercept b; z = M theta - q is the loss argument per row):
+
+    P(theta) = sum_i a_i f(z_i) + R(w)   subject to the requirements.
+
+Weak duality gives, for any u_i in dom f*, multipliers mu >= 0 for "<=" rows, any nu for
+"==" rows and lambda >= 0 for norm rules (with v in the dual-norm unit ball),
+
+    P(theta) >= D = -sum_i a_i f*(u_i) - (a*u).q - mu.rhs - nu.rhs + lambda (v.c - bound)
+                   + inf_theta [ g.theta + R(w) ],     g = M'(a*u) + A'mu + A'nu + lambda (A'v + f)
+
+for every feasible theta, so P(theta_hat) - D bounds the suboptimality of theta_hat.
+The infimum is finite only when g vanishes along every direction where R is constant (the
+intercept, unpenalised coefficients); learnopt makes it vanish exactly by a least-norm
+correction of u on the rows where u is inside dom f*, then scales the whole dual point by
+s in (0, 1] until -g_w lies in dom R* (the usual rescaling for l1-type penalties), and
+evaluates inf = -R*(-g_w) in closed form (a small exact solve for mixtures of penalties).
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import cvxpy as cp
+import numpy as np
+import scipy.linalg as sla
+
+from learnopt.terms.penalties import CustomPenalty, Separable, separable_conjugate, separable_shrink
+from learnopt.rules.requirements import Requirement
+
+
+@dataclass(frozen=True)
+class Certificate:
+    """Primal value, dual bound and the gap between them, all in objective units."""
+
+    primal: float
+    dual: float
+    gap: float
+    rel_gap: float
+    violation: float        # worst absolute requirement violation at the returned point
+    rel_violation: float    # the same, relative to the size of each requirement's numbers
+    stationarity: float     # size of the stationarity residual before the dual point was repaired
+    note: str = ""
+    complementarity: float = 0.0  # largest |multiplier x slack| over the rules (KKT residual)
+
+    def rebased(self, primal: float, dual: float | None = None) -> "Certificate":
+        """The same certificate with the primal value recomputed elsewhere (and the dual bound
+        shifted, when given): the gap follows from the two."""
+        from dataclasses import replace
+        dual = self.dual if dual is None else dual
+        gap = max(primal - dual, 0.0) if np.isfinite(dual) else np.inf
+        return replace(self, primal=primal, dual=dual, gap=gap,
+                       rel_gap=gap / max(1.0, abs(primal)) if np.isfinite(gap) else np.inf)
+
+    def passes(self, gap_tol: float, feas_tol: float) -> bool:
+        return bool(np.isfinite(self.gap) and self.rel_gap <= gap_tol and self.rel_violation <= feas_tol)
+
+
+def _null_space(penalties, names, d: int, intercept: bool) -> np.ndarray:
+    """Orthonormal basis of directions in theta where the penalty sum is constant."""
+    basis = np.eye(d)
+    combined = _combined_separable(penalties, names)
+    if combined is not None:     # separable: exactly the unpenalised coordinates
+        basis = basis[:, (combined[0] == 0) & (combined[1] == 0)]
+        penalties = ()
+    for pen in penalties:
+        n_k = pen.null_space(names)
+        if basis.shape[1] == 0:
+            break
+        # intersect span(basis) with span(n_k)
+        proj = n_k @ n_k.T if n_k.shape[1] else np.zeros((d, d))
+        resid = basis - proj @ basis
+        coef = sla.null_space(resid) if resid.size else np.zeros((basis.shape[1], 0))
+        basis = basis @ coef
+        if basis.shape[1]:
+            basis, _ = np.linalg.qr(basis)
+    p = d + int(intercept)
+    N = np.zeros((p, basis.shape[1] + int(intercept)))
+    N[:d, :basis.shape[1]] = basis
+    if intercept:
+        N[d, -1] = 1.0
+    return N
+
+
+def _inf_penalty(g_w, penalties, names) -> tuple[float, float]:
+    """(s, inf_w s*g_w.w + R(w)) with the shrink factor s that makes it finite."""
+    if not penalties:
+        return 1.0, 0.0 if np.allclose(g_w, 0.0, atol=0.0) else -np.inf
+    combined = _combined_separable(penalties, names)
+    if combined is not None:
+        a, c = combined
+        s = separable_shrink(-g_w, a, c)
+        return s, -separable_conjugate(-s * g_w, a, c)
+    if len(penalties) == 1 and not isinstance(penalties[0], CustomPenalty):
+        pen = penalties[0]
+        s = pen.shrink(-g_w, names)
+        return s, -pen.conjugate(-s * g_w, names)
+    # a mixture: R* is the infimal convolution of the parts' conjugates. Find the largest
+    # s <= 1 with -s g in dom R* = sum of the parts' domains, then the best split of -s g.
+    parts = [p.conjugate_expr(cp.Variable(len(g_w)), names) for p in penalties]
+    if any(part is None for part in parts):
+        return _inf_by_primal_solve(g_w, penalties, names)
+    d = len(g_w)
+    vs = [cp.Variable(d) for _ in penalties]
+    cons, conj = [], 0
+    for pen, v in zip(penalties, vs):
+        expr, c = pen.conjugate_expr(v, names)
+        cons += c
+        conj = conj + expr
+    s = cp.Variable()
+    feas = cp.Problem(cp.Maximize(s), cons + [sum(vs) == -s * g_w, s <= 1, s >= 0])
+    if not _solve_small(feas) or s.value is None or s.value <= 0:
+        return 1.0, -np.inf
+    s_val = float(min(1.0, s.value * (1 - 1e-7)))
+    split = cp.Problem(cp.Minimize(conj), cons + [sum(vs) == -s_val * g_w])
+    if not _solve_small(split):
+        return s_val, -np.inf
+    # any feasible split gives a valid (possibly weaker) bound
+    return s_val, -float(split.value)
+
+
+def _solve_small(prob) -> bool:
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            prob.solve(solver="CLARABEL", tol_gap_abs=1e-10, tol_gap_rel=1e-10, tol_feas=1e-10)
+    except cp.error.SolverError:
+        return False
+    return prob.status == cp.OPTIMAL
+
+
+def _inf_by_primal_solve(g_w, penalties, names):
+    """inf_w g.w + R(w) by one small solve (custom penalties have no conjugate)."""
+    w = cp.Variable(len(g_w))
+    prob = cp.Problem(cp.Minimize(g_w @ w + sum(p.expr(w, names) for p in penalties)))
+    if not _solve_small(prob):
+        return 1.0, -np.inf
+    return 1.0, float(prob.value)
+
+
+def _combined_separable(penalties, names):
+    """(a, c) of sum_j a_j|w_j| + c_j w_j^2 when every penalty is separable, else None."""
+    if not penalties or not all(isinstance(pen, Separable) for pen in penalties):
+        return None
+    parts = [pen.separable(names) for pen in penalties]
+    return sum(a for a, _ in parts), sum(c for _, c in parts)
+
+
+def _active_targets(w, penalties, names, p, threshold):
+    """Rows e_j' with targets -R'_j(w_j) for coefficients away from zero (separable penalties only)."""
+    combined = _combined_separable(penalties, names)
+    if combined is None:
+        return None
+    a, c = combined
+    scale = threshold * (1.0 + np.abs(w).max(initial=0.0))
+    idx = np.flatnonzero((np.abs(w) > scale) & ((a > 0) | (c > 0)))
+    if idx.size == 0:
+        return None
+    T = np.zeros((idx.size, p))
+    T[np.arange(idx.size), idx] = 1.0
+    return T, -(a[idx] * np.sign(w[idx]) + 2.0 * c[idx] * w[idx])
+
+
+def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
+    """Least-change correction of u (inside dom f*) so that T g(u) = t.
+
+    Each row moves in proportion to its room inside dom f*, so rows at the edge of the domain
+    (hinge rows outside the margin, say) stay where they are.
+    """
+    target = 1e-14 * (1.0 + np.abs(t).max(initial=0.0))
+    full = None                                   # M T' on every row, computed at most once
+    for _ in range(rounds):
+        resid = T @ gradient(u) - t
+        if np.abs(resid).max(initial=0.0) <= target:
+            break
+        room = np.minimum(u - low, high - u)
+        room = np.where(np.isfinite(room), np.minimum(room, 1.0 + np.abs(u)), 1.0 + np.abs(u))
+        rows = np.flatnonzero((room > 0) & (a > 0))
+        if rows.size == 0:
+            break
+        if full is None and rows.size > len(u) // 2:
+            full = np.asarray(M @ T.T)
+        MT = full[rows] if full is not None else np.asarray(M[rows] @ T.T)    # |rows| x k
+        K = (MT * a[rows][:, None]).T                                          # k x |rows|
+        h = room[rows]
+        lam, *_ = np.linalg.lstsq((K * h) @ K.T, -resid, rcond=None)
+        u = u.copy()
+        u[rows] = np.clip(u[rows] + h * (K.T @ lam), low, high)
+    return u
+
+
+def repair_targets(theta, penalties, names, N):
+    """The systems T g = t a dual point is repaired to meet, one per distinct reading of which
+    coefficients are active: the free directions (N' g = 0), plus g_j = -R'_j(w_j) on the
+    coordinates read as active at thresholds 1e-9 and 1e-6 (and none)."""
+    d, seen = len(names), set()
+    for threshold in (1e-9, 1e-6, None):
+        active = None if threshold is None else _active_targets(theta[:d], penalties, names, len(theta), threshold)
+        key = None if active is None else tuple(np.flatnonzero(active[0].any(axis=0)))
+        if key in seen:
+            continue
+        seen.add(key)
+        T, t = N.T, np.zeros(N.shape[1])
+        if active is not None:
+            T, t = np.vstack([T, active[0]]), np.concatenate([t, active[1]])
+        yield T, t
+
+
+def requirement_terms(requirements, multipliers, theta) -> tuple[np.ndarray, float]:
+    """The rules' part of the Lagrangian at theta: its gradient sum_k A_k' mu_k (norm rules
+    through their subgradient) and its constant part, multipliers clipped to their signs."""
+    g_req = np.zeros(len(theta))
+    const_req = 0.0
+    for r, m in zip(requirements, multipliers):
+        if r.sense == "norm":
+            lam = max(float(m), 0.0)
+            y = r.A @ theta + r.rhs
+            if r.order == 2:
+                nrm = np.linalg.norm(y)
+                v = y / nrm if nrm > 0 else np.zeros_like(y)
+            else:
+                v = np.sign(y)
+            g_req += lam * (r.A.T @ v + r.f)
+            const_req += lam * (v @ r.rhs - r.bound)
+        else:
+            m = np.asarray(m, float).ravel()
+            if r.sense == "<=":
+                m = np.maximum(m, 0.0)
+            g_req += r.A.T @ m
+            const_req -= m @ r.rhs
+    return g_req, const_req
+
+
+def _complementarity(requirements, multipliers, theta) -> float:
+    """Largest |multiplier x slack| over inequality and norm rules (zero at an exact KKT point)."""
+    worst = 0.0
+    for r, m in zip(requirements, multipliers):
+        if r.sense == "==":
+            continue
+        m = np.maximum(np.atleast_1d(np.asarray(m, float)), 0.0)
+        worst = max(worst, float(np.max(np.abs(m * r.slack(theta)), initial=0.0)))
+    return worst
+
+
+def feasibility(requirements, multipliers, theta) -> tuple[float, float, float]:
+    """(worst violation, worst relative violation, complementarity) of the rules at theta."""
+    viol = [r.violation(theta) for r in requirements]
+    violation = max(viol, default=0.0)
+    rel_violation = max((v / r.scale() for v, r in zip(viol, requirements)), default=0.0)
+    return violation, rel_violation, _complementarity(requirements, multipliers, theta)
+
+
+def no_conjugate(loss, primal, violation, rel_violation, comp) -> Certificate | None:
+    """The certificate of a loss without a conjugate (no dual bound), or None when it has one."""
+    try:
+        loss.conjugate(np.zeros(1))
+    except NotImplementedError:
+        return Certificate(primal, -np.inf, np.inf, np.inf, violation, rel_violation, np.nan,
+                           f"the loss {loss.describe()} has no conjugate, so no dual bound can be "
+                           f"computed; give custom(..., conjugate=...) to certify it", comp)
+    return None
+
+
+def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement], theta, u,
+            multipliers, intercept: bool, enough: float = 0.0) -> Certificate:
+    """Certificate for the point ``theta`` with dual point ``u`` and requirement multipliers.
+
+    ``enough``: stop trying further readings of the active set once the relative gap is this small.
+    """
+    theta = np.asarray(theta, float)
+    d = len(names)
+    w = theta[:d]
+    z = M @ theta - q
+    if u is None:
+        u = loss.gradient(z)
+    primal = float(a @ loss.value(z) + sum(p.value(w, names) for p in penalties))
+    violation, rel_violation, comp = feasibility(requirements, multipliers, theta)
+    missing = no_conjugate(loss, primal, violation, rel_violation, comp)
+    if missing is not None:
+        return missing
+
+    low, high = loss.dual_domain()
+    u = np.clip(np.asarray(u, float), low, high)
+
+    g_req, const_req = requirement_terms(requirements, multipliers, theta)
+
+    recent: list = []       # the last few (u, g(u)): the repair and the bound ask for the same ones
+
+    def gradient(uu):
+        for seen_u, seen_g in recent:
+            if seen_u is uu:
+                return seen_g
+        out = M.T @ (a * uu) + g_req
+        recent[:] = [(uu, out)] + recent[:2]
+        return out
+
+    N = _null_space(penalties, names, d, intercept)
+    g = gradient(u)
+    stationarity = float(np.linalg.norm(N.T @ g)) if N.shape[1] else 0.0
+    note = ""
+    base_scale = np.abs(g_req).max(initial=0.0) + 1.0
+    scale_g = []        # the size of the terms summed in g, computed only when needed
+
+    def free_ok(gg):
+        """Is g zero along the free directions, up to round-off in the terms that make it?"""
+        if not N.shape[1]:
+            return True
+        resid = np.linalg.norm(N.T @ gg, np.inf)
+        if resid <= 1e-11 * base_scale:
+            return True
+        if not scale_g:
+            scale_g.append(float(np.abs(M.T @ (a * np.abs(u))).max(initial=0.0)) + base_scale)
+        return resid <= 1e-11 * scale_g[0]
+
+    def bound(uu) -> float:
+        """The dual value at uu (any uu in dom f* with exact stationarity on N gives a valid bound)."""
+        g = gradient(uu)
+        if not free_ok(g):
+            return -np.inf
+        if N.shape[1]:
+            g = g - N @ (N.T @ g)      # what is left along the free directions is round-off
+        s, inner_val = _inf_penalty(g[:d], penalties, names)
+        su = s * uu
+        value = float(-a @ loss.conjugate(su) - (a * su) @ q + s * const_req + inner_val)
+        return value if np.isfinite(value) else -np.inf
+
+    # The dual point must meet T g = t exactly: free directions (T = N', t = 0) or the bound is
+    # -inf. Asking also that active separable coordinates have g_j = -R'_j(w_j) keeps the bound
+    # tight without rescaling, but which coordinates are active is a judgement on a numerical
+    # point, so a few readings are tried and the best (largest) valid bound is kept.
+    readings, dual = [], -np.inf
+    for T, t in repair_targets(theta, penalties, names, N):
+        readings.append(_repair(u, T, t, M, a, gradient, low, high) if T.shape[0] else u)
+        dual = max(dual, bound(readings[-1]))
+        if (primal - dual) <= enough * max(1.0, abs(primal)):
+            break                     # tight enough: further readings cannot matter
+    if not np.isfinite(dual):
+        note = ("the dual point could not be made exactly stationary along the free directions "
+                "(intercept and unpenalised coefficients); no finite dual bound") if N.shape[1] and \
+            not any(free_ok(gradient(uu)) for uu in readings) else "the dual bound is not finite at this point"
+        return Certificate(primal, dual, np.inf, np.inf, violation, rel_violation, stationarity, note, comp)
+    gap = max(primal - dual, 0.0)
+    return Certificate(primal, dual, gap, gap / max(1.0, abs(primal)), violation, rel_violation,
+                       stationarity, note, comp)

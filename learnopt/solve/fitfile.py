@@ -1,0 +1,162 @@
+"""Model files: a fit saved as JSON (no pickle), with a schema version.
+
+A file holds the task's description (kind, loss, penalties, rule texts, intercept, feature
+names, the encoding of DataFrame columns, class labels), the coefficients, and the evidence
+(status, message, objective, gap, violation, solver, route, timings, prices, versions).
+Floats are written with ``repr`` (shortest round-trip form), so a loaded fit predicts exactly
+what the saved one did. The loaded fit carries no training data: its ``task`` is a
+description for prediction and evaluation, not something to solve again.
+"""
+from __future__ import annotations
+
+import dataclasses
+import json
+import os
+from importlib import metadata
+
+import numpy as np
+import pandas as pd
+
+from learnopt.terms import losses as _losses
+from learnopt.terms import penalties as _penalties
+from learnopt.core.errors import DataError, LearnoptError
+
+FORMAT = "learnopt-fit"
+SCHEMA_VERSION = 1
+
+
+def _plain(value):
+    """JSON-ready copy: tuples -> lists, numpy scalars -> Python, non-finite floats -> strings."""
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return repr(value)
+    return value
+
+
+def _tupled(value):
+    if isinstance(value, list):
+        return tuple(_tupled(v) for v in value)
+    return value
+
+
+def _float(value):
+    """Back from _plain: 'nan' / 'inf' / '-inf' strings become floats again."""
+    return float(value)
+
+
+def _piece(obj) -> dict:
+    if isinstance(obj, (_losses.Custom, _penalties.CustomPenalty)):
+        raise LearnoptError(f"{obj.describe()} is a Python function and cannot be written to a model file; "
+                            f"model files hold built-in losses and penalties only (no pickle).")
+    return {"class": type(obj).__name__,
+            "fields": {f.name: _plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}}
+
+
+def _rebuild(entry: dict, module, base):
+    classes = {c.__name__: c for c in vars(module).values()
+               if isinstance(c, type) and issubclass(c, base) and c is not base}
+    cls = classes.get(entry.get("class"))
+    if cls is None:
+        raise DataError(f"The model file names an unknown piece {entry.get('class')!r}; it was written by "
+                        f"another version of learnopt.")
+    return cls(**{k: _tupled(v) for k, v in entry.get("fields", {}).items()})
+
+
+def _versions(solver: str | None) -> dict:
+    out = {}
+    for pkg in ("learnopt", "cvxpy", "numpy", "scipy"):
+        try:
+            out[pkg] = metadata.version(pkg)
+        except metadata.PackageNotFoundError:
+            out[pkg] = None
+    if solver and solver != "numpy":
+        from learnopt.solve.solvers import REGISTRY
+        spec = REGISTRY.get(solver)
+        if spec is not None:
+            try:
+                out[solver] = metadata.version(spec.module)
+            except metadata.PackageNotFoundError:
+                out[solver] = None
+    return out
+
+
+def to_dict(fit) -> dict:
+    task = fit.task
+    ds = task.dataset
+    enc = ds.encoding
+    return {
+        "format": FORMAT, "schema_version": SCHEMA_VERSION,
+        "task": {
+            "kind": task.kind, "loss": _piece(task.loss), "penalties": [_piece(p) for p in task.penalties],
+            "rules": [r.text for r in task.rules], "intercept": task.intercept,
+            "target": _plain(task.target_name), "features": list(ds.names),
+            "labels": _plain(list(ds.labels)) if ds.labels is not None else None,
+            "encoding": None if enc is None else {
+                "columns": list(enc.columns), "levels": _plain(enc.levels),
+                "reference": _plain(enc.reference), "names": list(enc.names)},
+        },
+        "coef": {name: _plain(float(v)) for name, v in fit.coef.items()},
+        "intercept": _plain(float(fit.intercept)),
+        "evidence": {
+            "status": fit.status, "message": fit.message, "objective": _plain(fit.objective),
+            "gap": _plain(fit.gap), "rel_gap": _plain(fit.rel_gap), "violation": _plain(fit.violation),
+            "solver": fit.solver, "route": fit.route, "timings": fit.timings.as_dict(),
+            "prices": _plain(fit.prices.to_dict()), "binding": _plain(fit.binding.to_dict()),
+            "versions": _versions(fit.solver),
+        },
+    }
+
+
+def save(fit, path) -> None:
+    """Write ``fit`` to ``path`` as JSON, atomically (a temporary file renamed into place)."""
+    from learnopt.core.files import write_atomic
+    write_atomic(path, json.dumps(to_dict(fit), indent=1))
+
+
+def load(path):
+    """Read a fit written by :func:`save`; refuse other formats and newer schema versions."""
+    from learnopt.data.table import Dataset, Encoding
+    from learnopt.solve.fit import Fit, Timings
+    from learnopt.rules.language import TextRule
+    from learnopt.interface.task import Task
+    path = os.fspath(path)
+    try:
+        with open(path, encoding="utf-8") as fh:
+            saved = json.load(fh)
+    except FileNotFoundError:
+        raise DataError(f"Model file {path!r} does not exist.") from None
+    except json.JSONDecodeError as exc:
+        raise DataError(f"Model file {path!r} is not JSON ({exc.msg} at line {exc.lineno}).") from None
+    if not isinstance(saved, dict) or saved.get("format") != FORMAT:
+        raise DataError(f"{path!r} is not a learnopt model file (no \"format\": \"{FORMAT}\").")
+    version = saved.get("schema_version")
+    if not isinstance(version, int) or version > SCHEMA_VERSION:
+        raise DataError(f"{path!r} was written with model-file schema {version!r}; this learnopt reads "
+                        f"schema {SCHEMA_VERSION} and older. Upgrade learnopt to read it.")
+    t = saved["task"]
+    names = tuple(t["features"])
+    enc = t.get("encoding")
+    encoding = None if enc is None else Encoding(
+        tuple(enc["columns"]), {k: tuple(v) for k, v in enc["levels"].items()}, dict(enc["reference"]),
+        tuple(enc["names"]))
+    labels = tuple(t["labels"]) if t.get("labels") is not None else None
+    d = len(names)
+    ds = Dataset(np.zeros((0, d)), np.zeros(0), np.zeros(0), names, None, encoding, labels,
+                 ["loaded from a model file: no training data"])
+    loss = _rebuild(t["loss"], _losses, _losses.Loss)
+    pens = tuple(_rebuild(p, _penalties, _penalties.Penalty) for p in t["penalties"])
+    task = Task(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,
+                tuple(TextRule(r) for r in t["rules"]))
+    ev = saved["evidence"]
+    coef = pd.Series([_float(saved["coef"][n]) for n in names], index=list(names), name="coef", dtype=float)
+    timings = Timings(**{k: float(v) for k, v in ev["timings"].items()})
+    return Fit(ev["status"], ev["message"], _float(ev["objective"]), _float(ev["gap"]), _float(ev["rel_gap"]),
+               _float(ev["violation"]), coef, _float(saved["intercept"]),
+               pd.Series(ev["prices"], dtype=float), pd.Series(ev["binding"], dtype=bool),
+               pd.Series(dtype=float), timings, ev["solver"], ev["route"], [], None, task,
+               extras={"versions": ev.get("versions", {}), "loaded_from": path})

@@ -1,0 +1,164 @@
+"""The direct route: the whole task as one vectorised cvxpy problem.
+
+Variables: theta = (w, b) (b only with an intercept). The loss argument z = M theta - q
+(residual: M = [X 1], q = y; margin: M = diag(y) [X 1], q = 0). For non-smooth losses z is a
+variable tied to M theta - q by an equality whose dual value is the certificate's dual point.
+"""
+from __future__ import annotations
+
+import os
+import time
+import warnings
+from dataclasses import dataclass
+
+import cvxpy as cp
+import numpy as np
+import scipy.sparse as sp
+
+from learnopt.core.errors import TooLargeError
+from learnopt.rules.requirements import Requirement
+from learnopt.solve.routes.base import Outcome, RunnerBase, read_multipliers, run
+from learnopt.problem.algebra import loss_argument, requirement_constraint
+
+
+@dataclass
+class Model:
+    problem: cp.Problem
+    theta: cp.Variable
+    tie: cp.Constraint | None                      # z == M theta - q (non-smooth losses)
+    constraints: list[tuple[Requirement, cp.Constraint]]
+    M: np.ndarray | sp.csr_matrix
+    q: np.ndarray
+    a: np.ndarray
+    build_seconds: float
+
+
+def build(task, penalties_expr=None) -> Model:
+    t0 = time.perf_counter()
+    ds = task.dataset
+    M, q, a = loss_argument(task)
+    M = M.explicit()
+    p = M.shape[1]
+    theta = cp.Variable(p, name="theta")
+    w = theta[: ds.d]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        z_expr = M @ theta - q
+        tie = None
+        if task.loss.smooth:
+            loss_term = task.loss.mean_expr(z_expr, a)
+        else:
+            z = cp.Variable(ds.n, name="z")
+            tie = z == z_expr
+            loss_term = task.loss.mean_expr(z, a)
+        objective = loss_term
+        if penalties_expr is not None:
+            objective = objective + penalties_expr(w)
+        else:
+            for pen in task.penalties:
+                objective = objective + pen.expr(w, ds.names)
+        pairs = [(r, requirement_constraint(r, theta)) for r in task.requirements]
+        constraints = ([tie] if tie is not None else []) + [c for _, c in pairs]
+        problem = cp.Problem(cp.Minimize(objective), constraints)
+    return Model(problem, theta, tie, pairs, M, q, a, time.perf_counter() - t0)
+
+
+BYTES_PER_NONZERO = 300   # peak memory per design nonzero of compiling and solving (measured 226-260 B
+                          # with cvxpy 1.9 + Clarabel, n = 20000, d = 50; rounded up)
+
+
+def eligible(task) -> str | None:
+    """The direct route takes every task (memory permitting: see :func:`check_size`)."""
+    return None
+
+
+def _available_bytes() -> float:
+    try:
+        return float(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return float("inf")
+
+
+def check_size(task, available: float | None = None) -> None:
+    """Refuse, before compiling, a direct problem whose compilation would not fit in memory."""
+    X = task.dataset.X
+    nnz = (X.nnz if sp.issparse(X) else X.size) + task.dataset.n * (1 + int(task.intercept))
+    nnz += sum(int(np.count_nonzero(r.A)) for r in task.requirements)
+    need = BYTES_PER_NONZERO * nnz
+    available = _available_bytes() if available is None else available
+    if need <= 0.5 * available:
+        return
+    from learnopt.solve.routes import ROUTES, _module
+    fits = [r for r in ROUTES if r != "direct" and _module(r).eligible(task) is None]
+    how = (f"use route={fits[0]!r} (it never compiles the whole design)" if fits else
+           "sample rows, or shard the data across machines")
+    raise TooLargeError(
+        f"The direct route would need about {need / 2**30:.1f} GiB to compile this task "
+        f"({task.dataset.n} rows, {nnz} nonzeros) and {available / 2**30:.1f} GiB is free; {how}.")
+
+
+class Runner(RunnerBase):
+    """The direct route: build the one problem once, solve it with whichever solver is asked."""
+
+    name = "direct"
+
+    def __init__(self, task, vary: int | None = None):
+        check_size(task)
+        self.task, self.vary = task, vary
+        self.model = build(task, self.penalties_expr)
+        self.build_seconds = self.model.build_seconds
+        self.problem_class = task.problem_class()
+
+    def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> Outcome:
+        model = self.model
+        status, compile_s, solve_s, iterations = run(model.problem, spec, options, verbose, warm)
+        theta = model.theta.value
+        if theta is not None:
+            theta = np.asarray(theta, float).copy()
+        u = self.dual_point(theta) if theta is not None and np.all(np.isfinite(theta)) else None
+        return Outcome(status, theta, u, read_multipliers(model.constraints), compile_s, solve_s, iterations)
+
+    def dual_point(self, theta: np.ndarray) -> np.ndarray:
+        """The loss dual point u (one per row): the tie's dual value, or the loss gradient."""
+        model = self.model
+        nu = model.tie.dual_value if model.tie is not None else None
+        if nu is None:
+            return self.task.loss.gradient(model.M @ theta - model.q)
+        nu = np.asarray(nu, float).ravel()
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(model.a > 0, -nu / model.a, 0.0)
+
+
+def elastic(task, tol: float = 1e-7):
+    """Smallest total slack that makes the requirements hold together (no loss).
+
+    Returns {rule text: slack} for the rules that need slack, or None when the solve fails.
+    """
+    reqs = task.requirements
+    if not reqs:
+        return {}
+    p = task.dataset.d + int(task.intercept)
+    theta = cp.Variable(p)
+    s = cp.Variable(len(reqs), nonneg=True)
+    cons = []
+    for k, r in enumerate(reqs):
+        scale = r.scale()
+        if r.sense == "norm":
+            cons.append(cp.norm(r.A @ theta + r.rhs, r.order) + r.f @ theta <= r.bound + scale * s[k])
+        elif r.sense == "==":
+            cons.append(cp.abs(r.A @ theta - r.rhs) <= scale * s[k])
+        else:
+            cons.append(r.A @ theta <= r.rhs + scale * s[k])
+    prob = cp.Problem(cp.Minimize(cp.sum(s)), cons)
+    try:
+        prob.solve(solver="CLARABEL")
+    except cp.error.SolverError:
+        return None
+    if prob.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE):
+        return None
+    out = {}
+    for k, r in enumerate(reqs):
+        amount = float(s.value[k]) * r.scale()
+        if s.value[k] > tol:
+            out[r.text] = out.get(r.text, 0.0) + amount
+    return out
