@@ -101,16 +101,17 @@ def growth(client, sizes) -> list[dict]:
 
 def admm_rounds(client, n: int) -> list[dict]:
     from learnopt.solve.routes import sharded
+    from learnopt.scale.cluster import ClusterSettings
     from learnopt.solve.loop import solve_task
+    from learnopt.solve.routes.base import Settings
     out = []
     with tempfile.TemporaryDirectory() as folder:
         pattern = write_table(folder, n, seed=1, kind="classification", file_rows=n // 4)
         for loss, method in [("logistic", "newton"), ("logistic", "admm"), ("hinge", "admm")]:
             task = lo.classification(pattern, target="y", loss=loss).penalize(lo.penalty.l2(1e-3))
             t0 = time.perf_counter()
-            runner = sharded.Runner(task, client=client, progress=True, method=method)
-            fit = solve_task(task, solver=None, tol=1e-9, gap_tol=1e-6, feas_tol=1e-6, route=None, fallback=True,
-                             solver_options={}, verbose=False, runner=runner)
+            runner = sharded.Runner(task, cluster=ClusterSettings(client=client, progress=True, method=method))
+            fit = solve_task(task, Settings(gap_tol=1e-6), runner=runner)
             row = {"loss": loss, "method": method, "rows": n, "status": fit.status, "rel_gap": fit.rel_gap,
                    "rounds": fit.extras["rounds"], "passes": fit.extras["passes"],
                    "seconds": time.perf_counter() - t0}

@@ -5,38 +5,37 @@ the answer back with evidence (certified gap, timings, prices of the rules).
 >>> lo.loss.huber(2.0)
 Huber(delta=2.0)
 """
+from learnopt import rules as rule
+from learnopt.centres.fusion import FusionFit, FusionTask, fusion
+from learnopt.centres.placement import CentresFit, CentresTask, centres
+from learnopt.core.errors import (AccuracyWarning, DataError, LearnoptError, MissingDependencyError, NotConvexError,
+                                  ParameterError, SolverError, TooLargeError)
+from learnopt.core.status import Status
+from learnopt.interface.task import Task, classification, load_fit, regression
+from learnopt.problem.problem import Problem
+from learnopt.solve.evaluation import Evaluation
+from learnopt.solve.fit import Fit
+from learnopt.solve.solvers import installed as installed_solvers
+from learnopt.solve.timings import Attempt, Timings
 from learnopt.terms import losses as loss
 from learnopt.terms import penalties as penalty
-from learnopt import rules as rule
 from learnopt.terms.convexity import Verdict
-from learnopt.core.errors import (AccuracyWarning, DataError, LearnoptError, MissingDependencyError, NotConvexError, ParameterError,
-                     SolverError, TooLargeError)
-from learnopt.solve.evaluation import Evaluation
-from learnopt.solve.fit import Attempt, Fit, Timings
-from learnopt.solve.solvers import installed as installed_solvers
-from learnopt.centres.placement import CentresFit, CentresTask, centres
-from learnopt.centres.fusion import FusionFit, FusionTask, fusion
-from learnopt.interface.task import Task, classification, regression
 
 __version__ = "0.1.0"
-
-
-def load_fit(path):
-    """Read a fit saved with ``fit.save(path)``; it predicts exactly as the saved one did."""
-    from learnopt.solve.fitfile import load
-    return load(path)
 
 
 def estimator(kind: str = "regression", loss=None, **options):
     """A scikit-learn compatible estimator around a learnopt task (needs scikit-learn).
 
-    See :func:`learnopt.adapter.estimator` for the parameters.
+    See :func:`learnopt.interface.adapter.estimator` for the parameters. The adapter is imported
+    here, on first use, because it imports scikit-learn (an optional extra).
     """
     from learnopt.interface.adapter import estimator as _estimator
     return _estimator(kind, loss, **options)
 
+
 __all__ = [
-    "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Fit", "Attempt", "Timings",
+    "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Problem", "Status", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
     "SolverError", "TooLargeError", "MissingDependencyError", "AccuracyWarning", "installed_solvers",
 ]

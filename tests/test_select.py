@@ -6,7 +6,7 @@ import pandas as pd
 import pytest
 
 import learnopt as lo
-from learnopt.selection.paths import fold_rows
+from learnopt.selection.crossval import fold_rows
 
 DIABETES = ["age", "sex", "bmi", "bp", "s1", "s2", "s3", "s4", "s5", "s6"]
 

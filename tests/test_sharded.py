@@ -16,6 +16,8 @@ import pandas as pd
 import pytest
 
 import learnopt as lo
+from learnopt.scale.cluster import ClusterSettings
+from learnopt.solve.routes.base import Settings
 from learnopt.core.errors import DataError, ParameterError
 from learnopt.interface.recipes import load_recipe
 
@@ -191,7 +193,8 @@ def test_rules_row_by_row_errors(client):
         task.require("prediction >= 0 where site == 'nowhere'").solve(client=client)
     with pytest.raises(ParameterError, match="cannot apply rules row by row"):
         from learnopt.solve.routes import sharded
-        sharded.Runner(task.require("prediction >= 0 where site == 'mill'"), client=client, method="gram")
+        sharded.Runner(task.require("prediction >= 0 where site == 'mill'"),
+                       cluster=ClusterSettings(client=client, method="gram"))
     with pytest.raises(DataError, match="unknown name 'sight'. Close matches: site. Coefficients: f0"):
         task.require("mean(prediction where sight == 'mill') <= 1")
     with pytest.raises(DataError, match="takes one row-wise expression"):
@@ -254,9 +257,8 @@ def test_admm_on_a_smooth_loss_reaches_the_newton_answer(client, tmp_path):
     frame = make_classes(1200)
     pattern = write_parts(frame, tmp_path, 3)
     task = lo.classification(pattern, target="label", loss="logistic").penalize(lo.penalty.l2(0.05))
-    runner = sharded.Runner(task, client=client, progress=False, method="admm")
-    fit = solve_task(task, solver=None, tol=1e-9, gap_tol=1e-6, feas_tol=1e-6, route=None, fallback=True,
-                     solver_options={}, verbose=False, runner=runner)
+    runner = sharded.Runner(task, cluster=ClusterSettings(client=client, progress=False, method="admm"))
+    fit = solve_task(task, Settings(gap_tol=1e-6), runner=runner)
     ref = lo.classification(frame, target="label", loss="logistic").penalize(lo.penalty.l2(0.05)).solve()
     assert fit.status == "optimal" and fit.extras["method"] == "admm"
     assert rel(fit.objective, ref.objective) <= 1e-6

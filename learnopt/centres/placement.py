@@ -31,6 +31,11 @@ import pandas as pd
 from learnopt.core import checks as params
 from learnopt.data.points import assign, coordinate_columns
 from learnopt.core.errors import DataError, NotConvexError, ParameterError
+from learnopt.core.status import CAUTION
+from learnopt.data.gateway import is_sharded_source
+from learnopt.data.sharded import open_points
+from learnopt.problem.algebra import requirement_constraint
+from learnopt.scale.points import PointBlocks
 from learnopt.rules.language import as_spec, compile_all
 from learnopt.rules.requirements import Context, RuleSpec
 
@@ -120,8 +125,6 @@ def centres(data, k: int = 5, weights=None, features: Sequence[str] | None = Non
     """
     params.check("centres", k=(k, params.Interval(1, None)))
     index = None
-    from learnopt.data.sharded import open_points
-    from learnopt.data.gateway import is_sharded_source
     if is_sharded_source(data):
         points = open_points(data, weights, features)
         if k > points.positive:
@@ -174,7 +177,6 @@ class _Projector:
     """Projection of a point onto one centre's allowed set, compiled once (cvxpy, DPP)."""
 
     def __init__(self, reqs, d: int):
-        from learnopt.problem.algebra import requirement_constraint
         self.reqs = reqs
         self.m = cp.Parameter(d)
         self.c = cp.Variable(d)
@@ -318,7 +320,6 @@ def _solve(task, restarts, seed, max_iter, tol, client=None):
     t0 = time.perf_counter()
     reqs, movable, project = _projectors(task, len(task.names))
     if task.source is not None:
-        from learnopt.scale.points import PointBlocks
         blocks = PointBlocks(task.source, client)
         stats, X, w = blocks.stats, blocks.sample(seed), None
     else:
@@ -393,9 +394,8 @@ class CentresFit:
                           "rms_distance": float(np.sqrt(np.average(d2, weights=w)))})
 
     def summary(self) -> str:
-        from learnopt.solve.fit import DISCLAIMER
         return "\n".join([f"status     {self.status} ({self.message})", f"objective  {self.objective:.10g}",
-                          self.centres.join(self.loads).to_string(), DISCLAIMER])
+                          self.centres.join(self.loads).to_string(), CAUTION])
 
 
 def _points(task, points) -> np.ndarray:

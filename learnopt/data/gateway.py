@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import os
 
-from learnopt.data.sharded import GLOB_CHARS, open_source
-from learnopt.data.table import open_memory
+from learnopt.data.sharded import GLOB_CHARS, open_source, read_glob
+from learnopt.data.table import open_memory, read_table
 
 
 def is_sharded_source(data) -> bool:
@@ -31,3 +31,8 @@ def from_data(data, target, *, kind: str = "regression", features=None, weights=
                            intercept=intercept, positive=positive)
     return open_memory(data, target, kind=kind, features=features, weights=weights, intercept=intercept,
                        positive=positive)
+
+
+def read_source(path):
+    """A table from a path: a lazy dask DataFrame for a file pattern, else a pandas DataFrame."""
+    return read_glob(path) if is_sharded_source(path) else read_table(path)

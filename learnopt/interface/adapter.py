@@ -13,6 +13,8 @@ from __future__ import annotations
 import numpy as np
 
 from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
+from learnopt.interface.task import classification, regression
+from learnopt.terms import penalties as pen
 
 try:
     from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
@@ -41,8 +43,6 @@ class _Base(BaseEstimator):
         self.route = route
 
     def _task(self, X, y, sample_weight):
-        from learnopt.terms import penalties as pen
-        from learnopt.interface.task import classification, regression
         names = [str(c) for c in self.feature_names_in_] if hasattr(self, "feature_names_in_") \
             else [f"x{j}" for j in range(X.shape[1])]
         build = regression if self._kind == "regression" else classification

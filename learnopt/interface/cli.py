@@ -50,7 +50,7 @@ def _fit_json(fit) -> dict:
 
 def _show(job, as_json: bool) -> None:
     import pandas as pd
-    from learnopt.solve.fit import DISCLAIMER
+    from learnopt.core.status import CAUTION
     fit = job.fit
     if as_json:
         out = {"fit": _fit_json(fit), "written": job.written}
@@ -86,7 +86,7 @@ def _show(job, as_json: bool) -> None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
     for path in job.written:
         con.print(f"wrote {path}")
-    con.print(DISCLAIMER)
+    con.print(CAUTION)
 
 
 def _run(recipe_path, as_json, report, **overrides):

@@ -5,12 +5,21 @@ The fit asks what ready-made estimators cannot: minutes must not fall with dista
 sizes must cost increasing time, stops are capped, retail forecasts must stay above the
 promised service floor, and the two regions must get similar average forecasts.
 
-Run ``python -m learnopt.demo`` (or ``learnopt-demo``).
+Run ``python -m learnopt.interface.demo`` (or ``learnopt-demo``).
 """
 from __future__ import annotations
 
+import os
+from importlib import resources
+
 import numpy as np
 import pandas as pd
+
+from learnopt.centres.placement import centres
+from learnopt.core.files import write_atomic
+from learnopt.interface.task import regression
+from learnopt.rules.regions import polygon, segment
+from learnopt.terms import losses, penalties
 
 
 def make_data(n: int = 600, seed: int = 7) -> pd.DataFrame:
@@ -44,11 +53,10 @@ def depots(k: int = 4, restarts: int = 10):
     """Place k refill depots for the Lanternfield bikes: inside the district (a convex polygon),
     weighted by weekly refills, one depot already at the office (0.5, 0.5) and depot 2 on the
     riverside road (a segment)."""
-    import learnopt as lo
     where = ("east_km", "north_km")
-    district = lo.rule.polygon([(0, 0), (7, 0), (7.5, 4), (6, 7), (0, 6.5)], features=where)
-    river = lo.rule.segment((0.0, 3.0), (7.2, 3.0), features=where)
-    task = lo.centres(make_bike_stops(), k=k, weights="refills", features=list(where), fixed=[(0.5, 0.5)])
+    district = polygon([(0, 0), (7, 0), (7.5, 4), (6, 7), (0, 6.5)], features=where)
+    river = segment((0.0, 3.0), (7.2, 3.0), features=where)
+    task = centres(make_bike_stops(), k=k, weights="refills", features=list(where), fixed=[(0.5, 0.5)])
     task = task.require(district)
     if k >= 2:
         task = task.require(river, centre=2)
@@ -57,14 +65,11 @@ def depots(k: int = 4, restarts: int = 10):
 
 def demo_recipe() -> str:
     """The bundled demo recipe (the same text as recipes/deliveries.toml; a test keeps them equal)."""
-    from importlib import resources
     return resources.files("learnopt.interface").joinpath("demo_recipe.toml").read_text(encoding="utf-8")
 
 
 def write_demo(folder: str) -> str:
     """Write the demo data (seeded) and recipe into ``folder``; return the recipe's path."""
-    import os
-    from learnopt.core.files import write_atomic
     os.makedirs(os.path.join(folder, "data"), exist_ok=True)
     write_atomic(os.path.join(folder, "data", "deliveries.csv"), make_data().to_csv(index=False))
     path = os.path.join(folder, "deliveries.toml")
@@ -73,13 +78,11 @@ def write_demo(folder: str) -> str:
 
 
 def main() -> int:
-    import learnopt as lo
-
     df = make_data()
     train, test = df.iloc[:480], df.iloc[480:]
-    task = (lo.regression(train, target="minutes", loss=lo.loss.huber(4.0),
-                          features=["distance_km", "stops", "size", "region"])
-            .penalize(lo.penalty.l1(0.01))
+    task = (regression(train, target="minutes", loss=losses.huber(4.0),
+                       features=["distance_km", "stops", "size", "region"])
+            .penalize(penalties.l1(0.01))
             .require("distance_km >= 0",
                      "0 <= stops <= 3",
                      "increasing(`size=small`, `size=medium`, `size=large`)",

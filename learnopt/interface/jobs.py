@@ -8,6 +8,8 @@ import pandas as pd
 
 from learnopt.core.errors import DataError
 from learnopt.core.files import write_atomic
+from learnopt.data.gateway import read_source
+from learnopt.interface.report import html
 from learnopt.interface.recipes import Recipe, _frame, build_task
 
 
@@ -36,11 +38,7 @@ def _split(recipe: Recipe, frame):
         raise DataError("do.holdout.fraction: a random held-out split of sharded data is not available; "
                         "give do.holdout.path (a held-out file) instead.")
     if hold.path is not None:
-        from learnopt.data.table import read_table
-        from learnopt.data.sharded import read_glob
-        from learnopt.data.gateway import is_sharded_source
-        path = recipe.resolve(hold.path)
-        return frame, (read_glob(path) if is_sharded_source(path) else read_table(path))
+        return frame, read_source(recipe.resolve(hold.path))
     rng = np.random.default_rng(hold.seed)
     test = rng.random(len(frame)) < hold.fraction
     return frame.loc[~test], frame.loc[test]
@@ -108,6 +106,5 @@ def _outputs(job: Job, frame, report: str | None) -> None:
         job.written.append(path)
     target = report or (recipe.resolve(out.report) if out.report else None)
     if target:
-        from learnopt.interface.report import html
         write_atomic(target, html(job))
         job.written.append(target)

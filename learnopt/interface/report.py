@@ -9,7 +9,9 @@ import io
 import numpy as np
 import pandas as pd
 
-from learnopt.solve.fit import DISCLAIMER
+from learnopt.core.status import CAUTION
+from learnopt.problem.algebra import loss_argument
+from learnopt.scale.passes import argument_histogram
 
 STYLE = """body{font-family:system-ui,sans-serif;max-width:60rem;margin:2rem auto;color:#222}
 table{border-collapse:collapse;margin:.5rem 0}td,th{border:1px solid #ccc;padding:.2rem .5rem;text-align:right}
@@ -53,9 +55,7 @@ def _png(draw) -> str:
 def _argument_histogram(task, theta, bins: int = 40):
     """Histogram of the loss argument on the training rows (by passes for sharded data)."""
     if task.sharded:
-        from learnopt.scale.passes import argument_histogram
         return argument_histogram(task.dataset, theta, task.intercept, task.loss.argument == "margin", bins)
-    from learnopt.problem.algebra import loss_argument
     M, q, _ = loss_argument(task)
     return np.histogram(M @ theta - q, bins=bins)
 
@@ -109,7 +109,7 @@ def html(job) -> str:
         parts.append("<h2>Held-out evaluation</h2>" + _table(job.evaluation.metrics.to_frame("value")))
         if job.evaluation.confusion is not None:
             parts.append(_table(job.evaluation.confusion))
-    parts.append(f"<p class=\"note\">{_html.escape(DISCLAIMER)}</p>")
+    parts.append(f"<p class=\"note\">{_html.escape(CAUTION)}</p>")
     return (f"<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>"
             f"{_html.escape(recipe.title or 'learnopt fit')}</title><style>{STYLE}</style></head><body>"
             + "\n".join(parts) + "</body></html>\n")

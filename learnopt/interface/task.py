@@ -1,103 +1,47 @@
-"""The task builder: data + loss + penalties + requirements (+ intercept, row weights).
+"""The task builder: data + loss + penalties + requirements (+ intercept, row weights), and
+the verbs a user calls on it (require, check, solve, path, cross_validate, compare).
 
 Tasks are immutable: ``penalize`` and ``require`` return a new task and leave the original as
-it was, so one base task can be varied freely.
-
-Objective (the convention everywhere in learnopt)::
-
-    minimise  sum_i a_i f(z_i) + sum_k R_k(w)      a_i = weight_i / sum(weights)
-
-i.e. the weighted *mean* of the loss over rows plus the penalties; the intercept is never
-penalised.
+it was, so one base task can be varied freely. The objective's convention is documented on
+:class:`~learnopt.problem.problem.Problem`.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import numpy as np
 
+from learnopt.core.errors import ParameterError
+from learnopt.data.gateway import from_data
+from learnopt.problem.formulate import build, one_row
+from learnopt.problem.problem import Problem
+from learnopt.rules.language import as_spec, compile_all
+from learnopt.rules.requirements import RuleSpec
+from learnopt.scale.partitions import compile_rules
+from learnopt.selection.crossval import cross_validate
+from learnopt.selection.paths import path
+from learnopt.scale.cluster import ClusterSettings
+from learnopt.solve.fit import Fit
+from learnopt.solve.loop import compare, solve_task
+from learnopt.solve.routes.base import Settings
 from learnopt.terms import losses as _losses
 from learnopt.terms.convexity import Verdict, require_convex
-from learnopt.data.table import Dataset
-from learnopt.data.gateway import from_data
-from learnopt.core.errors import ParameterError
-from learnopt.terms.penalties import CustomPenalty, Penalty
-from learnopt.rules.language import as_spec, compile_all
-from learnopt.rules.requirements import Context, Requirement, RuleSpec
-from learnopt.solve.solvers import CLASS_LABEL, problem_class
 
-SHARDED_ROWS = ("this rule object needs the data rows, which live in the partitions of sharded data; "
-                "write it as rule text (rules on predictions are compiled inside each partition).")
 REGRESSION_LOSSES = {"squared", "absolute", "huber", "quantile", "epsilon_insensitive"}
 CLASSIFICATION_LOSSES = {"hinge", "squared_hinge", "logistic", "squared", "zero_one"}
 
 
 @dataclass(frozen=True, eq=False)
-class Task:
-    """A learning task. Build it with :func:`regression` or :func:`classification`."""
+class Task(Problem):
+    """A learning task: the problem value (:class:`~learnopt.problem.problem.Problem`) with the
+    verbs a user calls. Build it with :func:`regression` or :func:`classification`.
 
-    dataset: Dataset
-    kind: str
-    loss: _losses.Loss
-    intercept: bool
-    target_name: object
-    penalties: tuple[Penalty, ...] = ()
-    rules: tuple[RuleSpec, ...] = ()
-    requirements: tuple[Requirement, ...] = field(default=())
-    # sharded data only: rules on predictions row by row, compiled inside each partition
-    row_rules: tuple[str, ...] = ()
-
-    # ---- names
-    @property
-    def features(self) -> tuple[str, ...]:
-        """Coefficient names, in the order of the coefficient vector."""
-        return self.dataset.names
-
-    @property
-    def coefficient_names(self) -> tuple[str, ...]:
-        return self.dataset.names + (("intercept",) if self.intercept else ())
-
-    @property
-    def sharded(self) -> bool:
-        """Does the data live on a dask cluster (a dask DataFrame or a file pattern)?"""
-        return getattr(self.dataset, "sharded", False)
-
-    def context(self) -> Context:
-        from learnopt.data.table import design_with_ones
-        enc = self.dataset.encoding
-        if self.sharded:
-            reference = tuple(f"{c}={v}" for c, v in enc.reference.items())
-            return Context(self.coefficient_names, None, None, reference, no_rows=SHARDED_ROWS)
-        X = self.dataset.X
-        Xt = design_with_ones(X, self.intercept)          # sparse stays sparse: rules take rows of it
-        reference = tuple(f"{c}={v}" for c, v in enc.reference.items()) if enc is not None else ()
-        return Context(self.coefficient_names, Xt, self.dataset.frame, reference)
+    Tasks are immutable: ``penalize`` and ``require`` return a new task and leave the original
+    as it was, so one base task can be varied freely.
+    """
 
     # ---- building
-    def penalize(self, *penalties: Penalty) -> "Task":
-        """A new task with these penalties added (see :mod:`learnopt.penalties`)."""
-        bad = [p for p in penalties if not isinstance(p, Penalty)]
-        if bad:
-            raise ParameterError(f"penalize() takes penalties such as lo.penalty.l1(0.1); got {bad!r}.")
-        for p in penalties:
-            self._check_penalty(p)
-        return replace(self, penalties=self.penalties + tuple(penalties))
-
-    def _check_penalty(self, p: Penalty) -> None:
-        names = self.features
-        if isinstance(p, CustomPenalty):
-            require_convex(p.fn, len(names), f"Custom penalty {p.describe()!r}", "w")
-            return
-        import cvxpy as cp
-        p.expr(cp.Variable(len(names)), names)   # resolves names; raises DataError on unknown names
-
-    def with_strength(self, index: int, lam: float) -> "Task":
-        """A new task with penalty ``index`` at strength ``lam`` (paths and cross-validation)."""
-        pens = list(self.penalties)
-        pens[index] = pens[index].with_strength(float(lam))
-        return replace(self, penalties=tuple(pens))
-
     def require(self, *rules: str | RuleSpec) -> "Task":
         """A new task with these requirements added (rule text or rule objects).
 
@@ -109,7 +53,6 @@ class Task:
         specs = tuple(as_spec(r) for r in rules)
         rows: list[str] = []
         if self.sharded:
-            from learnopt.scale.partitions import compile_rules
             compiled, rows = compile_rules(self, specs)      # mean/sum of predictions by one pass
         else:
             compiled = compile_all(specs, self.context())
@@ -117,14 +60,9 @@ class Task:
                        row_rules=self.row_rules + tuple(rows))
 
     # ---- verdict
-    def problem_class(self, loss_cone: str | None = None) -> str:
-        """The widest cone class the pieces need (``loss_cone`` replaces the loss's own)."""
-        cones = [loss_cone or self.loss.cone] + [p.cone for p in self.penalties]
-        cones += ["second_order" if r.sense == "norm" and r.order == 2 else "linear" for r in self.requirements]
-        return problem_class(cones)
-
     def check(self) -> Verdict:
-        """Convexity verdict and data findings, without solving."""
+        """Convexity verdict and data findings, without solving (looks at a one-row stand-in:
+        more rows only repeat the loss term, so nothing row-sized is built)."""
         pieces = [(f"loss {self.loss.describe()}", f"convex, {self.loss.argument} loss, "
                    f"{'smooth' if self.loss.smooth else 'piecewise'}; needs {self.loss.cone} cone")]
         pieces += [(f"penalty {p.describe()}", f"convex; needs {p.cone} cone") for p in self.penalties]
@@ -133,23 +71,19 @@ class Task:
                     else f"linear {'equality' if r.sense == '==' else 'inequality'} ({r.rows} row{'s' * (r.rows > 1)})")
             pieces.append((f"rule {r.text!r}", fact))
         reasons = []
-        from learnopt.solve.routes.direct import build
         try:
-            prob = self._small_problem() if self.sharded else build(self).problem
-            if not prob.is_dcp():
+            if not one_row(self).is_dcp():
                 reasons.append("learnopt's own verdict says convex but cvxpy's DCP check disagrees; "
                                "this is a learnopt bug, please report it with the task.")
         except Exception as exc:  # noqa: BLE001 - surfaced in the verdict
             reasons.append(f"the problem could not be built: {exc}")
-        return Verdict(not reasons, CLASS_LABEL[self.problem_class()], pieces, reasons,
-                       list(self.dataset.notes))
+        return Verdict(not reasons, self.class_label(), pieces, reasons, list(self.dataset.notes))
 
     def problem(self):
         """The underlying cvxpy.Problem (direct formulation), for people who want to go further.
 
         Variables: ``theta`` = (coefficients in :attr:`features` order, then the intercept).
         """
-        from learnopt.solve.routes.direct import build
         self._in_memory("problem()")
         return build(self).problem
 
@@ -158,16 +92,6 @@ class Task:
             raise ParameterError(f"{what} needs the data in memory; this task's data is sharded "
                                  f"({self.dataset.label}). Solve it with task.solve(), or load a sample "
                                  f"into a pandas DataFrame for {what}.")
-
-    def _small_problem(self):
-        """The loss on one stand-in row with every penalty and rule: what the convexity check of
-        sharded data looks at (the rows only repeat the loss term)."""
-        import cvxpy as cp
-        theta = cp.Variable(len(self.coefficient_names))
-        from learnopt.problem.algebra import requirement_constraint
-        objective = cp.sum(self.loss.expr(cp.reshape(cp.sum(theta), (1,), order="F")))
-        objective = objective + sum(p.expr(theta[: self.dataset.d], self.features) for p in self.penalties)
-        return cp.Problem(cp.Minimize(objective), [requirement_constraint(r, theta) for r in self.requirements])
 
     # ---- solving
     def solve(self, solver: str | None = None, *, tol: float = 1e-9, gap_tol: float = 1e-7,
@@ -197,10 +121,10 @@ class Task:
             dask's current client, else a local cluster learnopt starts).
         progress : sharded data only: a line per round of passes (None: only on a terminal).
         """
-        from learnopt.solve.loop import solve_task
-        return solve_task(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route,
-                          fallback=fallback, solver_options=solver_options or {}, verbose=verbose,
-                          time_limit=time_limit, polish=polish, client=client, progress=progress)
+        settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, time_limit=time_limit, polish=polish,
+                            fallback=fallback, solver_options=dict(solver_options or {}), verbose=verbose)
+        cluster = None if client is None and progress is None else ClusterSettings(client=client, progress=progress)
+        return solve_task(self, settings, solver=solver, route=route, cluster=cluster)
 
     def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
              route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
@@ -219,7 +143,6 @@ class Task:
         The problem is compiled once (the strength is a cvxpy Parameter), each point starts
         from the previous one, and each point is certified; requirements hold at every point.
         """
-        from learnopt.selection.paths import path
         self._in_memory("path()")
         return path(self, penalty, grid, n, ratio=ratio, route=route, solver=solver, tol=tol,
                     gap_tol=gap_tol, feas_tol=feas_tol, progress=progress)
@@ -238,7 +161,6 @@ class Task:
         (classification targets are +1/-1, scores are X w + b). Default grid: ``n``
         strengths from the zeroing strength on all rows down to ``ratio`` times it.
         """
-        from learnopt.selection.paths import cross_validate
         self._in_memory("cross_validate()")
         return cross_validate(self, folds, grid, metric, seed, groups, ordered=ordered, penalty=penalty, n=n,
                               ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
@@ -253,14 +175,9 @@ class Task:
         difference from the certified row with the lowest objective). Solvers that are not
         installed or cannot handle the problem class get a row with the reason.
         """
-        from learnopt.solve.loop import compare
         self._in_memory("compare()")
         return compare(self, list(solvers), tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
 
-    def __repr__(self) -> str:
-        return (f"Task({self.kind}, loss={self.loss.describe()}, {self.dataset.n} rows x {self.dataset.d} "
-                f"features, intercept={self.intercept}, penalties=[{', '.join(p.describe() for p in self.penalties)}], "
-                f"rules={[r.text for r in self.rules]})")
 
 
 def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
@@ -323,3 +240,9 @@ def classification(data, target, loss: _losses.Loss | str = "logistic", *, posit
     hinge, squared_hinge, logistic (default); squared regresses the -1/+1 labels.
     """
     return _build("classification", data, target, loss, features, weights, intercept, positive)
+
+
+def load_fit(path) -> Fit:
+    """Read a fit saved with ``fit.save(path)``; it predicts exactly as the saved one did. Its
+    ``task`` describes the problem (no training data): use it to predict and evaluate."""
+    return Fit.load(path, task_type=Task)

@@ -7,6 +7,7 @@ process (one single-threaded worker process per core, up to 4) and closes at exi
 from __future__ import annotations
 
 import atexit
+from dataclasses import dataclass
 import os
 
 from learnopt.core.errors import MissingDependencyError, ParameterError
@@ -65,3 +66,17 @@ def close_local() -> None:
         client.close()
         if cluster is not None:
             cluster.close()
+
+
+@dataclass(frozen=True)
+class ClusterSettings:
+    """Where and how a sharded fit runs; only the scale layer and the sharded route read it.
+
+    client : a ``distributed.Client``, a scheduler address, or None (dask's current client, else
+        a local cluster learnopt starts); progress : a line per round of passes (None: only on a
+        terminal); method : "gram", "newton" or "admm" (None: chosen from the loss).
+    """
+
+    client: object = None
+    progress: bool | None = None
+    method: str | None = None

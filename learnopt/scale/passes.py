@@ -3,9 +3,12 @@ held-out metric sums (evaluation) and predictions partition by partition (lazy).
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
+from scipy.special import expit
 
 from learnopt.core.errors import DataError
 from learnopt.data.sharded import BlockSpec, ShardedDataset, as_frame, encode_block
+from learnopt.data.table import design
 
 
 def _argument(part, spec, theta, intercept: bool, margin: bool, index: int):
@@ -83,3 +86,28 @@ def evaluation_sums(task, w, b, data) -> np.ndarray:
     total[4] = mean
     total[5] = sum(p[5] + p[0] * (p[4] - mean) ** 2 for p in parts)    # Chan et al.'s merge
     return total
+
+
+# ---- predictions partition by partition (lazy)
+
+def _partition_values(part: pd.DataFrame, encoding, w, b, labels, what: str) -> pd.Series:
+    """Scores, predictions or probabilities of one partition (run on a dask worker)."""
+    if len(part) == 0:
+        return pd.Series([], dtype=object if what == "prediction" and labels else float, name=what)
+    score = design(encoding, part.reset_index(drop=True)) @ w + b
+    if what == "probability":
+        values = expit(score)
+    elif what == "prediction" and labels is not None:
+        values = np.where(score > 0, labels[1], labels[0]).astype(object)
+    else:
+        values = score
+    return pd.Series(values, index=part.index, name=what)
+
+
+def partition_values(data, encoding, w, b, labels, what: str):
+    """Scores, predictions or probabilities of a dask DataFrame or a file pattern: a lazy dask
+    Series computed partition by partition (nothing is read until the caller asks)."""
+    ddf, _ = as_frame(data)
+    dtype = object if what == "prediction" and labels is not None else float
+    return ddf.map_partitions(_partition_values, encoding, w, b, labels, what,
+                              meta=pd.Series([], dtype=dtype, name=what))

@@ -17,12 +17,18 @@ from __future__ import annotations
 
 import sys
 from dataclasses import dataclass, field
-from typing import Any, Callable, Sequence
+from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
 
-from learnopt.core.errors import DataError, MissingDependencyError, ParameterError
+from learnopt.core import checks as params
+from learnopt.core.errors import MissingDependencyError, ParameterError
+from learnopt.problem.algebra import loss_argument
+from learnopt.solve.certificate import requirement_terms
+from learnopt.solve.loop import solve_task
+from learnopt.solve.routes import prepare
+from learnopt.solve.routes.base import Settings
 from learnopt.terms.penalties import CustomPenalty, Penalty, Separable
 
 
@@ -86,8 +92,6 @@ def zero_strength(task, index: int, fit) -> float:
     ``fit`` is a certified fit at a strength above that (all penalised coefficients zero);
     the answer is the dual norm of the rest of the stationarity condition there.
     """
-    from learnopt.solve.certificate import requirement_terms
-    from learnopt.problem.algebra import loss_argument
     M, q, a = loss_argument(task)
     theta = fit.theta
     u = task.loss.gradient(M @ theta - q)
@@ -179,9 +183,6 @@ def default_grid(task, index, top_fit, n: int, ratio: float) -> np.ndarray:
 def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
          route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
          feas_tol: float = 1e-6, progress: bool | None = None) -> Path:
-    from learnopt.core import checks as params
-    from learnopt.solve.routes import prepare
-    from learnopt.solve.loop import solve_task
     params.check("path", n=(n, params.POSITIVE), ratio=(ratio, params.OPEN_UNIT))
     task, index = _pick(task, penalty)
     if grid is not None:
@@ -189,15 +190,15 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
         if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
             raise ParameterError("The 'grid' parameter of path must be non-negative finite strengths. "
                                  f"Got {grid!r} instead.")
-    runner = prepare(task, route, vary=index)
-    opts = dict(solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, route=route, fallback=True,
-                solver_options={}, verbose=False)
+    runner = prepare(task.as_problem(), route, vary=index)
+    settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
+    opts = dict(solver=solver, route=route, runner=runner)
     if grid is None:
         # one fit far above the zeroing strength, on the same compiled problem
         scale = _strength_scale(task, index)
         for _ in range(3):
             runner.set_strength(scale)
-            top_fit = solve_task(task, runner=runner, **opts)
+            top_fit = solve_task(task, settings, **opts)
             if _all_zero(runner.task, index, top_fit) or _settled(top_fit):
                 break
             scale *= 1e3
@@ -211,13 +212,13 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
     try:
         for lam in grid:
             runner.set_strength(lam)
-            fit = solve_task(task, runner=runner, **opts)
+            fit = solve_task(task, settings, **opts)
             if fit.status in ("optimal", "unverified"):
                 runner.start = fit.theta
             fits.append(fit)
             w = fit.coef.to_numpy()
             cut = 1e-8 * max(1.0, float(np.max(np.abs(w), initial=0.0)))
-            rows.append({"strength": float(lam), "status": fit.status, "objective": fit.objective,
+            rows.append({"strength": float(lam), "status": fit.status.value, "objective": fit.objective,
                          "gap": fit.gap, "rel_gap": fit.rel_gap,
                          "training_loss": _training_loss(runner.task, fit) if np.all(np.isfinite(w)) else np.nan,
                          "nonzero": int(np.sum(np.abs(w) > cut)), "seconds": fit.timings.total})
@@ -232,7 +233,6 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
 
 def _strength_scale(task, index) -> float:
     """A strength well above the zeroing one: 1e3 x the gradient at theta = 0 over the smallest weight."""
-    from learnopt.problem.algebra import loss_argument
     M, q, a = loss_argument(task)
     g = M.T @ (a * task.loss.gradient(-q))
     unit = task.penalties[index].with_strength(1.0)
@@ -257,164 +257,3 @@ def _all_zero(task, index, fit) -> bool:
     N = unit.null_space(task.features)      # directions the penalty does not act on
     moved = w - N @ (N.T @ w) if N.shape[1] else w
     return bool(np.max(np.abs(moved), initial=0.0) <= 1e-7 * max(1.0, float(np.max(np.abs(w), initial=0.0))))
-
-
-# ---------------------------------------------------------------- cross-validation
-def fold_rows(n: int, folds: int, *, seed: int = 0, groups=None, ordered: bool = False):
-    """(train rows, held-out rows) per fold.
-
-    random (default): ``numpy.random.default_rng(seed).permutation(n)`` cut by ``numpy.array_split``
-    into ``folds`` parts, each held out once. groups: the distinct groups are permuted the same
-    way and dealt to the folds in turn, so a group is never split. ordered (time-ordered rows):
-    the rows are cut into ``folds + 1`` consecutive blocks; fold k trains on blocks 0..k-1 and
-    holds out block k (forward chaining: no fold trains on rows after the ones it predicts).
-    """
-    if ordered:
-        blocks = np.array_split(np.arange(n), folds + 1)
-        return [(np.concatenate(blocks[:k]), blocks[k]) for k in range(1, folds + 1)]
-    rng = np.random.default_rng(seed)
-    if groups is not None:
-        groups = np.asarray(groups)
-        uniq = np.unique(groups)
-        if len(uniq) < folds:
-            raise DataError(f"{len(uniq)} groups cannot fill {folds} folds; use folds <= {len(uniq)}.")
-        dealt = rng.permutation(uniq)
-        member = {g: k % folds for k, g in enumerate(dealt.tolist())}
-        fold_of = np.array([member[g] for g in groups.tolist()])
-        tests = [np.flatnonzero(fold_of == k) for k in range(folds)]
-    else:
-        tests = np.array_split(rng.permutation(n), folds)
-    every = np.arange(n)
-    return [(np.setdiff1d(every, t), np.sort(t)) for t in tests]
-
-
-_LOWER_IS_BETTER = {"loss", "mse", "mae", "pinball", "zero_one", "hinge", "log_loss"}
-
-
-def metric_function(task, metric) -> tuple[str, Callable, bool]:
-    """(name, fn(y, score, weights) -> float, higher_is_better). y: targets (+1/-1 for classes)."""
-    import re
-    if metric is None or metric == "loss":
-        loss = task.loss
-        if loss.argument == "margin":
-            return "loss", lambda y, s, w: float(np.average(loss.value(y * s), weights=w)), False
-        return "loss", lambda y, s, w: float(np.average(loss.value(s - y), weights=w)), False
-    if callable(metric):
-        name = getattr(metric, "__name__", "metric")
-        return name, lambda y, s, w: float(metric(y, s)), bool(getattr(metric, "higher_is_better", False))
-    text = str(metric).strip().lower().replace("-", "_").replace(" ", "_")
-    classify = task.kind == "classification"
-    simple = {
-        "mse": lambda y, s, w: float(np.average((s - y) ** 2, weights=w)),
-        "mae": lambda y, s, w: float(np.average(np.abs(s - y), weights=w)),
-        "accuracy": lambda y, s, w: float(np.average(np.where(s > 0, 1.0, -1.0) == y, weights=w)),
-        "zero_one": lambda y, s, w: float(np.average(np.where(s > 0, 1.0, -1.0) != y, weights=w)),
-        "hinge": lambda y, s, w: float(np.average(np.maximum(0.0, 1.0 - y * s), weights=w)),
-        "log_loss": lambda y, s, w: float(np.average(np.logaddexp(0.0, -y * s), weights=w)),
-    }
-    needs_classes = {"accuracy", "zero_one", "hinge", "log_loss"}
-    m = re.fullmatch(r"pinball\(\s*([0-9.eE+-]+)\s*\)", text)
-    if m:
-        tau = float(m.group(1))
-        if not 0.0 < tau < 1.0:
-            raise ParameterError(f"pinball(tau) needs 0 < tau < 1. Got {tau} instead.")
-        return (f"pinball({tau:g})", lambda y, s, w: float(np.average(
-            np.maximum(tau * (y - s), (tau - 1.0) * (y - s)), weights=w)), False)
-    if text not in simple:
-        raise ParameterError(f"Unknown metric {metric!r}; use one of loss, mse, mae, pinball(tau), accuracy, "
-                             f"zero_one, hinge, log_loss, or a callable f(y_true, score).")
-    if (text in needs_classes) != classify:
-        kind = "classification" if text in needs_classes else "regression"
-        raise ParameterError(f"The {text} metric is for {kind} tasks; this task is a {task.kind}.")
-    return text, simple[text], text == "accuracy"
-
-
-@dataclass
-class CrossValidation:
-    """Held-out scores over a grid of strengths.
-
-    Attributes
-    ----------
-    table : DataFrame, one row per strength: strength, mean and standard error (std over folds
-        / sqrt(folds)) of the held-out metric, and the number of certified fold fits.
-    scores : DataFrame, strengths x folds, the held-out metric of each fold fit.
-    best : the strength with the best mean. best_1se : the largest strength whose mean is
-        within one standard error of the best (the simpler model the data cannot tell apart).
-    metric : the metric's name; higher_is_better : its direction.
-    """
-
-    table: pd.DataFrame
-    scores: pd.DataFrame
-    best: float
-    best_1se: float
-    metric: str
-    higher_is_better: bool
-
-    def plot(self, ax=None):
-        """Mean held-out metric against strength with one-standard-error bars (matplotlib)."""
-        plt = _pyplot()
-        ax = ax or plt.subplots(figsize=(7, 4))[1]
-        ax.errorbar(self.table["strength"], self.table["mean"], yerr=self.table["se"], fmt="o-", ms=3)
-        ax.axvline(self.best, ls="--", label="best")
-        ax.axvline(self.best_1se, ls=":", label="best within 1 se")
-        ax.set_xscale("log")
-        ax.invert_xaxis()
-        ax.set_xlabel("strength")
-        ax.set_ylabel(f"held-out {self.metric}")
-        ax.legend(fontsize="small")
-        return ax
-
-
-def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, groups=None, *,
-                   ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
-                   route: str | None = None, solver: str | None = None, tol: float = 1e-9,
-                   gap_tol: float = 1e-7, feas_tol: float = 1e-6,
-                   progress: bool | None = None) -> CrossValidation:
-    from learnopt.core import checks as params
-    from learnopt.data.table import take_rows
-    from dataclasses import replace
-    params.check("cross_validate", folds=(folds, params.Interval(2, None)))
-    task, index = _pick(task, penalty)
-    name, score, higher = metric_function(task, metric)
-    ds = task.dataset
-    if groups is not None and isinstance(groups, str):
-        if ds.frame is None or groups not in ds.frame.columns:
-            raise DataError(f"groups={groups!r} is not a column of the data.")
-        groups = ds.frame[groups].to_numpy()
-    if groups is not None and len(groups) != ds.n:
-        raise DataError(f"groups has {len(groups)} entries for {ds.n} rows.")
-    splits = fold_rows(ds.n, int(folds), seed=seed, groups=groups, ordered=ordered)
-    if grid is None:
-        top = path(task, index, None, 1, ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
-                   feas_tol=feas_tol, progress=False)
-        grid = top.table["strength"].iloc[0] * np.geomspace(1.0, ratio, int(n))
-    grid = np.sort(np.asarray(grid, float).ravel())[::-1]
-    table = np.full((len(grid), len(splits)), np.nan)
-    certified = np.zeros(len(grid), int)
-    bar = _Progress(len(splits), "cross-validation", progress)
-    try:
-        for k, (train, held) in enumerate(splits):
-            sub = replace(task, dataset=take_rows(ds, train))
-            walk = path(sub, index, grid, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
-                        feas_tol=feas_tol, progress=False)
-            X, y, w = ds.X[held], ds.y[held], ds.weights[held]
-            for j, fit in enumerate(walk.fits):
-                if not np.all(np.isfinite(fit.coef.to_numpy())):
-                    continue
-                s = np.asarray(X @ fit.coef.to_numpy()).ravel() + fit.intercept
-                table[j, k] = score(y, s, w)
-                certified[j] += fit.status == "optimal"
-            bar.step()
-    finally:
-        bar.close()
-    mean = np.nanmean(table, axis=1)
-    counts = np.sum(np.isfinite(table), axis=1)
-    se = np.nanstd(table, axis=1, ddof=1) / np.sqrt(np.maximum(counts, 1))
-    out = pd.DataFrame({"strength": grid, "mean": mean, "se": se, "certified_folds": certified})
-    signed = -mean if higher else mean
-    b = int(np.nanargmin(signed))
-    within = np.flatnonzero(signed <= signed[b] + se[b])
-    best_1se = float(grid[within].max())
-    scores = pd.DataFrame(table, index=pd.Index(grid, name="strength"),
-                          columns=[f"fold {k}" for k in range(len(splits))])
-    return CrossValidation(out, scores, float(grid[b]), best_1se, name, higher)

@@ -27,6 +27,7 @@ import numpy as np
 import scipy.linalg as sla
 
 from learnopt.terms.penalties import CustomPenalty, Separable, separable_conjugate, separable_shrink
+from learnopt.problem.algebra import loss_argument
 from learnopt.rules.requirements import Requirement
 
 
@@ -57,7 +58,7 @@ class Certificate:
         return bool(np.isfinite(self.gap) and self.rel_gap <= gap_tol and self.rel_violation <= feas_tol)
 
 
-def _null_space(penalties, names, d: int, intercept: bool) -> np.ndarray:
+def null_space(penalties, names, d: int, intercept: bool) -> np.ndarray:
     """Orthonormal basis of directions in theta where the penalty sum is constant."""
     basis = np.eye(d)
     combined = _combined_separable(penalties, names)
@@ -83,7 +84,7 @@ def _null_space(penalties, names, d: int, intercept: bool) -> np.ndarray:
     return N
 
 
-def _inf_penalty(g_w, penalties, names) -> tuple[float, float]:
+def inf_penalty(g_w, penalties, names) -> tuple[float, float]:
     """(s, inf_w s*g_w.w + R(w)) with the shrink factor s that makes it finite."""
     if not penalties:
         return 1.0, 0.0 if np.allclose(g_w, 0.0, atol=0.0) else -np.inf
@@ -295,7 +296,7 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
         recent[:] = [(uu, out)] + recent[:2]
         return out
 
-    N = _null_space(penalties, names, d, intercept)
+    N = null_space(penalties, names, d, intercept)
     g = gradient(u)
     stationarity = float(np.linalg.norm(N.T @ g)) if N.shape[1] else 0.0
     note = ""
@@ -320,7 +321,7 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
             return -np.inf
         if N.shape[1]:
             g = g - N @ (N.T @ g)      # what is left along the free directions is round-off
-        s, inner_val = _inf_penalty(g[:d], penalties, names)
+        s, inner_val = inf_penalty(g[:d], penalties, names)
         su = s * uu
         value = float(-a @ loss.conjugate(su) - (a * su) @ q + s * const_req + inner_val)
         return value if np.isfinite(value) else -np.inf
@@ -343,3 +344,11 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     gap = max(primal - dual, 0.0)
     return Certificate(primal, dual, gap, gap / max(1.0, abs(primal)), violation, rel_violation,
                        stationarity, note, comp)
+
+
+def certify_point(task, theta, u, mults, enough: float = 0.0):
+    """learnopt's certificate for a point of the task (whatever route produced it)."""
+    M, q, a = loss_argument(task)
+    return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
+                   requirements=list(task.requirements), theta=theta, u=u, multipliers=mults,
+                   intercept=task.intercept, enough=enough)

@@ -13,6 +13,8 @@ import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError
+from learnopt.data.gateway import is_sharded_source
+from learnopt.scale.passes import evaluation_sums
 
 
 @dataclass
@@ -33,7 +35,6 @@ class Evaluation:
 
 
 def evaluate(fit, data, target=None) -> Evaluation:
-    from learnopt.data.gateway import is_sharded_source
     task = fit.task
     if is_sharded_source(data):
         if target is not None:
@@ -88,7 +89,6 @@ def evaluate(fit, data, target=None) -> Evaluation:
 
 def _sharded(fit, data) -> Evaluation:
     """The same metrics on sharded held-out data, from row sums computed partition by partition."""
-    from learnopt.scale.passes import evaluation_sums
     task = fit.task
     s = evaluation_sums(task, fit.coef.to_numpy(), fit.intercept, data)
     n = s[0]

@@ -9,76 +9,34 @@ rule holds with equality (within tolerance) at the returned point.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from learnopt.solve.certificate import Certificate
+from scipy.special import expit
+
 from learnopt.core.errors import DataError
+from learnopt.core.status import CAUTION, Status
 from learnopt.data.gateway import is_sharded_source
+from learnopt.data.table import new_design
+from learnopt.scale.passes import partition_values
+from learnopt.solve import fitfile
+from learnopt.solve.certificate import Certificate
+from learnopt.solve.evaluation import Evaluation, evaluate
+from learnopt.solve.timings import Attempt, Timings
 
-if TYPE_CHECKING:  # pragma: no cover
-    from learnopt.solve.evaluation import Evaluation
-
-def _partition_values(part: pd.DataFrame, encoding, w, b, labels, what: str) -> pd.Series:
-    """Scores, predictions or probabilities of one partition (run on a dask worker)."""
-    from learnopt.data.table import design
-    if len(part) == 0:
-        return pd.Series([], dtype=object if what == "prediction" and labels else float, name=what)
-    score = design(encoding, part.reset_index(drop=True)) @ w + b
-    if what == "probability":
-        from scipy.special import expit
-        values = expit(score)
-    elif what == "prediction" and labels is not None:
-        values = np.where(score > 0, labels[1], labels[0]).astype(object)
-    else:
-        values = score
-    return pd.Series(values, index=part.index, name=what)
+STATUSES = tuple(s.value for s in Status)
 
 
-STATUSES = ("optimal", "unverified", "infeasible", "unbounded", "failed")
-
-DISCLAIMER = ("This fit is a statistical estimate; decisions based on it follow local rules "
-              "and professional judgement.")
-
-
-@dataclass(frozen=True)
-class Attempt:
-    """One solver run: what was tried and what came of it."""
-
-    solver: str
-    outcome: str          # solver status, certificate verdict or the error
-    objective: float = np.nan
-    gap: float = np.nan
-    seconds: float = 0.0
-
-
-@dataclass
-class Timings:
-    """Seconds spent, measured by learnopt: build, compile, solve, certify, total."""
-
-    build: float = 0.0
-    compile: float = 0.0
-    solve: float = 0.0
-    certify: float = 0.0
-    total: float = 0.0
-
-    def as_dict(self) -> dict[str, float]:
-        return dict(build=self.build, compile=self.compile, solve=self.solve,
-                    certify=self.certify, total=self.total)
-
-    def __repr__(self) -> str:
-        return "Timings(" + ", ".join(f"{k}={v:.4f}s" for k, v in self.as_dict().items()) + ")"
-
-
-@dataclass
+@dataclass(frozen=True, kw_only=True)
 class Fit:
     """The answer to a task, with its evidence.
 
     Attributes
     ----------
-    status : one of "optimal", "unverified", "infeasible", "unbounded", "failed".
+    status : a :class:`~learnopt.core.status.Status` (a string: "optimal", "unverified",
+        "infeasible", "unbounded" or "failed").
         "optimal" only when learnopt's own certificate shows a relative gap <= gap_tol and
         every requirement holds within feas_tol.
     message : one sentence explaining the status.
@@ -92,7 +50,7 @@ class Fit:
     route : how the task was solved; attempts : every solver tried, with its outcome.
     """
 
-    status: str
+    status: Status
     message: str
     objective: float
     gap: float
@@ -106,10 +64,14 @@ class Fit:
     timings: Timings
     solver: str | None
     route: str
-    attempts: list[Attempt]
-    certificate: Certificate | None
+    attempts: tuple[Attempt, ...] = ()
+    certificate: Certificate | None = None
     task: Any = field(repr=False, default=None)
     extras: dict = field(default_factory=dict, repr=False)
+
+    def __post_init__(self):
+        object.__setattr__(self, "status", Status(self.status))
+        object.__setattr__(self, "attempts", tuple(self.attempts))
 
     # ---- the point
     @property
@@ -128,7 +90,6 @@ class Fit:
 
     # ---- predictions
     def _scores(self, data) -> np.ndarray:
-        from learnopt.data.table import new_design
         self._need_point()
         X = new_design(self.task.dataset, data)
         return np.asarray(X @ self.coef.to_numpy() + self.intercept).ravel()
@@ -143,17 +104,13 @@ class Fit:
     def _partitionwise(self, data, what: str):
         """The same values computed partition by partition on sharded data: a lazy dask Series
         (nothing is computed or loaded until the caller asks)."""
-        from learnopt.data.sharded import as_frame
         self._need_point()
         enc = self.task.dataset.encoding
         if enc is None:
             raise DataError("This fit was built from arrays; predictions on a dask DataFrame or a file "
                             "pattern need a fit built from a table (named columns).")
-        ddf, _ = as_frame(data)
         labels = self.task.dataset.labels if self.task.kind == "classification" else None
-        dtype = object if what == "prediction" and labels is not None else float
-        return ddf.map_partitions(_partition_values, enc, self.coef.to_numpy(), self.intercept, labels, what,
-                                  meta=pd.Series([], dtype=dtype, name=what))
+        return partition_values(data, enc, self.coef.to_numpy(), self.intercept, labels, what)
 
     def decision(self, data):
         """Raw predictions X w + b on new data (for classification: the score, sign = class)."""
@@ -180,25 +137,28 @@ class Fit:
             raise DataError("probability() needs a logistic fit; hinge-type scores are not probabilities.")
         if is_sharded_source(data):
             return self._partitionwise(data, "probability")
-        from scipy.special import expit
         return self._shaped(expit(self._scores(data)), data, "probability")
 
     def evaluate(self, data, target=None) -> "Evaluation":
         """Metrics on (usually held-out) data, with the target in the same column as in training."""
-        from learnopt.solve.evaluation import evaluate
         self._need_point()
         return evaluate(self, data, target)
 
     def _need_point(self):
-        if self.status in ("infeasible", "unbounded", "failed") and not np.all(np.isfinite(self.coef)):
+        if not self.status.has_point and not np.all(np.isfinite(self.coef)):
             raise DataError(f"This fit has status {self.status!r} and no coefficients to predict with: "
                             f"{self.message}")
 
     # ---- model files
     def save(self, path) -> None:
         """Write this fit to a JSON model file (atomically; no pickle). Read it with ``lo.load_fit``."""
-        from learnopt.solve.fitfile import save
-        save(self, path)
+        fitfile.save(self, path)
+
+    @classmethod
+    def load(cls, path, *, task_type=None) -> "Fit":
+        """Read a fit written by :meth:`save`. Its ``task`` describes the problem for prediction
+        and evaluation (no training data); ``task_type`` builds it (default: a plain Problem)."""
+        return cls(**fitfile.read(path, task_type=task_type))
 
     # ---- display
     def summary(self) -> str:
@@ -220,7 +180,7 @@ class Fit:
         if len(self.conflicts):
             lines.append("conflicting rules (amount each must give):")
             lines.append(self.conflicts.to_string())
-        lines.append(DISCLAIMER)
+        lines.append(CAUTION)
         return "\n".join(lines)
 
     def _sharded_line(self) -> str:
@@ -231,5 +191,5 @@ class Fit:
                 f"{e.get('passes')} data passes {data:.3f}s, client {max(self.timings.total - data, 0.0):.3f}s")
 
     def __repr__(self) -> str:
-        return (f"Fit(status={self.status!r}, objective={self.objective:.8g}, gap={self.gap:.3g}, "
+        return (f"Fit(status={self.status.value!r}, objective={self.objective:.8g}, gap={self.gap:.3g}, "
                 f"solver={self.solver!r}, route={self.route!r})")

@@ -5,7 +5,8 @@ names, the encoding of DataFrame columns, class labels), the coefficients, and t
 (status, message, objective, gap, violation, solver, route, timings, prices, versions).
 Floats are written with ``repr`` (shortest round-trip form), so a loaded fit predicts exactly
 what the saved one did. The loaded fit carries no training data: its ``task`` is a
-description for prediction and evaluation, not something to solve again.
+description for prediction and evaluation (a plain problem value unless the reader asks for
+another type), not something to solve again.
 """
 from __future__ import annotations
 
@@ -17,9 +18,15 @@ from importlib import metadata
 import numpy as np
 import pandas as pd
 
+from learnopt.core.errors import DataError, LearnoptError
+from learnopt.core.files import write_atomic
+from learnopt.data.table import Dataset, Encoding
+from learnopt.problem.problem import Problem
+from learnopt.rules.language import TextRule
+from learnopt.solve.solvers import REGISTRY
+from learnopt.solve.timings import Timings
 from learnopt.terms import losses as _losses
 from learnopt.terms import penalties as _penalties
-from learnopt.core.errors import DataError, LearnoptError
 
 FORMAT = "learnopt-fit"
 SCHEMA_VERSION = 1
@@ -75,7 +82,6 @@ def _versions(solver: str | None) -> dict:
         except metadata.PackageNotFoundError:
             out[pkg] = None
     if solver and solver != "numpy":
-        from learnopt.solve.solvers import REGISTRY
         spec = REGISTRY.get(solver)
         if spec is not None:
             try:
@@ -114,16 +120,13 @@ def to_dict(fit) -> dict:
 
 def save(fit, path) -> None:
     """Write ``fit`` to ``path`` as JSON, atomically (a temporary file renamed into place)."""
-    from learnopt.core.files import write_atomic
     write_atomic(path, json.dumps(to_dict(fit), indent=1))
 
 
-def load(path):
-    """Read a fit written by :func:`save`; refuse other formats and newer schema versions."""
-    from learnopt.data.table import Dataset, Encoding
-    from learnopt.solve.fit import Fit, Timings
-    from learnopt.rules.language import TextRule
-    from learnopt.interface.task import Task
+def read(path, *, task_type=None) -> dict:
+    """The fields of a fit written by :func:`save` (keyword arguments for ``Fit``); refuse other
+    formats and newer schema versions. ``task_type`` builds the task description (default
+    :class:`~learnopt.problem.problem.Problem`; the package face passes the user's Task)."""
     path = os.fspath(path)
     try:
         with open(path, encoding="utf-8") as fh:
@@ -150,13 +153,15 @@ def load(path):
                  ["loaded from a model file: no training data"])
     loss = _rebuild(t["loss"], _losses, _losses.Loss)
     pens = tuple(_rebuild(p, _penalties, _penalties.Penalty) for p in t["penalties"])
-    task = Task(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,
-                tuple(TextRule(r) for r in t["rules"]))
+    task = (task_type or Problem)(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,
+                                  tuple(TextRule(r) for r in t["rules"]))
     ev = saved["evidence"]
     coef = pd.Series([_float(saved["coef"][n]) for n in names], index=list(names), name="coef", dtype=float)
-    timings = Timings(**{k: float(v) for k, v in ev["timings"].items()})
-    return Fit(ev["status"], ev["message"], _float(ev["objective"]), _float(ev["gap"]), _float(ev["rel_gap"]),
-               _float(ev["violation"]), coef, _float(saved["intercept"]),
-               pd.Series(ev["prices"], dtype=float), pd.Series(ev["binding"], dtype=bool),
-               pd.Series(dtype=float), timings, ev["solver"], ev["route"], [], None, task,
-               extras={"versions": ev.get("versions", {}), "loaded_from": path})
+    return dict(status=ev["status"], message=ev["message"], objective=_float(ev["objective"]),
+                gap=_float(ev["gap"]), rel_gap=_float(ev["rel_gap"]), violation=_float(ev["violation"]),
+                coef=coef, intercept=_float(saved["intercept"]),
+                prices=pd.Series(ev["prices"], dtype=float), binding=pd.Series(ev["binding"], dtype=bool),
+                conflicts=pd.Series(dtype=float),
+                timings=Timings(**{k: float(v) for k, v in ev["timings"].items()}),
+                solver=ev["solver"], route=ev["route"], attempts=(), certificate=None, task=task,
+                extras={"versions": ev.get("versions", {}), "loaded_from": path})

@@ -7,31 +7,27 @@ cannot hold together; otherwise the next capable solver is tried and the attempt
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
 
 from learnopt.core import checks as params
-from learnopt.solve.certificate import certify
-from learnopt.solve.fit import Attempt, Fit, Timings
-from learnopt.solve.routes import direct
-from learnopt.solve.routes import prepare
+from learnopt.core.errors import ParameterError
+from learnopt.core.status import Status
+from learnopt.problem.algebra import objective
 from learnopt.problem.basis import conditioned
-from learnopt.solve.routes.base import SOLVER_FAULTS
-from learnopt.problem.algebra import loss_argument, objective
+from learnopt.scale.cluster import ClusterSettings
+from learnopt.solve.fit import Fit
+from learnopt.solve.routes import direct, prepare
+from learnopt.solve.routes.base import SOLVER_FAULTS, Candidate, RunnerBase, Settings
+from learnopt.solve.solvers import lookup
 from learnopt.solve.solvers import plan as plan_solvers
+from learnopt.solve.timings import Attempt, Timings
 
 POLISH_ROUNDS = 2      # tighter re-solves of one solver before moving down the chain
 POLISH_FACTOR = 1e-3   # each polish round divides the tolerance by this much
 TOL_FLOOR = 1e-13
-
-
-def certify_point(task, theta, u, mults, enough: float = 0.0):
-    """learnopt's certificate for a point of the task (whatever route produced it)."""
-    M, q, a = loss_argument(task)
-    return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
-                   requirements=list(task.requirements), theta=theta, u=u, multipliers=mults,
-                   intercept=task.intercept, enough=enough)
 
 
 def _prices(task, mults, theta, feas_tol, noise):
@@ -48,37 +44,39 @@ def _prices(task, mults, theta, feas_tol, noise):
     return pd.Series(prices, dtype=float), pd.Series(binding, dtype=bool)
 
 
-def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_options, verbose,
-               time_limit=None, polish=False, runner=None, client=None, progress=None) -> Fit:
-    """Solve and certify ``task`` (or, with ``runner``, the runner's current task: paths)."""
-    params.check("solve", tol=(tol, params.POSITIVE), gap_tol=(gap_tol, params.POSITIVE),
-                 feas_tol=(feas_tol, params.POSITIVE))
-    if time_limit is not None:
-        params.check("solve", time_limit=(time_limit, params.POSITIVE))
+def solve_task(task, settings: Settings, *, solver: str | None = None, route: str | None = None,
+               runner: RunnerBase | None = None, cluster: ClusterSettings | None = None) -> Fit:
+    """Solve and certify ``task`` (or, with ``runner``, the runner's current problem: paths).
+
+    ``task`` is the user's task (kept as ``fit.task``); the routes and the certificate see its
+    plain problem value. ``cluster`` (sharded data only) says where and how to run.
+    """
+    params.check("solve", tol=(settings.tol, params.POSITIVE), gap_tol=(settings.gap_tol, params.POSITIVE),
+                 feas_tol=(settings.feas_tol, params.POSITIVE))
+    if settings.time_limit is not None:
+        params.check("solve", time_limit=(settings.time_limit, params.POSITIVE))
     t_start = time.perf_counter()
-    original, T = task, None
-    if (client is not None or progress is not None) and runner is None and not getattr(task, "sharded", False):
-        from learnopt.core.errors import ParameterError
+    original, T, along_path = task, None, runner is not None
+    if cluster is not None and runner is None and not task.sharded:
         raise ParameterError("client= and progress= are for sharded data; this task's data is in memory. "
                              "Give a dask DataFrame or a file pattern to fit on a cluster.")
-    if runner is None and getattr(task, "sharded", False):
-        runner = prepare(task, route, client=client, progress=progress)
+    if runner is None and task.sharded:
+        runner = prepare(task.as_problem(), route, cluster=cluster or ClusterSettings())
     elif runner is None:
-        work, T = conditioned(task)          # centred and scaled columns when the data need it
+        work, T = conditioned(task.as_problem())     # centred and scaled columns when the data need it
         runner = prepare(work, route)
-    task = runner.task
-    chain = plan_solvers(runner.problem_class, solver, fallback=fallback, prefer=getattr(runner, "prefer", ()))
+    problem = runner.task
+    gap_tol, feas_tol, tol, time_limit = settings.gap_tol, settings.feas_tol, settings.tol, settings.time_limit
+    chain = plan_solvers(runner.problem_class, solver, fallback=settings.fallback, prefer=runner.prefer)
     attempts: list[Attempt] = []
-    best = None          # (key, solver name, theta, cert, timings, prices, extras)
+    best: Candidate | None = None
     verdict = None       # "infeasible" / "unbounded" once confirmed
     conflicts = {}
     done = False         # a point certified within the time limit
     seen = {}            # the last certificate an iterative route asked for, to reuse it
 
     def check(theta, u, mults):
-        if hasattr(runner, "certify"):       # a route with a cheaper exact form of the certificate
-            return runner.certify(theta, u, mults, enough=1e-3 * gap_tol)
-        return certify_point(task, theta, u, mults, enough=1e-3 * gap_tol)
+        return runner.certify(theta, u, mults, enough=1e-3 * gap_tol)
 
     def goal(theta, u, mults):
         t = time.perf_counter()
@@ -87,17 +85,17 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
         runner.last_certificate = cert       # for routes that report progress
         return cert.passes(gap_tol, feas_tol)
 
-    runner.goal, runner.gap_tol, runner.tol, runner.feas_tol = goal, gap_tol, tol, feas_tol
+    runner.configure(settings, goal)
     for spec in chain:
         rounds = [tol] + ([max(tol * POLISH_FACTOR ** k, TOL_FLOOR) for k in range(1, POLISH_ROUNDS + 1)]
-                          if polish else [])
+                          if settings.polish else [])
         for k, tol_k in enumerate(rounds):
             label = spec.name if k == 0 else f"{spec.name} (polish, tol {tol_k:g})"
             t0 = time.perf_counter()
             seen.clear()
-            opts = {**spec.settings(tol_k, time_limit), **solver_options}
+            opts = {**spec.settings(tol_k, time_limit), **settings.solver_options}
             try:
-                out = runner.run(spec, opts, verbose, warm=k > 0 or runner.start is not None)
+                out = runner.run(spec, opts, settings.verbose, warm=k > 0 or runner.start is not None)
             except SOLVER_FAULTS as exc:
                 attempts.append(Attempt(label, f"error: {str(exc).splitlines()[0][:200]}",
                                         seconds=time.perf_counter() - t0))
@@ -107,10 +105,10 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             late_note = f"; took {wall:.3g}s, over the time limit of {time_limit:g}s" if late else ""
             status = out.status
             if status in ("infeasible", "infeasible_inaccurate"):
-                found = direct.elastic(task)
+                found = direct.elastic(problem)
                 if found:
                     attempts.append(Attempt(label, f"{status}; confirmed by the elastic relaxation", seconds=wall))
-                    verdict, conflicts = "infeasible", found
+                    verdict, conflicts = Status.INFEASIBLE, found
                     break
                 attempts.append(Attempt(label, f"{status}, but the requirements can all hold: "
                                         f"the solver's claim is rejected{late_note}", seconds=wall))
@@ -118,7 +116,7 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             if status in ("unbounded", "unbounded_inaccurate"):
                 attempts.append(Attempt(label, status + late_note, seconds=wall))
                 if sum(a.outcome.startswith("unbounded") for a in attempts) >= 2 or spec is chain[-1]:
-                    verdict = "unbounded"
+                    verdict = Status.UNBOUNDED
                 break
             theta = out.theta
             if theta is None or not np.all(np.isfinite(theta)):
@@ -135,83 +133,82 @@ def solve_task(task, *, solver, tol, gap_tol, feas_tol, route, fallback, solver_
             label = out.solved_by or label
             attempts.append(Attempt(label, f"{status}; certificate {'passed' if ok else 'failed'}{late_note}",
                                     cert.primal, cert.gap, wall + cert_s))
-            timing = Timings(runner.build_seconds, out.compile_seconds, out.solve_seconds, cert_s)
-            prices = _prices(task, out.multipliers, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
-            key = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
-            if best is None or key < best[0]:
-                best = (key, out.solved_by or spec.name, theta, cert, timing, prices,
-                        {"iterations": out.iterations, "multipliers": out.multipliers, **out.details})
+            prices, binding = _prices(problem, out.multipliers, theta, feas_tol,
+                                      gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
+            rank = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
+            if best is None or rank < best.rank:
+                best = Candidate(rank=rank, solver=out.solved_by or spec.name, theta=theta, certificate=cert,
+                                 timings=Timings(runner.build_seconds, out.compile_seconds, out.solve_seconds, cert_s),
+                                 prices=prices, binding=binding,
+                                 extras={"iterations": out.iterations, "multipliers": out.multipliers, **out.details})
             done = ok and not late
             if ok or late:
                 break
         if verdict is not None or done:
             break
     total = time.perf_counter() - t_start
-    if hasattr(runner, "finish"):
-        best = runner.finish(best)           # route facts known only at the end (sharded: passes)
+    best = runner.finish(best)               # route facts known only at the end (sharded: passes)
     if T is not None:
         best = _back_to_original(original, T, best)
-        task = original
-    return _assemble(task, runner.name, attempts, best, verdict, conflicts, gap_tol, feas_tol, total)
+    # a fit names the user's task; along a path, the problem at this point's strength
+    return _assemble(problem if along_path else original, runner.name, attempts, best, verdict, conflicts, gap_tol, feas_tol, total)
 
 
-def _back_to_original(task, T, best):
-    """Map the best point theta' of the rewritten task back (theta = T theta') and recompute the
-    objective and violations on the original data; the dual bound carries over unchanged (the
-    two problems are the same problem), so any rounding in the rewrite shows in the gap."""
+def _back_to_original(task, T, best: Candidate | None) -> Candidate | None:
+    """Map the best point theta' of the rewritten problem back (theta = T theta') and recompute
+    the objective and violations on the original data; the dual bound carries over unchanged
+    (the two problems are the same problem), so any rounding in the rewrite shows in the gap."""
     if best is None:
         return None
-    from dataclasses import replace
-    key, name, theta_w, cert, timing, prices, extras = best
-    theta = T @ theta_w
+    theta = T @ best.theta
     viol = [r.violation(theta) for r in task.requirements]
     rel = max((v / r.scale() for v, r in zip(viol, task.requirements)), default=0.0)
-    cert = replace(cert.rebased(objective(task, theta)), violation=max(viol, default=0.0), rel_violation=rel)
-    return key, name, theta, cert, timing, prices, {**extras, "basis": "centred and scaled columns"}
+    cert = replace(best.certificate.rebased(objective(task, theta)), violation=max(viol, default=0.0),
+                   rel_violation=rel)
+    return replace(best, theta=theta, certificate=cert, extras={**best.extras, "basis": "centred and scaled columns"})
 
 
-def _assemble(task, route, attempts, best, verdict, conflicts, gap_tol, feas_tol, total) -> Fit:
+def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts, gap_tol, feas_tol, total) -> Fit:
     names = list(task.features)
-    empty = pd.Series(dtype=float)
+    common = dict(route=route, attempts=tuple(attempts), task=task)
     if best is None:
-        if verdict == "infeasible":
-            status, msg = "infeasible", ("the requirements cannot hold together; fit.conflicts lists "
-                                         "the rules that must give and by how much")
-        elif verdict == "unbounded":
-            status, msg = "unbounded", ("the objective can decrease without limit; add a penalty or "
-                                        "bounds on the coefficients")
+        if verdict == Status.INFEASIBLE:
+            status, msg = verdict, ("the requirements cannot hold together; fit.conflicts lists "
+                                    "the rules that must give and by how much")
+        elif verdict == Status.UNBOUNDED:
+            status, msg = verdict, ("the objective can decrease without limit; add a penalty or "
+                                    "bounds on the coefficients")
         else:
-            status, msg = "failed", ("no solver returned a usable point: " +
-                                     "; ".join(f"{a.solver}: {a.outcome}" for a in attempts))
-        nan = np.full(len(names), np.nan)
-        return Fit(status, msg, np.nan, np.nan, np.nan, np.nan, pd.Series(nan, index=names, name="coef"),
-                   np.nan, empty, pd.Series(dtype=bool), pd.Series(conflicts, dtype=float),
-                   Timings(total=total), None, route, attempts, None, task)
-    _, solver_name, theta, cert, timing, (prices, binding), extras = best
-    timing.total = total
+            status, msg = Status.FAILED, ("no solver returned a usable point: " +
+                                          "; ".join(f"{a.solver}: {a.outcome}" for a in attempts))
+        return Fit(status=status, message=msg, objective=np.nan, gap=np.nan, rel_gap=np.nan, violation=np.nan,
+                   coef=pd.Series(np.full(len(names), np.nan), index=names, name="coef"), intercept=np.nan,
+                   prices=pd.Series(dtype=float), binding=pd.Series(dtype=bool),
+                   conflicts=pd.Series(conflicts, dtype=float), timings=Timings(total=total), solver=None,
+                   certificate=None, **common)
+    cert, theta = best.certificate, best.theta
     if cert.passes(gap_tol, feas_tol):
-        status, msg = "optimal", (f"certified: relative gap {cert.rel_gap:.2g} <= {gap_tol:g}, "
-                                  f"worst violation {cert.rel_violation:.2g} <= {feas_tol:g}")
+        status, msg = Status.OPTIMAL, (f"certified: relative gap {cert.rel_gap:.2g} <= {gap_tol:g}, "
+                                       f"worst violation {cert.rel_violation:.2g} <= {feas_tol:g}")
     else:
         why = []
         if not np.isfinite(cert.gap) or cert.rel_gap > gap_tol:
             why.append(f"relative gap {cert.rel_gap:.3g} > {gap_tol:g}" + (f" ({cert.note})" if cert.note else ""))
         if cert.rel_violation > feas_tol:
             why.append(f"a requirement is violated by {cert.rel_violation:.3g} (relative) > {feas_tol:g}")
-        status, msg = "unverified", ("the certificate does not confirm optimality: " + "; ".join(why)
-                                     + ". Try a tighter tol or another solver.")
+        status, msg = Status.UNVERIFIED, ("the certificate does not confirm optimality: " + "; ".join(why)
+                                          + ". Try a tighter tol or another solver.")
     d = len(names)
-    coef = pd.Series(theta[:d], index=names, name="coef")
-    intercept = float(theta[d]) if task.intercept else 0.0
-    return Fit(status, msg, cert.primal, cert.gap, cert.rel_gap, cert.violation, coef, intercept,
-               prices, binding, pd.Series(dtype=float), timing, solver_name, route, attempts, cert, task,
-               extras=extras)
+    return Fit(status=status, message=msg, objective=cert.primal, gap=cert.gap, rel_gap=cert.rel_gap,
+               violation=cert.violation, coef=pd.Series(theta[:d], index=names, name="coef"),
+               intercept=float(theta[d]) if task.intercept else 0.0, prices=best.prices, binding=best.binding,
+               conflicts=pd.Series(dtype=float), timings=replace(best.timings, total=total), solver=best.solver,
+               certificate=cert, extras=best.extras, **common)
 
 
 def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd.DataFrame:
     """One row per solver: the same task, no fallback, each point certified by learnopt."""
-    from learnopt.solve.solvers import lookup
-    klass = prepare(task, None).problem_class     # what the planned route hands to solvers
+    klass = prepare(task.as_problem(), None).problem_class     # what the planned route hands to solvers
     rows, fits = [], {}
     for name in solvers:
         spec = lookup(name)
@@ -219,9 +216,9 @@ def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd
         if why:
             rows.append({"solver": spec.name, "status": "not run", "note": why})
             continue
-        fit = task.solve(spec.name, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, fallback=False)
+        fit = solve_task(task, Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, fallback=False), solver=spec.name)
         fits[spec.name] = fit
-        rows.append({"solver": spec.name, "status": fit.status, "objective": fit.objective, "gap": fit.gap,
+        rows.append({"solver": spec.name, "status": fit.status.value, "objective": fit.objective, "gap": fit.gap,
                      "violation": fit.violation, "iterations": fit.extras.get("iterations"),
                      **{f"{k}_s": v for k, v in fit.timings.as_dict().items()},
                      "note": "" if fit.status == "optimal" else fit.message})

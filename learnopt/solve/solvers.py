@@ -14,6 +14,7 @@ from typing import Callable
 import cvxpy as cp
 
 from learnopt.core.errors import SolverError
+from learnopt.terms.cones import CLASS_LABEL, CLASSES
 
 @functools.lru_cache(maxsize=1)
 def _installed() -> frozenset[str]:
@@ -21,8 +22,6 @@ def _installed() -> frozenset[str]:
     return frozenset(cp.installed_solvers())
 
 
-CLASSES = ("linear", "quadratic", "second_order", "exponential")
-CLASS_LABEL = {"linear": "LP", "quadratic": "QP", "second_order": "SOCP", "exponential": "exponential cone"}
 
 
 @dataclass(frozen=True)
@@ -123,8 +122,3 @@ def plan(problem_class: str, solver: str | None, *, fallback: bool = True,
         raise SolverError(f"No installed solver can solve {CLASS_LABEL[problem_class]} problems; "
                           f"install clarabel or scs.")
     return chain
-
-
-def problem_class(cones) -> str:
-    """The widest class among the cones the pieces declare."""
-    return max(cones, key=CLASSES.index, default="linear")

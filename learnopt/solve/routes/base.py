@@ -1,4 +1,6 @@
-"""What every route shares: the loss argument, requirement constraints, one solver run.
+"""What every route shares: the route protocol with its defaults (:class:`RunnerBase`), the
+settings a solve hands to a route, the outcome of one attempt and the certified candidate made
+of it, the route registry's row type, and one solver run.
 
 A route turns a task into one or more cvxpy problems and returns an :class:`Outcome` per
 solver attempt: the point theta = (w, b), the loss dual point u (one value per row, used by
@@ -12,10 +14,14 @@ import sys
 import time
 import warnings
 from dataclasses import dataclass, field
+from typing import Callable
 
 import cvxpy as cp
 import numpy as np
+import pandas as pd
 
+from learnopt.solve.certificate import Certificate, certify_point
+from learnopt.solve.timings import Timings
 
 
 @dataclass
@@ -34,23 +40,89 @@ class Outcome:
     details: dict = field(default_factory=dict)   # route facts for fit.extras (factor used, rows kept...)
 
 
+@dataclass(frozen=True)
+class Candidate:
+    """A certified attempt: the point a fit may be built from, with its evidence.
+
+    ``rank`` orders candidates (lower is better): certified first, then feasible, then by gap.
+    """
+
+    rank: tuple
+    solver: str
+    theta: np.ndarray
+    certificate: Certificate
+    timings: Timings
+    prices: pd.Series
+    binding: pd.Series
+    extras: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Settings:
+    """How hard a solve works and when it stops: one value from the solve call to the route.
+
+    tol : solver tolerance (mapped to each solver's own options); gap_tol, feas_tol : what the
+    certificate must show for "optimal"; time_limit : seconds per solver attempt; polish :
+    tighter re-solves of a solver whose point fails the certificate; fallback : try the next
+    capable solver when one fails; solver_options : passed unchanged to the solver; verbose :
+    the solver's own log.
+    """
+
+    tol: float = 1e-9
+    gap_tol: float = 1e-7
+    feas_tol: float = 1e-6
+    time_limit: float | None = None
+    polish: bool = False
+    fallback: bool = True
+    solver_options: dict = field(default_factory=dict)
+    verbose: bool = False
+
+
+Goal = Callable[[np.ndarray, "np.ndarray | None", list], bool]
+
+
 class RunnerBase:
-    """What every route runner shares: the task it solves and how a path changes one strength.
+    """The route protocol, with its defaults. A route's runner is built once per solve (or once
+    per path) by ``Runner(problem, vary=None, ...)`` and then:
+
+    - ``run(spec, options, verbose, warm) -> Outcome`` solves with one solver (required);
+    - ``certify(theta, u, multipliers, enough) -> Certificate``: learnopt's certificate of a
+      point (default: on every row; a route may have a cheaper exact form);
+    - ``finish(best) -> Candidate | None``: add route facts known only at the end (default: none);
+    - ``prefer``: solver names the route knows suit its problems (tried before the class order);
+    - ``problem_class``, ``build_seconds``, ``name``: facts for the solver plan and the fit.
+
+    The solve loop hands the runner its :class:`Settings` and, for iterative routes, a ``goal``
+    (goal(theta, u, multipliers) -> does the certificate pass?) through :meth:`configure`.
 
     A runner built with ``vary=k`` compiles penalty k as (strength Parameter) x (the penalty at
     strength 1), so :meth:`set_strength` moves along a path without recompiling (cvxpy DPP).
     ``start`` is a warm start for iterative routes (the previous point of a path).
     """
 
-    name = "?"
+    name: str = "?"
+    problem_class: str = "linear"
+    build_seconds: float = 0.0
+    prefer: tuple[str, ...] = ()
     vary: int | None = None
     strength: cp.Parameter | None = None
     start: np.ndarray | None = None
-    # set by the solve loop for iterative routes: goal(theta, u, multipliers) -> certificate
-    # passes, and the tolerances it works to
-    goal = None
-    gap_tol: float = 1e-7
-    tol: float = 1e-9
+    settings: Settings = Settings()
+    goal: Goal | None = None
+    last_certificate: Certificate | None = None
+
+    def configure(self, settings: Settings, goal: Goal | None = None) -> None:
+        """The solve's settings and, for iterative routes, when to stop."""
+        self.settings, self.goal = settings, goal
+
+    def run(self, spec, options: dict, verbose: bool, warm: bool = False) -> "Outcome":  # pragma: no cover
+        raise NotImplementedError
+
+    def certify(self, theta, u, multipliers, enough: float = 0.0) -> Certificate:
+        return certify_point(self.task, theta, u, multipliers, enough)
+
+    def finish(self, best: Candidate | None) -> Candidate | None:
+        return best
 
     def penalties_expr(self, w):
         """Sum of the task's penalty expressions, the varied one through the strength Parameter."""
@@ -64,10 +136,23 @@ class RunnerBase:
                 total = total + pen.expr(w, self.task.features)
         return total
 
-    def set_strength(self, lam: float) -> None:
-        self.task = self.task.with_strength(self.vary, lam)
+    def set_strength(self, strength: float) -> None:
+        self.task = self.task.with_strength(self.vary, strength)
         if self.strength is not None:
-            self.strength.value = float(lam)
+            self.strength.value = float(strength)
+
+
+@dataclass(frozen=True)
+class RouteSpec:
+    """A route as data: its name, what it is for, when it can take a problem, how to build its
+    runner, and whether the planner may pick it on its own."""
+
+    name: str
+    summary: str
+    eligible: Callable[[object], "str | None"]
+    runner: Callable[..., RunnerBase]
+    automatic: bool = True
+    worth: Callable[[int, int], bool] = lambda n, p: True    # is it worth picking for n rows, p columns?
 
 
 def read_multipliers(pairs) -> list:

@@ -25,7 +25,9 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
-from learnopt.solve.routes.base import Outcome, RunnerBase, read_multipliers, run
+from learnopt.core.errors import AccuracyWarning
+from learnopt.solve.certificate import certify
+from learnopt.solve.routes.base import RouteSpec, Outcome, RunnerBase, read_multipliers, run
 from learnopt.problem.algebra import objective, requirement_constraint
 
 GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
@@ -69,8 +71,6 @@ CONDITION_WARNING = 1e10   # condition number of the (column-scaled) design beyo
 
 def _note_condition(eig) -> None:
     """Warn when the data themselves limit the accuracy of the coefficients."""
-    import warnings
-    from learnopt.core.errors import AccuracyWarning
     cond = float(np.sqrt(eig[-1] / eig[0])) if eig[0] > 0 else np.inf
     if cond > CONDITION_WARNING:
         digits = max(0.0, 16.0 - np.log10(cond)) if np.isfinite(cond) else 0.0
@@ -165,7 +165,6 @@ class Runner(RunnerBase):
         task up to the rounding of the factor) and shifted by the constant; the primal value is
         recomputed on every row, so any rounding of the factor shows up in the gap.
         """
-        from learnopt.solve.certificate import certify
         task = self.task
         small = certify(M=self.R, q=self.r, a=np.ones(len(self.r)), loss=task.loss, penalties=task.penalties,
                         names=task.features, requirements=list(task.requirements), theta=theta, u=None,
@@ -189,3 +188,6 @@ class Runner(RunnerBase):
         theta = None if theta is None else np.asarray(theta, float).copy()
         return Outcome(status, theta, None, read_multipliers(self.pairs), compile_s, solve_s, iterations,
                        note=f"factor: {self.factorisation}", details={"factor": self.factorisation})
+
+
+ROUTE = RouteSpec("compressed", "squared loss: the design reduced exactly to a p x p factor, then a small problem", eligible, Runner, worth=lambda n, p: n > p)

@@ -7,60 +7,14 @@ variable tied to M theta - q by an equality whose dual value is the certificate'
 from __future__ import annotations
 
 import os
-import time
-import warnings
-from dataclasses import dataclass
 
 import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
 from learnopt.core.errors import TooLargeError
-from learnopt.rules.requirements import Requirement
-from learnopt.solve.routes.base import Outcome, RunnerBase, read_multipliers, run
-from learnopt.problem.algebra import loss_argument, requirement_constraint
-
-
-@dataclass
-class Model:
-    problem: cp.Problem
-    theta: cp.Variable
-    tie: cp.Constraint | None                      # z == M theta - q (non-smooth losses)
-    constraints: list[tuple[Requirement, cp.Constraint]]
-    M: np.ndarray | sp.csr_matrix
-    q: np.ndarray
-    a: np.ndarray
-    build_seconds: float
-
-
-def build(task, penalties_expr=None) -> Model:
-    t0 = time.perf_counter()
-    ds = task.dataset
-    M, q, a = loss_argument(task)
-    M = M.explicit()
-    p = M.shape[1]
-    theta = cp.Variable(p, name="theta")
-    w = theta[: ds.d]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        z_expr = M @ theta - q
-        tie = None
-        if task.loss.smooth:
-            loss_term = task.loss.mean_expr(z_expr, a)
-        else:
-            z = cp.Variable(ds.n, name="z")
-            tie = z == z_expr
-            loss_term = task.loss.mean_expr(z, a)
-        objective = loss_term
-        if penalties_expr is not None:
-            objective = objective + penalties_expr(w)
-        else:
-            for pen in task.penalties:
-                objective = objective + pen.expr(w, ds.names)
-        pairs = [(r, requirement_constraint(r, theta)) for r in task.requirements]
-        constraints = ([tie] if tie is not None else []) + [c for _, c in pairs]
-        problem = cp.Problem(cp.Minimize(objective), constraints)
-    return Model(problem, theta, tie, pairs, M, q, a, time.perf_counter() - t0)
+from learnopt.problem.formulate import build
+from learnopt.solve.routes.base import Outcome, RouteSpec, RunnerBase, read_multipliers, run
 
 
 BYTES_PER_NONZERO = 300   # peak memory per design nonzero of compiling and solving (measured 226-260 B
@@ -88,13 +42,9 @@ def check_size(task, available: float | None = None) -> None:
     available = _available_bytes() if available is None else available
     if need <= 0.5 * available:
         return
-    from learnopt.solve.routes import ROUTES, _module
-    fits = [r for r in ROUTES if r != "direct" and _module(r).eligible(task) is None]
-    how = (f"use route={fits[0]!r} (it never compiles the whole design)" if fits else
-           "sample rows, or shard the data across machines")
     raise TooLargeError(
         f"The direct route would need about {need / 2**30:.1f} GiB to compile this task "
-        f"({task.dataset.n} rows, {nnz} nonzeros) and {available / 2**30:.1f} GiB is free; {how}.")
+        f"({task.dataset.n} rows, {nnz} nonzeros) and {available / 2**30:.1f} GiB is free")
 
 
 class Runner(RunnerBase):
@@ -162,3 +112,7 @@ def elastic(task, tol: float = 1e-7):
         if s.value[k] > tol:
             out[r.text] = out.get(r.text, 0.0) + amount
     return out
+
+
+ROUTE = RouteSpec("direct", "the whole problem as one vectorised cvxpy program; takes every problem",
+                  eligible, Runner)

@@ -27,7 +27,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from learnopt.terms.penalties import Separable
-from learnopt.solve.routes.base import SOLVER_FAULTS, Outcome, RunnerBase, read_multipliers, run
+from learnopt.solve.routes.base import RouteSpec, SOLVER_FAULTS, Outcome, RunnerBase, read_multipliers, run
 from learnopt.problem.algebra import loss_argument, penalty_value, requirement_constraint
 
 MAX_STEPS = 60
@@ -181,7 +181,7 @@ class Runner(RunnerBase):
             # after a step with decrease e the point is typically e^2 from optimal)
             # (and only once the decrement is below the solver tolerance: a point certified
             # at gap_tol can still be far from the optimum's coefficients)
-            if self.goal is not None and -decrease <= min(0.1 * self.gap_tol, self.tol) * max(1.0, abs(f_new)):
+            if self.goal is not None and -decrease <= min(0.1 * self.settings.gap_tol, self.settings.tol) * max(1.0, abs(f_new)):
                 t_goal = time.perf_counter()
                 reached = self.goal(theta, None, mults)
                 goal_s += time.perf_counter() - t_goal
@@ -189,7 +189,7 @@ class Runner(RunnerBase):
                     break
             if progress <= 1e-16 * max(1.0, abs(f_new)) and t == 1.0:
                 break                      # nothing left to gain at double precision
-            if self.goal is None and t == 1.0 and -decrease <= 0.1 * self.gap_tol * max(1.0, abs(f_new)):
+            if self.goal is None and t == 1.0 and -decrease <= 0.1 * self.settings.gap_tol * max(1.0, abs(f_new)):
                 break                      # no certificate asked for: the decrement is small enough
         solve_s = time.perf_counter() - t_run - compile_s - goal_s   # steps, Hessians and line searches
         return Outcome(status, theta, None, mults, compile_s, solve_s, steps,
@@ -233,3 +233,6 @@ def _factor(H):
     except np.linalg.LinAlgError:
         vals, vecs = np.linalg.eigh(H)
         return np.sqrt(np.maximum(vals, 0.0))[:, None] * vecs.T
+
+
+ROUTE = RouteSpec("newton", "smooth losses: proximal Newton steps, each a small p-dimensional problem", eligible, Runner)

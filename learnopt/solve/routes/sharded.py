@@ -1,4 +1,6 @@
-"""The sharded route: a task whose rows live on a dask cluster (see :mod:`learnopt.shards`).
+"""The sharded route: a task whose rows live on a dask cluster (see :mod:`learnopt.data.sharded`
+and :mod:`learnopt.scale`; the functions sent to the blocks are in
+:mod:`learnopt.solve.routes.sharded_steps`).
 
 Nothing row-sized ever reaches the client: every step sends a function to the row blocks and
 adds up small results. The method follows the loss:
@@ -29,24 +31,27 @@ from __future__ import annotations
 import sys
 import time
 import warnings
+from dataclasses import replace
 
 import cvxpy as cp
 import numpy as np
+import pandas as pd
 
-from learnopt.solve.certificate import (Certificate, _inf_penalty, _null_space, feasibility, no_conjugate, repair_targets,
-                       requirement_terms)
-from learnopt.core.errors import ParameterError
+from learnopt.core.errors import DataError, ParameterError
+from learnopt.problem.algebra import requirement_constraint, penalty_value
 from learnopt.scale.blocks import Blocks, add_up
-from learnopt.solve.routes import compressed
-from learnopt.solve.routes import newton
-from learnopt.solve.routes.base import Outcome, RunnerBase, read_multipliers
-from learnopt.problem.algebra import Design, penalty_value, requirement_constraint
+from learnopt.scale.cluster import ClusterSettings
+from learnopt.scale.partitions import row_requirements
+from learnopt.solve.routes import compressed, newton
+from learnopt.solve.routes.base import Outcome, RouteSpec, RunnerBase, read_multipliers, run
+from learnopt.solve.routes.sharded_steps import (_combine_rows, _local, _loss_sum, _model, _moments, _row_count,
+                                                 _row_terms, _trace, _tsqr_block, _weight_sum, certify_sharded)
 
 METHODS = ("gram", "newton", "admm")
 
 
 def eligible(task) -> str | None:
-    if not getattr(task, "sharded", False):
+    if not task.sharded:
         return "it needs sharded data (a dask DataFrame or a file pattern)"
     return None
 
@@ -61,9 +66,10 @@ def method_for(task) -> str:
     return "admm"
 
 
-def Runner(task, vary: int | None = None, client=None, progress: bool | None = None, method: str | None = None,
-           **admm_options):
-    """The runner for a sharded task (the method follows the loss unless ``method`` is given)."""
+def Runner(task, vary: int | None = None, cluster: ClusterSettings = ClusterSettings(), **admm_options):
+    """The runner for a sharded task (the method follows the loss unless ``cluster.method`` is
+    given); ``admm_options`` (rounds, rho, relax) tune consensus ADMM."""
+    client, progress, method = cluster.client, cluster.progress, cluster.method
     if vary is not None:
         raise ParameterError("Paths and cross-validation are not available for sharded data; solve one "
                              "strength at a time with task.solve().")
@@ -104,242 +110,6 @@ class _Report:
 
 # ---- functions run on the workers (module level: pickled by reference)
 
-def _rows(block, margin: bool, intercept: bool, W: float):
-    """(M, q, a) of one block, a = w / W with W the weight total over every block."""
-    X, y, w = block
-    M = Design(X, intercept, y if margin else None)
-    return M, (np.zeros(len(y)) if margin else y), w / W
-
-
-def _weight_sum(block):
-    return float(block[2].sum()), len(block[2])
-
-
-def _moments(block, intercept: bool, W: float):
-    """(G, c, y'Ay): this block's part of the Gram moments."""
-    X, y, w = block
-    a = w / W
-    G = newton._weighted_gram(Design(X, intercept), a)
-    c = np.asarray(X.T @ (a * y)).ravel()
-    if intercept:
-        c = np.append(c, a @ y)
-    return G, c, float(a @ (y * y))
-
-
-def _tsqr_block(block, intercept: bool, W: float):
-    """R of the QR factorisation of sqrt(a) [X 1 y] on this block (the first TSQR level)."""
-    X, y, w = block
-    cols = [X] + ([np.ones((len(y), 1))] if intercept else []) + [y[:, None]]
-    return np.linalg.qr(np.hstack(cols) * np.sqrt(w / W)[:, None], mode="r")
-
-
-def _loss_sum(block, theta, loss, margin, intercept, W):
-    M, q, a = _rows(block, margin, intercept, W)
-    return float(a @ loss.value(M @ theta - q)) if len(a) else 0.0
-
-
-def _trace(block, margin, intercept, W):
-    M, _, a = _rows(block, margin, intercept, W)
-    return newton._weighted_trace(M, a)
-
-
-def _model(block, theta, loss, margin, intercept, W):
-    """This block's part of (gradient, Hessian) of the mean loss at theta."""
-    M, q, a = _rows(block, margin, intercept, W)
-    z = M @ theta - q
-    return M.T @ (a * loss.gradient(z)), newton._weighted_gram(M, a * loss.curvature(z))
-
-
-def _room(u, a, low, high):
-    """How far each row's dual value may move (the in-memory certificate's repair weights)."""
-    room = np.minimum(u - low, high - u)
-    room = np.where(np.isfinite(room), np.minimum(room, 1.0 + np.abs(u)), 1.0 + np.abs(u))
-    return np.where((room > 0) & (a > 0), room, 0.0)
-
-
-def _dual_sums(M, q, a, u, h, loss):
-    """(g = M'(a u), M'(a |u|), Q = M' diag(a^2 h) M, a.f*(u), (a u).q) for one block."""
-    with np.errstate(invalid="ignore"):
-        conj = float(a @ loss.conjugate(u)) if len(a) else 0.0
-    return (M.T @ (a * u), M.T @ (a * np.abs(u)), newton._weighted_gram(M, a * a * h), conj, float((a * u) @ q))
-
-
-def _cert_start(block, u, theta, loss, margin, intercept, W):
-    """((u, h) kept on the worker, (loss sum, dual sums...)) at theta; u: the block's dual point
-    from the route, or None for the loss gradient."""
-    M, q, a = _rows(block, margin, intercept, W)
-    z = M @ theta - q
-    low, high = loss.dual_domain()
-    u = np.clip(loss.gradient(z) if u is None else u, low, high)
-    h = _room(u, a, low, high)
-    return (u, h), (float(a @ loss.value(z)) if len(a) else 0.0, *_dual_sums(M, q, a, u, h, loss))
-
-
-def _cert_step(block, state, v, loss, margin, intercept, W):
-    """One repair round: u <- clip(u + h a (M v)), and the sums at the new u."""
-    M, q, a = _rows(block, margin, intercept, W)
-    u, h = state
-    low, high = loss.dual_domain()
-    u = np.clip(u + h * a * (M @ v), low, high)
-    h = _room(u, a, low, high)
-    return (u, h), _dual_sums(M, q, a, u, h, loss)
-
-
-def _cert_scaled(block, state, s, loss, margin, intercept, W):
-    """a.f*(s u) and (a s u).q for the shrunk dual point."""
-    M, q, a = _rows(block, margin, intercept, W)
-    su = s * state[0]
-    return (float(a @ loss.conjugate(su)) if len(a) else 0.0), float((a * su) @ q)
-
-
-def _local(block, key, state, dvec, rows, c, loss, margin, intercept, W, settings):
-    """One block's ADMM step: argmin sum_i a_i f(m_i x - q_i) + 1/2 |c x - dvec|^2 (c = sqrt(rho),
-    dvec = c (z - u)) subject to the block's rules row by row (``rows``: one list of requirements
-    per rule); returns (x, u rows, multipliers of those rules). The compiled problem is kept per
-    worker process."""
-    cache = _LOCAL_PROBLEMS
-    entry = cache.get(key)
-    flat = [r for group in (rows or []) for r in group]
-    if entry is None:
-        M, q, a = _rows(block, margin, intercept, W)
-        p = M.shape[1]
-        x = cp.Variable(p)
-        zr = cp.Variable(len(a))
-        cpar = cp.Parameter(nonneg=True)
-        dpar = cp.Parameter(p)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            tie = zr == M.explicit() @ x - q
-            pairs = [(r, requirement_constraint(r, x)) for r in flat]
-            prob = cp.Problem(cp.Minimize(loss.mean_expr(zr, a) + 0.5 * cp.sum_squares(cpar * x - dpar)),
-                              [tie] + [con for _, con in pairs])
-        for other in [k for k in cache if k[0] != key[0]]:
-            del cache[other]                    # problems of earlier fits (each holds its rows)
-        entry = cache[key] = (prob, x, tie, cpar, dpar, a, pairs)
-    prob, x, tie, cpar, dpar, a, pairs = entry
-    cpar.value, dpar.value = float(c), np.asarray(dvec, float)
-    start = None if state is None else state[0]
-    if start is not None:
-        x.value = start
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        prob.solve(**settings)
-    if x.value is None:
-        raise cp.error.SolverError(f"the block step ended with status {prob.status}")
-    nu = np.asarray(tie.dual_value, float).ravel()
-    with np.errstate(divide="ignore", invalid="ignore"):
-        u = np.where(a > 0, -nu / a, 0.0)
-    return np.asarray(x.value, float).copy(), u, read_multipliers(pairs)
-
-
-def _row_count(rows):
-    return [sum(r.rows for r in group) for group in rows]
-
-
-def _combine_rows(parts):
-    """Add up the blocks' :func:`_row_terms` (sums, worst cases, any binding)."""
-    g, const, viol, rel_viol, comp, prices, binding = parts[0]
-    for p in parts[1:]:
-        g, const, prices = g + p[0], const + p[1], prices + p[5]
-        viol, rel_viol, comp = max(viol, p[2]), max(rel_viol, p[3]), max(comp, p[4])
-        binding = np.maximum(binding, p[6])
-    return g, const, viol, rel_viol, comp, prices, binding
-
-
-def _row_terms(rows, mults, theta, feas_tol):
-    """The rules row by row at theta on one block: (their part of the Lagrangian's gradient and
-    constant, worst violation, worst relative violation, complementarity, price per rule,
-    binding per rule)."""
-    flat = [r for group in rows for r in group]
-    g, const = requirement_terms(flat, mults, theta)
-    viol, rel_viol, comp = feasibility(flat, mults, theta)
-    prices, binding, k = [], [], 0
-    for group in rows:
-        price, bind = 0.0, False
-        for r in group:
-            m = np.asarray(mults[k], float)
-            price += float(np.sum(np.maximum(m, 0.0) if r.sense == "<=" else m))
-            bind = bind or (r.sense == "==" or bool(np.min(r.slack(theta), initial=np.inf) <= feas_tol * r.scale()))
-            k += 1
-        prices.append(price)
-        binding.append(bind)
-    return g, const, viol, rel_viol, comp, np.array(prices), np.array(binding, dtype=float)
-
-
-_LOCAL_PROBLEMS: dict = {}
-
-
-# ---- the certificate by passes
-
-def certify_sharded(blocks: Blocks, task, theta, multipliers, common: dict, u_blocks=None,
-                    enough: float = 0.0, row_terms=None) -> Certificate:
-    """learnopt's certificate (see :mod:`learnopt.certify`) with every row sum done on the blocks.
-
-    ``row_terms``: the summed :func:`_row_terms` of the rules row by row at theta, if any.
-    """
-    loss, names, penalties = task.loss, task.features, task.penalties
-    requirements = list(task.requirements)
-    theta = np.asarray(theta, float)
-    d = len(names)
-    violation, rel_violation, comp = feasibility(requirements, multipliers, theta)
-    if row_terms is not None:
-        violation, rel_violation, comp = (max(violation, row_terms[2]), max(rel_violation, row_terms[3]),
-                                          max(comp, row_terms[4]))
-    pen = float(sum(p.value(theta[:d], names) for p in penalties))
-    results = blocks.map(_cert_start, u_blocks or [None] * len(blocks), theta=theta, **common)
-    states = blocks.pick(results, 0)
-    loss_sum, g0, absg, Q, conj, lin = add_up(blocks.gather(blocks.pick(results, 1)))
-    del results
-    primal = loss_sum + pen
-    missing = no_conjugate(loss, primal, violation, rel_violation, comp)
-    if missing is not None:
-        return missing
-    g_req, const_req = requirement_terms(requirements, multipliers, theta)
-    if row_terms is not None:
-        g_req, const_req = g_req + row_terms[0], const_req + row_terms[1]
-    N = _null_space(penalties, names, d, task.intercept)
-    stationarity = float(np.linalg.norm(N.T @ (g0 + g_req))) if N.shape[1] else 0.0
-    scale = max(np.abs(g_req).max(initial=0.0) + 1.0, float(np.abs(absg).max(initial=0.0)) + 1.0)
-
-    def free_ok(g) -> bool:
-        return not N.shape[1] or np.linalg.norm(N.T @ g, np.inf) <= 1e-11 * scale
-
-    def bound(st, sums) -> float:
-        g, _, _, conj, lin = sums
-        g = g + g_req
-        if not free_ok(g):
-            return -np.inf
-        if N.shape[1]:
-            g = g - N @ (N.T @ g)
-        s, inner = _inf_penalty(g[:d], penalties, names)
-        if s != 1.0:
-            conj, lin = add_up(blocks.gather(blocks.map(_cert_scaled, st, s=s, **common)))
-        value = float(-conj - lin + s * const_req + inner)
-        return value if np.isfinite(value) else -np.inf
-
-    dual = -np.inf
-    for T, t in repair_targets(theta, penalties, names, N):
-        st, sums = states, (g0, absg, Q, conj, lin)
-        target = 1e-14 * (1.0 + np.abs(t).max(initial=0.0))
-        for _ in range(5 if T.shape[0] else 0):
-            resid = T @ (sums[0] + g_req) - t
-            K = T @ sums[2] @ T.T
-            if np.abs(resid).max(initial=0.0) <= target or not np.any(K):
-                break
-            lam, *_ = np.linalg.lstsq(K, -resid, rcond=None)
-            out = blocks.map(_cert_step, st, v=T.T @ lam, **common)
-            st, sums = blocks.pick(out, 0), add_up(blocks.gather(blocks.pick(out, 1)))
-        dual = max(dual, bound(st, sums))
-        if primal - dual <= enough * max(1.0, abs(primal)):
-            break
-    if not np.isfinite(dual):
-        return Certificate(primal, dual, np.inf, np.inf, violation, rel_violation, stationarity,
-                           "the dual bound is not finite at this point", comp)
-    gap = max(primal - dual, 0.0)
-    return Certificate(primal, dual, gap, gap / max(1.0, abs(primal)), violation, rel_violation,
-                       stationarity, "", comp)
-
-
 class _Sharded:
     """What the three methods share: the blocks, the per-block arguments, the closing facts."""
 
@@ -350,7 +120,6 @@ class _Sharded:
         self.blocks, self.report = blocks, report
         W, n = add_up(blocks.gather(blocks.map(_weight_sum)))
         if not W > 0:
-            from learnopt.core.errors import DataError
             raise DataError("The weights sum to zero over every partition; at least one row needs a "
                             "positive weight.")
         self.W = W
@@ -367,7 +136,7 @@ class _Sharded:
                  "progress": list(self.report.lines)}
         self.blocks.release()
         if best is not None:
-            best[6].update(facts)
+            best = replace(best, extras={**best.extras, **facts})
         return best
 
 
@@ -459,7 +228,6 @@ class AdmmRunner(_Sharded, RunnerBase):
     def _row_rules(self, task):
         """Each partition compiles the rules row by row for its own rows (kept on the workers)."""
         from dask import delayed
-        from learnopt.scale.partitions import row_requirements
         ds, blocks = task.dataset, self.blocks
         reference = tuple(f"{c}={v}" for c, v in ds.encoding.reference.items())
         fn = delayed(row_requirements, pure=True)
@@ -468,7 +236,6 @@ class AdmmRunner(_Sharded, RunnerBase):
         counts = np.sum(blocks.gather(blocks.client.map(_row_count, rows, pure=False)), axis=0)
         empty = [t for t, c in zip(task.row_rules, counts) if c == 0]
         if empty:
-            from learnopt.core.errors import DataError
             raise DataError(f"Rule {empty[0]!r}: its condition selects no rows of the data.")
         self.report(f"rules row by row compiled in {len(rows)} partitions ({int(np.sum(counts))} rows)")
         return rows
@@ -478,7 +245,7 @@ class AdmmRunner(_Sharded, RunnerBase):
         if not self.task.row_rules or self.m_blocks is None:
             return None
         futs = self.blocks.client.map(_row_terms, self.rows, self.m_blocks, theta=np.asarray(theta, float),
-                                      feas_tol=getattr(self, "feas_tol", 1e-6), pure=False)
+                                      feas_tol=self.settings.feas_tol, pure=False)
         return _combine_rows(self.blocks.gather(futs))
 
     def _consensus(self, v, rho, spec, options):
@@ -486,7 +253,6 @@ class AdmmRunner(_Sharded, RunnerBase):
             return v.copy(), []
         scale = np.sqrt(self.K * rho)
         self.c.value, self.cv.value = float(scale), scale * v
-        from learnopt.solve.routes.base import run
         status, *_ = run(self.problem, spec, options, False, warm=self.rounds > 1)
         if self.z.value is None:
             raise cp.error.SolverError(f"the consensus step ended with status {status}")
@@ -507,7 +273,7 @@ class AdmmRunner(_Sharded, RunnerBase):
         # gradient it cut the rounds by half on some data and multiplied them by 30 on other
         # data; without them it added rounds. Zero is the robust start.)
         mults = [np.zeros(r.rows) if r.sense != "norm" else 0.0 for r in self.task.requirements]
-        eps = max(min(self.tol, 1e-6), 1e-12)
+        eps = max(min(self.settings.tol, 1e-6), 1e-12)
         status, goal_s = "iteration limit", 0.0
         next_check = 1
         for rnd in range(1, self.max_rounds + 1):
@@ -535,7 +301,7 @@ class AdmmRunner(_Sharded, RunnerBase):
                 t_goal = time.perf_counter()
                 reached = self.goal(z, None, mults)
                 goal_s += time.perf_counter() - t_goal
-                cert = getattr(self, "last_certificate", None)
+                cert = self.last_certificate
                 if cert is not None:
                     self.report(f"certificate at round {rnd}: relative gap {cert.rel_gap:.3g}, "
                                 f"relative violation {cert.rel_violation:.3g}")
@@ -561,12 +327,15 @@ class AdmmRunner(_Sharded, RunnerBase):
 
     def finish(self, best):
         if best is not None and self.task.row_rules:
-            import pandas as pd
-            terms = self.row_terms(best[2])
+            terms = self.row_terms(best.theta)
             if terms is not None:
-                prices, binding = best[5]
-                noise = 1e-2 * self.gap_tol * max(1.0, abs(best[3].primal))
+                noise = 1e-2 * self.settings.gap_tol * max(1.0, abs(best.certificate.primal))
                 extra_p = pd.Series(np.where(np.abs(terms[5]) <= noise, 0.0, terms[5]), index=list(self.task.row_rules))
                 extra_b = pd.Series(terms[6] > 0, index=list(self.task.row_rules))
-                best = best[:5] + ((pd.concat([prices, extra_p]), pd.concat([binding, extra_b])),) + best[6:]
+                best = replace(best, prices=pd.concat([best.prices, extra_p]),
+                               binding=pd.concat([best.binding, extra_b]))
         return super().finish(best)
+
+
+ROUTE = RouteSpec("sharded", "data on a dask cluster: Gram/TSQR, Newton passes or consensus ADMM", eligible, Runner,
+                  automatic=False)

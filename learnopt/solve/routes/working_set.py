@@ -32,8 +32,10 @@ import cvxpy as cp
 import numpy as np
 
 from learnopt.terms.losses import Loss
-from learnopt.solve.routes.base import Outcome, RunnerBase, read_multipliers, run
+from learnopt.solve.routes import newton
+from learnopt.solve.routes.base import RouteSpec, Outcome, RunnerBase, read_multipliers, run
 from learnopt.problem.algebra import loss_argument, requirement_constraint
+from learnopt.solve.solvers import plan
 
 MAX_ROUNDS = 25
 SMOOTHING = 0.05   # envelope width h, relative to the scale of the loss argument
@@ -144,19 +146,17 @@ class Runner(RunnerBase):
     def _first_point(self, spec, options, verbose):
         """Minimise the Moreau envelope of the loss (smooth) on every row with the newton route
         (skipped when a warm start is given: only the envelope width is returned then)."""
-        from learnopt.solve.routes import newton
         task = self.task
         if task.loss.argument == "residual":
             y = self.q
             scale = float(np.median(np.abs(y - np.median(y)))) or float(np.std(y)) or 1.0
         else:
             scale = 1.0
-        from learnopt.solve.solvers import plan
         if self.start is not None:
             return Outcome("optimal", None), SMOOTHING * scale
         smooth = replace(task, loss=Envelope(task.loss, SMOOTHING * scale))
         runner = newton.Runner(smooth)
-        runner.gap_tol = 1e-6
+        runner.configure(replace(self.settings, gap_tol=1e-6))
         # the steps are quadratic problems whatever the task's class: use the first QP solver
         qp = plan(runner.problem_class, None)[0]
         if qp.name != spec.name:
@@ -220,3 +220,6 @@ class Runner(RunnerBase):
         return Outcome(status, theta, u, mults, compile_s, solve_s, rounds,
                        note=f"{int(working.sum())} of {n} rows in the working set",
                        details={"working_rows": int(working.sum()), "rounds": rounds})
+
+
+ROUTE = RouteSpec("working-set", "piecewise-linear losses: solve on the rows near a kink, fold the rest exactly", eligible, Runner, worth=lambda n, p: n >= 4 * _size(n, p))
