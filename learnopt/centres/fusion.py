@@ -25,6 +25,7 @@ import pandas as pd
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import DataError, ParameterError
 
@@ -129,8 +130,8 @@ def _solve(task, lam, tol, gap_tol, fuse_tol) -> "FusionFit":
     # number the clusters by first appearance, from 1
     order = {c: k + 1 for k, c in enumerate(dict.fromkeys(comp.tolist()))}
     labels = np.array([order[c] for c in comp])
-    status = "optimal" if rel <= gap_tol else "unverified"
-    msg = (f"certified: relative gap {rel:.2g} <= {gap_tol:g}" if status == "optimal" else
+    status = Status.OPTIMAL if rel <= gap_tol else Status.UNVERIFIED
+    msg = (f"certified: relative gap {rel:.2g} <= {gap_tol:g}" if status == Status.OPTIMAL else
            f"the certificate does not confirm optimality: relative gap {rel:.3g} > {gap_tol:g}; try a tighter tol")
     return FusionFit(status, msg, primal, gap, rel, pd.DataFrame(Uv, columns=list(task.names)), labels,
                      float(lam), time.perf_counter() - t0, task)

@@ -36,7 +36,7 @@ from learnopt.data.gateway import is_sharded_source
 from learnopt.data.sharded import open_points
 from learnopt.problem.algebra import requirement_constraint
 from learnopt.scale.points import PointBlocks
-from learnopt.rules.language import as_spec, compile_all
+from learnopt.rules.objects import as_spec, compile_all
 from learnopt.rules.requirements import Context, RuleSpec
 
 MAX_ITER = 300

@@ -19,20 +19,21 @@ from __future__ import annotations
 import glob as _glob
 import os
 from dataclasses import dataclass, field
-from typing import Any, Sequence
+from typing import Any, ClassVar, Sequence
 
 import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
 from learnopt.data.points import coordinate_columns
-from learnopt.data.table import Encoding, _close, _column, _kind_of, design, encode, labels_of
+from learnopt.data.table import (Encoding, _close, _column, _kind_of, choose_features, design, encode, labels_of,
+                                 unique_columns)
 
 
 GLOB_CHARS = "*?["
 
 
-def _dask():
+def need_dask():
     try:
         import dask
         import dask.dataframe as dd
@@ -44,7 +45,7 @@ def _dask():
 
 def read_glob(pattern: str):
     """A lazy dask DataFrame over every file matching ``pattern`` (all CSV or all Parquet)."""
-    _, dd = _dask()
+    _, dd = need_dask()
     pattern = os.fspath(pattern)
     files = sorted(_glob.glob(pattern))
     if not files:
@@ -69,7 +70,7 @@ def as_frame(data):
 
 def compute(label: str, *lazy):
     """dask.compute, with reading errors (which come in many types) turned into a DataError."""
-    dask, _ = _dask()
+    dask, _ = need_dask()
     try:
         return dask.compute(*lazy)
     except LearnoptError:
@@ -93,8 +94,9 @@ class BlockSpec:
 class ShardedDataset:
     """A task's data when it lives on a dask cluster: names and encoding here, rows there.
 
-    Has the in-memory :class:`~learnopt.data.Dataset`'s names (``names``, ``encoding``,
-    ``labels``, ``notes``, ``n``, ``d``); ``X``, ``y``, ``weights`` and ``frame`` are None.
+    Answers the tables' shared protocol (``names``, ``encoding``, ``labels``, ``notes``, ``n``,
+    ``d``, ``label``, ``sharded``; see :mod:`learnopt.data.gateway`). It has no rows on the
+    client: ``source`` (the lazy dask DataFrame) and ``spec`` are for the scale layer.
     """
 
     source: Any                           # the lazy dask DataFrame
@@ -103,8 +105,7 @@ class ShardedDataset:
     partitions: int
     label: str                            # what the user gave (pattern or "dask DataFrame")
     notes: list[str] = field(default_factory=list)
-    X = y = weights = frame = None
-    sharded = True
+    sharded: ClassVar[bool] = True
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -133,26 +134,13 @@ def open_source(data, target, *, kind: str, features: Sequence[str] | None, weig
                         "column name.")
     if weights is not None and not isinstance(weights, str):
         raise DataError("With sharded data, 'weights' must be a column name.")
-    if meta.columns.duplicated().any():
-        raise DataError(f"The data has duplicate column names "
-                        f"{sorted(set(map(str, meta.columns[meta.columns.duplicated()])))}; rename them.")
+    unique_columns(meta.columns)
     _column(meta, target, "target")
     if weights is not None:
         col = _column(meta, weights, "weights")
         if not pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
             raise DataError(f"The weights column {weights!r} must be numeric.")
-    if features is None:
-        features = [c for c in meta.columns if c != target and c != weights]
-    else:
-        features = [features] if isinstance(features, str) else list(features)
-        missing = [f for f in features if f not in meta.columns]
-        if missing:
-            raise DataError(f"Feature column(s) {missing} are not in the data.{_close(missing[0], meta.columns)} "
-                            f"Columns: {', '.join(map(str, meta.columns))}.")
-        if target in features:
-            raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
-    if not features and not intercept:
-        raise DataError("The task has no features and no intercept; nothing to fit.")
+    features = choose_features(meta.columns, target, weights, features, intercept)
     if kind == "regression":
         tcol = meta[target]
         if not pd.api.types.is_numeric_dtype(tcol) or pd.api.types.is_bool_dtype(tcol):

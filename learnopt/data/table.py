@@ -261,9 +261,7 @@ def open_memory(data, target, *, kind: str = "regression", features: Sequence[st
 def _from_frame(frame, target, kind, features, weights, intercept, positive) -> Dataset:
     if frame.shape[0] == 0:
         raise DataError("The data has no rows.")
-    if frame.columns.duplicated().any():
-        dup = sorted(set(map(str, frame.columns[frame.columns.duplicated()])))
-        raise DataError(f"The data has duplicate column names {dup}; rename them.")
+    unique_columns(frame.columns)
     frame = frame.reset_index(drop=True)
     if isinstance(target, str):
         ycol = _column(frame, target, "target")
@@ -274,25 +272,37 @@ def _from_frame(frame, target, kind, features, weights, intercept, positive) -> 
             raise DataError(f"The target array has shape {ycol.shape}; it needs one value per row ({len(frame)}).")
         tname = "array"
     w, wcol = _weights(weights, frame, len(frame))
-    if features is None:
-        features = [c for c in frame.columns if c != target and c != wcol]
-    else:
-        if isinstance(features, str):
-            features = [features]
-        features = list(features)
-        missing = [f for f in features if f not in frame.columns]
-        if missing:
-            raise DataError(f"Feature column(s) {missing} are not in the data."
-                            f"{_close(missing[0], frame.columns)} Columns: {', '.join(map(str, frame.columns))}.")
-        if isinstance(target, str) and target in features:
-            raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
-    if not features and not intercept:
-        raise DataError("The task has no features and no intercept; nothing to fit.")
+    features = choose_features(frame.columns, target if isinstance(target, str) else None, wcol, features, intercept)
     enc = encode(frame, features, intercept)
     X = design(enc, frame)
     y, labels = _target(ycol, kind, positive, tname)
     notes = _notes(X, enc.names)
     return Dataset(X, y, w, enc.names, frame, enc, labels, notes)
+
+
+def unique_columns(columns) -> None:
+    """Refuse duplicate column names (in memory and sharded alike)."""
+    if columns.duplicated().any():
+        dup = sorted(set(map(str, columns[columns.duplicated()])))
+        raise DataError(f"The data has duplicate column names {dup}; rename them.")
+
+
+def choose_features(columns, target: str | None, weights: str | None, features, intercept: bool) -> list:
+    """The feature columns: those asked for (checked against ``columns``), or every column but
+    the target and the weights; the same rules in memory and for sharded data."""
+    if features is None:
+        features = [c for c in columns if c != target and c != weights]
+    else:
+        features = [features] if isinstance(features, str) else list(features)
+        missing = [f for f in features if f not in columns]
+        if missing:
+            raise DataError(f"Feature column(s) {missing} are not in the data."
+                            f"{_close(missing[0], columns)} Columns: {', '.join(map(str, columns))}.")
+        if target is not None and target in features:
+            raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
+    if not features and not intercept:
+        raise DataError("The task has no features and no intercept; nothing to fit.")
+    return features
 
 
 def _from_array(X, target, kind, features, weights, positive) -> Dataset:

@@ -61,7 +61,7 @@ class _Base(BaseEstimator):
 
     def _solve(self, task):
         fit = task.solve(self.solver, tol=self.tol, route=self.route)
-        if fit.status not in ("optimal", "unverified"):
+        if not fit.status.has_point:
             raise LearnoptError(f"The fit ended {fit.status!r}: {fit.message}")
         self.fit_ = fit
         self.coef_ = fit.coef.to_numpy().copy()

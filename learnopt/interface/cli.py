@@ -3,15 +3,27 @@
 Exit codes: 0 the fit is certified optimal (or the check passed); 1 the fit is not certified
 (unverified, infeasible, unbounded, failed); 2 invalid input (recipe, data, parameters);
 3 a piece is not convex; 4 no usable solver; 5 too large for the route; 6 a package is missing.
-Every command takes ``--json`` for machine-readable output.
+Every command takes ``--json`` for machine-readable output. Lists of names (solvers, actions)
+come from their registries. A recipe that uses a key renamed in this release still runs; the
+renaming is noted on stderr.
 """
 from __future__ import annotations
 
+import difflib
 import json
 import os
 import sys
+import warnings
 
-from learnopt.core.errors import LearnoptError, MissingDependencyError
+import pandas as pd
+
+from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
+from learnopt.core.status import CAUTION
+from learnopt.interface import jobs
+from learnopt.interface.demo import write_demo
+from learnopt.interface.recipes import load_recipe, read_recipe
+from learnopt.solve.fitfile import to_dict
+from learnopt.solve.solvers import REGISTRY as SOLVERS
 
 try:
     import click
@@ -43,17 +55,10 @@ def _frame_table(frame, title: str) -> Table:
     return table
 
 
-def _fit_json(fit) -> dict:
-    from learnopt.solve.fitfile import to_dict
-    return to_dict(fit)
-
-
 def _show(job, as_json: bool) -> None:
-    import pandas as pd
-    from learnopt.core.status import CAUTION
     fit = job.fit
     if as_json:
-        out = {"fit": _fit_json(fit), "written": job.written}
+        out = {"fit": to_dict(fit), "written": job.written}
         if job.compare is not None:
             out["compare"] = json.loads(job.compare.to_json(orient="index"))
         if job.path is not None:
@@ -89,11 +94,23 @@ def _show(job, as_json: bool) -> None:
     con.print(CAUTION)
 
 
+def _read(reader, recipe_path):
+    """``reader(recipe_path)``; learnopt's deprecation notes (renamed recipe keys) go to stderr."""
+    home = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        out = reader(recipe_path)
+    for w in caught:
+        if issubclass(w.category, DeprecationWarning) and os.path.abspath(w.filename).startswith(home):
+            click.echo(f"note: {w.message}", err=True)
+        else:
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return out
+
+
 def _run(recipe_path, as_json, report, **overrides):
-    from learnopt.interface.jobs import run
-    from learnopt.interface.recipes import read_recipe
     try:
-        job = run(read_recipe(recipe_path), report=report, **overrides)
+        job = jobs.run(_read(read_recipe, recipe_path), report=report, **overrides)
     except LearnoptError as exc:
         _fail(exc, as_json)
     _show(job, as_json)
@@ -122,9 +139,8 @@ def run(recipe, as_json, report):
 @click.argument("recipe", type=click.Path(dir_okay=False))
 @_json
 def check(recipe, as_json):
-    from learnopt.interface.recipes import load_recipe
     try:
-        task = load_recipe(recipe)
+        task = _read(load_recipe, recipe)
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)
@@ -138,11 +154,18 @@ def check(recipe, as_json):
 
 @main.command(help="Solve a recipe with several solvers and compare them.")
 @click.argument("recipe", type=click.Path(dir_okay=False))
-@click.option("--solvers", default=None, help="Comma-separated, e.g. clarabel,osqp,scs.")
+@click.option("--solvers", default=None,
+              help=f"Comma-separated, from {','.join(SOLVERS)} (default: the recipe's do.solvers).")
 @_json
 @_report
 def compare(recipe, solvers, as_json, report):
-    names = [s.strip() for s in solvers.split(",") if s.strip()] if solvers else None
+    names = [s.strip().lower() for s in solvers.split(",") if s.strip()] if solvers else None
+    unknown = [n for n in names or () if n not in SOLVERS]
+    if unknown:
+        close = [m for n in unknown for m in difflib.get_close_matches(n, list(SOLVERS), n=1)]
+        hint = f" Did you mean {', '.join(close)}?" if close else ""
+        _fail(ParameterError(f"--solvers names unknown solvers {', '.join(unknown)}.{hint} "
+                             f"Known solvers: {', '.join(SOLVERS)}."), as_json)
     _run(recipe, as_json, report, action="compare", solvers=names)
 
 
@@ -158,7 +181,8 @@ def path(recipe, grid, count, as_json, report):
         try:
             values = [float(v) for v in grid.split(",") if v.strip()]
         except ValueError:
-            _fail(LearnoptError(f"--grid must be comma-separated numbers; got {grid!r}."), as_json)
+            _fail(ParameterError(f"--grid must be comma-separated numbers, e.g. 1,0.1,0.01. Got {grid!r} instead."),
+                  as_json)
     _run(recipe, as_json, report, action="path", grid=values, n=count)
 
 
@@ -167,7 +191,6 @@ def path(recipe, grid, count, as_json, report):
 @_json
 @_report
 def demo(folder, as_json, report):
-    from learnopt.interface.demo import write_demo
     recipe = write_demo(folder)
     _run(recipe, as_json, report or os.path.join(folder, "report.html"))
 

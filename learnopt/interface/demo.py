@@ -15,6 +15,7 @@ from importlib import resources
 import numpy as np
 import pandas as pd
 
+from learnopt.core.status import Status
 from learnopt.centres.placement import centres
 from learnopt.core.files import write_atomic
 from learnopt.interface.task import regression
@@ -94,7 +95,7 @@ def main() -> int:
     print(fit.summary(), "\n")
     print("held-out evaluation:")
     print(fit.evaluate(test))
-    return 0 if fit.status == "optimal" else 1
+    return 0 if fit.status == Status.OPTIMAL else 1
 
 
 if __name__ == "__main__":

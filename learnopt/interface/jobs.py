@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from learnopt.core.status import Status
 from learnopt.core.errors import DataError
 from learnopt.core.files import write_atomic
 from learnopt.data.gateway import read_source
@@ -27,7 +28,7 @@ class Job:
 
     @property
     def ok(self) -> bool:
-        return self.fit is not None and self.fit.status == "optimal"
+        return self.fit is not None and self.fit.status == Status.OPTIMAL
 
 
 def _split(recipe: Recipe, frame):
@@ -62,7 +63,7 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
                              route=s.route, solver=s.solver, progress=None, **opts)
     extra = {"client": s.cluster} if task.sharded else {}
     job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **extra, **opts)
-    if held is not None and job.fit.status in ("optimal", "unverified"):
+    if held is not None and job.fit.status.has_point:
         job.evaluation = job.fit.evaluate(held)
     _outputs(job, frame, report)
     return job
@@ -88,7 +89,7 @@ def _outputs(job: Job, frame, report: str | None) -> None:
         path = recipe.resolve(out.coefficients)
         write_atomic(path, fit.coefficients().to_csv(index_label="name"))
         job.written.append(path)
-    if out.predictions and fit.status in ("optimal", "unverified"):
+    if out.predictions and fit.status.has_point:
         path = recipe.resolve(out.predictions)
         if isinstance(frame, pd.DataFrame):
             pred = pd.DataFrame({"prediction": fit.predict(frame)})

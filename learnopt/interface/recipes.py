@@ -6,19 +6,40 @@ target, features, weights, loss, penalties, rules, intercept), how to solve, wha
 outputs. Every problem in a recipe is reported at once, each with its place in the file.
 ``load_recipe(path)`` returns the same task the Python API builds (tested for every recipe
 in ``recipes/``). Needs the ``cli`` extra (pydantic).
+
+The allowed names and their keys are read from the registries, not written here: losses and
+penalties from ``losses.LOSSES`` / ``penalties.PENALTIES`` (a block's keys are its constructor's
+keywords, and the block checks the values itself), solvers and routes from their registries.
+Two keys differ from the constructor keywords: total_variation's ``names`` is written ``order``
+(next to ``name`` it would read like a typo), and a penalty's per-coefficient ``factors`` were
+called ``weights`` before this release (still accepted, with a DeprecationWarning).
 """
 from __future__ import annotations
 
 import os
 import tomllib
-from typing import Literal
+import warnings
+from typing import Any, ClassVar, Literal, Mapping
 
-from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
+import pandas as pd
+
+from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError, ParameterError
+from learnopt.data.gateway import read_source
+from learnopt.interface.task import classification, regression
+from learnopt.solve.routes import ROUTES
+from learnopt.solve.solvers import REGISTRY as SOLVERS
+from learnopt.terms.losses import KINDS, LOSSES, for_kind
+from learnopt.terms.penalties import PENALTIES
 
 try:
-    from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+    from pydantic import BaseModel, ConfigDict, Field, ValidationError, create_model, model_validator
 except ImportError as exc:  # pragma: no cover - exercised only without pydantic
     raise MissingDependencyError("Recipes need pydantic: pip install 'learnopt[cli]'.") from exc
+
+ACTIONS = ("solve", "compare", "path")
+LOSS_NAMES = tuple(dict.fromkeys(name for kind in KINDS for name in for_kind(kind)))
+KEYS = {"names": "order"}          # constructor keyword -> recipe key, where they differ
+OLD_KEYS = {"weights": "factors"}  # penalty keys renamed in this release: old -> new
 
 
 class _Strict(BaseModel):
@@ -31,62 +52,93 @@ class DataPart(_Strict):
     types: dict[str, Literal["number", "category", "text"]] = Field(default_factory=dict)
 
 
-class LossPart(_Strict):
-    name: Literal["squared", "absolute", "huber", "quantile", "epsilon_insensitive", "hinge",
-                  "squared_hinge", "logistic"]
-    delta: float | None = Field(default=None, gt=0)
-    tau: float | None = Field(default=None, gt=0, lt=1)
-    eps: float | None = Field(default=None, ge=0)
+def _key(parameter: str) -> str:
+    return KEYS.get(parameter, parameter)
+
+
+def _keyword(key: str) -> str:
+    return {v: k for k, v in KEYS.items()}.get(key, key)
+
+
+class BlockProblem(ValueError):
+    """A building block refused its values: its own message, with the recipe keys it is about."""
+
+    def __init__(self, exc: ParameterError):
+        keys = [_key(p) for p in getattr(exc, "parameters", ())]
+        self.pairs = list(zip(keys, exc.problems)) if len(keys) == len(exc.problems) else [(None, str(exc))]
+        super().__init__(str(exc))
+
+
+class _Block(_Strict):
+    """A named loss or penalty: ``name`` plus the keys its registry row lists."""
+
+    what: ClassVar[str] = ""
+    rows: ClassVar[Mapping] = {}
+
+    def given(self) -> dict:
+        """The keys the recipe gives (recipe key -> value)."""
+        return {k: v for k, v in self if k != "name" and v is not None}
 
     @model_validator(mode="after")
-    def _parameters_belong(self):
-        own = {"huber": "delta", "quantile": "tau", "epsilon_insensitive": "eps"}.get(self.name)
-        stray = [k for k in ("delta", "tau", "eps") if getattr(self, k) is not None and k != own]
+    def _fits_the_block(self):
+        spec = self.rows[self.name]
+        own, given = [_key(p) for p in spec.parameters], self.given()
+        stray = [k for k in given if k not in own]
         if stray:
-            raise ValueError(f"the {self.name} loss takes {own or 'no parameters'}; remove {', '.join(stray)}")
+            raise ValueError(f"the {self.name} {self.what} takes {', '.join(own) or 'no parameters'}; "
+                             f"remove {', '.join(stray)}")
+        missing = [_key(p) for p in spec.required if _key(p) not in given]
+        if missing:
+            raise ValueError(f"the {self.name} {self.what} needs {', '.join(repr(k) for k in missing)}")
+        try:
+            self.build()
+        except ParameterError as exc:
+            raise BlockProblem(exc) from None
         return self
 
     def build(self):
-        from learnopt.terms import losses
-        make = getattr(losses, self.name)
-        own = {"huber": "delta", "quantile": "tau", "epsilon_insensitive": "eps"}.get(self.name)
-        value = getattr(self, own) if own else None
-        return make(value) if value is not None else make()
+        """The block, made by its registry row's constructor (which checks the values)."""
+        return self.rows[self.name].factory(**{_keyword(k): v for k, v in self.given().items()})
 
 
-class PenaltyPart(_Strict):
-    name: Literal["l1", "l2", "elastic_net", "group", "total_variation"]
-    strength: float = Field(ge=0)
-    mix: float | None = Field(default=None, ge=0, le=1)
-    weights: dict[str, float] | None = None
-    groups: list[list[str]] | None = None
-    order: list[str] | None = None
+def _block_model(model: str, base: type[_Block]) -> type[_Block]:
+    """``base`` with ``name`` limited to its rows and one optional key per registered parameter."""
+    keys = dict.fromkeys(_key(p) for spec in base.rows.values() for p in spec.parameters)
+    fields = {"name": (Literal[tuple(base.rows)], ...)} | {k: (Any, None) for k in keys}
+    return create_model(model, __base__=base, __module__=__name__, **fields)
 
-    @model_validator(mode="after")
-    def _parameters_belong(self):
-        needs = {"group": "groups", "total_variation": "order"}.get(self.name)
-        if needs and getattr(self, needs) is None:
-            raise ValueError(f"the {self.name} penalty needs '{needs}'")
-        allowed = {"l1": {"weights"}, "l2": {"weights"}, "elastic_net": {"weights", "mix"},
-                   "group": {"groups"}, "total_variation": {"order"}}[self.name]
-        stray = [k for k in ("mix", "weights", "groups", "order") if getattr(self, k) is not None and k not in allowed]
-        if stray:
-            raise ValueError(f"the {self.name} penalty does not take {', '.join(stray)}")
-        return self
 
-    def build(self):
-        from learnopt.terms import penalties as p
-        if self.name == "group":
-            return p.group(self.strength, self.groups)
-        if self.name == "total_variation":
-            return p.total_variation(self.strength, self.order)
-        if self.name == "elastic_net":
-            return p.elastic_net(self.strength, 0.5 if self.mix is None else self.mix, weights=self.weights)
-        return getattr(p, self.name)(self.strength, weights=self.weights)
+class _Loss(_Block):
+    what: ClassVar[str] = "loss"
+    rows: ClassVar[Mapping] = {name: LOSSES[name] for name in LOSS_NAMES}
+
+
+class _Penalty(_Block):
+    what: ClassVar[str] = "penalty"
+    rows: ClassVar[Mapping] = PENALTIES
+
+    @model_validator(mode="before")
+    @classmethod
+    def _old_keys(cls, data):
+        if not isinstance(data, dict):
+            return data
+        for old, new in OLD_KEYS.items():
+            if old in data:
+                if new in data:
+                    raise ValueError(f"give '{new}' only ('{old}' is its old name)")
+                warnings.warn(f"The penalty key '{old}' is now called '{new}' (per-coefficient factors, not "
+                              f"row weights); '{old}' is still accepted in this release and will be removed "
+                              f"in the next one.", DeprecationWarning, stacklevel=2)
+                data = {(new if k == old else k): v for k, v in data.items()}
+        return data
+
+
+LossPart = _block_model("LossPart", _Loss)
+PenaltyPart = _block_model("PenaltyPart", _Penalty)
 
 
 class TaskPart(_Strict):
-    kind: Literal["regression", "classification"]
+    kind: Literal[KINDS]
     target: str
     features: list[str] | None = None
     weights: str | None = None
@@ -98,8 +150,8 @@ class TaskPart(_Strict):
 
 
 class SolvePart(_Strict):
-    solver: Literal["clarabel", "osqp", "scs", "ecos", "highs"] | None = None
-    route: Literal["direct", "compressed", "newton", "working-set", "sharded"] | None = None
+    solver: Literal[tuple(SOLVERS)] | None = None
+    route: Literal[ROUTES] | None = None
     tol: float = Field(default=1e-9, gt=0, lt=1)
     gap_tol: float = Field(default=1e-7, gt=0, lt=1)
     feas_tol: float = Field(default=1e-6, gt=0, lt=1)
@@ -122,9 +174,8 @@ class HoldoutPart(_Strict):
 
 
 class DoPart(_Strict):
-    action: Literal["solve", "compare", "path"] = "solve"
-    solvers: list[Literal["clarabel", "osqp", "scs", "ecos", "highs"]] = Field(
-        default_factory=lambda: ["clarabel", "osqp", "scs", "ecos", "highs"])
+    action: Literal[ACTIONS] = "solve"
+    solvers: list[Literal[tuple(SOLVERS)]] = Field(default_factory=lambda: list(SOLVERS))
     penalty: int = Field(default=0, ge=0)
     grid: list[float] | None = None
     n: int = Field(default=30, ge=2, le=500)
@@ -159,6 +210,10 @@ def _problems(exc: ValidationError) -> list[str]:
     out = []
     for err in exc.errors():
         where = ".".join(str(p) for p in err["loc"]) or "(top level)"
+        block = (err.get("ctx") or {}).get("error")
+        if isinstance(block, BlockProblem):
+            out += [f"{where}.{key}: {text}" if key else f"{where}: {text}" for key, text in block.pairs]
+            continue
         msg = err["msg"].replace("Value error, ", "")
         if err["type"] == "extra_forbidden":
             msg = "unknown key (check the spelling; see the recipe reference in the README)"
@@ -193,12 +248,7 @@ def read_recipe(path) -> Recipe:
 
 def _frame(recipe: Recipe):
     """The recipe's data: a pandas DataFrame, or a lazy dask DataFrame for a file pattern."""
-    import pandas as pd
-    from learnopt.data.table import read_table
-    from learnopt.data.sharded import read_glob
-    from learnopt.data.gateway import is_sharded_source
-    path = recipe.resolve(recipe.data.path)
-    frame = read_glob(path) if is_sharded_source(path) else read_table(path)
+    frame = read_source(recipe.resolve(recipe.data.path))
     for column, kind in recipe.data.types.items():
         if column not in frame.columns:
             raise DataError(f"data.types names {column!r}, which is not a column of {recipe.data.path!r}.")
@@ -212,7 +262,6 @@ def _frame(recipe: Recipe):
 
 def build_task(recipe: Recipe, frame=None):
     """The learnopt task a recipe describes (data read unless ``frame`` is given)."""
-    from learnopt.interface.task import classification, regression
     t = recipe.task
     frame = _frame(recipe) if frame is None else frame
     problems, loss, pens = [], None, []

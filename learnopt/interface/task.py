@@ -16,7 +16,7 @@ from learnopt.core.errors import ParameterError
 from learnopt.data.gateway import from_data
 from learnopt.problem.formulate import build, one_row
 from learnopt.problem.problem import Problem
-from learnopt.rules.language import as_spec, compile_all
+from learnopt.rules.objects import as_spec, compile_all
 from learnopt.rules.requirements import RuleSpec
 from learnopt.scale.partitions import compile_rules
 from learnopt.selection.crossval import cross_validate

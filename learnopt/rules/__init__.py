@@ -5,7 +5,8 @@ for regions, and the requirements they compile to.
 >>> lo.rule.bounds(price=(None, 0)).text
 'price <= 0'
 """
-from learnopt.rules.language import Bounds, TextRule, as_spec, bounds, compile_all, parse
+from learnopt.rules.language import parse
+from learnopt.rules.objects import Bounds, TextRule, as_spec, bounds, compile_all
 from learnopt.rules.regions import Ball, Polygon, Segment, ball, outside, polygon, segment, separation
 from learnopt.rules.requirements import Context, NoRows, Requirement, RuleSpec
 

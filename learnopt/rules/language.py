@@ -22,89 +22,15 @@ from __future__ import annotations
 
 import ast
 import difflib
-import io
-import tokenize
-from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError, NotConvexError
-from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows, Requirement, RuleSpec
+from learnopt.rules.reading import Quoted, read, shown
+from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows, Requirement
 
-MAX_RULE_LENGTH = 5000
-MAX_DEPTH = 60
 FUNCTIONS = ("increasing", "decreasing", "nonneg", "nonpos", "norm1", "norm2", "abs", "mean", "sum")
-
-
-@dataclass(frozen=True)
-class TextRule(RuleSpec):
-    """A rule written as text."""
-
-    text: str
-
-    def compile(self, ctx: Context) -> list[Requirement]:
-        return parse(self.text, ctx)
-
-
-@dataclass(frozen=True)
-class Bounds(RuleSpec):
-    """Box bounds on named coefficients: ``bounds(a=(0, None), b=(-1, 1))``."""
-
-    limits: tuple[tuple[str, float | None, float | None], ...]
-
-    @property
-    def text(self) -> str:
-        return "; ".join(self._texts())
-
-    def _texts(self) -> list[str]:
-        out = []
-        for name, low, high in self.limits:
-            shown = name if name.isidentifier() else f"`{name}`"
-            if low is not None and high is not None:
-                out.append(f"{low:g} <= {shown} <= {high:g}")
-            elif low is not None:
-                out.append(f"{shown} >= {low:g}")
-            elif high is not None:
-                out.append(f"{shown} <= {high:g}")
-        return out
-
-    def compile(self, ctx: Context) -> list[Requirement]:
-        reqs: list[Requirement] = []
-        for t in self._texts():
-            reqs.extend(parse(t, ctx))
-        return reqs
-
-
-def bounds(**limits: tuple[float | None, float | None]) -> Bounds:
-    """Box bounds on coefficients by name, e.g. ``lo.rule.bounds(price=(None, 0), size=(0, 5))``.
-
-    Each value is ``(low, high)``; ``None`` leaves that side open.
-    """
-    items = []
-    for name, pair in limits.items():
-        try:
-            low, high = pair
-        except (TypeError, ValueError):
-            raise DataError(f"bounds: the limits for {name!r} must be a pair (low, high); "
-                            f"got {pair!r}. Use None for an open side.") from None
-        for v in (low, high):
-            if v is not None and not np.isfinite(float(v)):
-                raise DataError(f"bounds: the limits for {name!r} must be finite numbers or None; got {pair!r}.")
-        if low is not None and high is not None and low > high:
-            raise DataError(f"bounds: the low limit of {name!r} ({low}) is above its high limit ({high}).")
-        items.append((name, None if low is None else float(low), None if high is None else float(high)))
-    return Bounds(tuple(items))
-
-
-def as_spec(rule: str | RuleSpec) -> RuleSpec:
-    if isinstance(rule, RuleSpec):
-        return rule
-    if isinstance(rule, str):
-        return TextRule(rule.strip())
-    raise DataError(f"A rule must be text such as \"a >= 0\" or a rule object from lo.rule; "
-                    f"got {type(rule).__name__} {rule!r}.")
 
 
 def _scalar(ctx, A=None, c=0.0) -> Affine:
@@ -113,111 +39,17 @@ def _scalar(ctx, A=None, c=0.0) -> Affine:
 
 # ----------------------------------------------------------------------------- parsing
 
-class _Quoted:
-    """Backtick-quoted names are replaced by placeholders before parsing."""
-
-    def __init__(self, text: str):
-        self.names: dict[str, str] = {}
-        out, i = [], 0
-        parts = text.split("`")
-        if len(parts) % 2 == 0:
-            raise DataError(f"Rule {text!r}: unmatched backtick. Quote names that are not "
-                            f"plain identifiers like `region=north`.")
-        for j, part in enumerate(parts):
-            if j % 2:
-                key = f"__quoted_{i}"
-                self.names[key] = part
-                i += 1
-                out.append(key)
-            else:
-                out.append(part)
-        self.text = "".join(out)
-
-    def restore(self, s: str) -> str:
-        for key, name in self.names.items():
-            s = s.replace(key, f"`{name}`")
-        return s
-
-
-def _where_to_ifexp(text: str) -> str:
-    """Rewrite ``X where C`` as the conditional expression ``X if C else __rest__``."""
-    try:
-        toks = list(tokenize.generate_tokens(io.StringIO(text).readline))
-    except (tokenize.TokenError, IndentationError, SyntaxError) as exc:
-        raise DataError(f"Rule {text!r} cannot be read: {exc}. Check brackets and quotes.") from None
-    out: list[tuple[int, str]] = []
-    depth, pending = 0, []
-    closing = {")", "]", "}"}
-
-    def flush(at_depth: int):
-        while pending and pending[-1] >= at_depth:
-            pending.pop()
-            out.append((tokenize.NAME, "else"))
-            out.append((tokenize.NAME, "__rest__"))
-
-    for tok in toks:
-        if tok.type == tokenize.NAME and tok.string == "where":
-            pending.append(depth)
-            out.append((tokenize.NAME, "if"))
-            continue
-        if tok.type == tokenize.OP and tok.string in closing:
-            flush(depth)
-            depth -= 1
-        elif tok.type == tokenize.OP and tok.string == ",":
-            flush(depth)
-        elif tok.type in (tokenize.NEWLINE, tokenize.ENDMARKER, tokenize.NL):
-            flush(0)
-        if tok.type == tokenize.OP and tok.string in ("(", "[", "{"):
-            depth += 1
-        out.append((tok.type, tok.string))
-    flush(0)
-    return tokenize.untokenize(out)
-
-
-def _shown(node: ast.AST, quoted: _Quoted) -> str:
-    s = ast.unparse(node)
-    s = s.replace(" else __rest__", "").replace(" if ", " where ")
-    return quoted.restore(s)
-
-
 def parse(text: str, ctx: Context) -> list[Requirement]:
     """Compile one rule text into requirements; raise DataError / NotConvexError with the reason."""
-    if not isinstance(text, str) or not text.strip():
-        raise DataError("A rule must be non-empty text such as \"a >= 0\".")
-    if len(text) > MAX_RULE_LENGTH:
-        raise DataError(f"Rule of {len(text)} characters is longer than the limit of "
-                        f"{MAX_RULE_LENGTH}; split it into several rules.")
-    quoted = _Quoted(text)
-    source = _where_to_ifexp(quoted.text.strip())
-    try:
-        tree = ast.parse(source.strip(), mode="eval")
-    except (SyntaxError, ValueError, RecursionError, MemoryError) as exc:
-        msg = getattr(exc, "msg", str(exc)) or type(exc).__name__
-        raise DataError(f"Rule {text!r} is not valid rule syntax ({msg}). Rules look like "
-                        f"\"a >= 0\", \"0 <= b <= 5\" or \"increasing(a, b, c)\".") from None
-    depth = _depth(tree.body)
-    if depth > MAX_DEPTH:
-        raise DataError(f"Rule {text!r} is nested {depth} levels deep, more than the limit "
-                        f"{MAX_DEPTH}; write it more simply.")
+    tree, quoted = read(text)
     return _Compiler(text, ctx, quoted).top(tree.body)
-
-
-def _depth(node: ast.AST) -> int:
-    stack, best = [(node, 1)], 0
-    while stack:
-        n, d = stack.pop()
-        best = max(best, d)
-        if d > MAX_DEPTH:
-            return d
-        stack.extend((c, d + 1) for c in ast.iter_child_nodes(n))
-    return best
 
 
 _CMP = {ast.Lt: "<", ast.LtE: "<=", ast.Gt: ">", ast.GtE: ">=", ast.Eq: "==", ast.NotEq: "!="}
 
 
 class _Compiler:
-    def __init__(self, text: str, ctx: Context, quoted: _Quoted):
+    def __init__(self, text: str, ctx: Context, quoted: Quoted):
         self.text, self.ctx, self.quoted = text, ctx, quoted
         self.index = {n: i for i, n in enumerate(ctx.names)}
         self.columns = set(ctx.frame.columns) if ctx.frame is not None else set()
@@ -288,7 +120,7 @@ class _Compiler:
             text = self.text
             if chain:
                 piece = ast.Compare(left=sides[i], ops=[op], comparators=[sides[i + 1]])
-                text = _shown(piece, self.quoted)
+                text = shown(piece, self.quoted)
             lhs, rhs = values[i], values[i + 1]
             if sym in (">=", ">"):
                 lhs, rhs = rhs, lhs
@@ -321,7 +153,7 @@ class _Compiler:
             raise self.fail(self.ctx.no_rows or "'where' conditions need data columns; give the data as a DataFrame.")
         mask = self._cond(node)
         if not mask.any():
-            raise NoRows(f"Rule {self.text!r}: the condition {_shown(node, self.quoted)!r} selects no rows of the data.")
+            raise NoRows(f"Rule {self.text!r}: the condition {shown(node, self.quoted)!r} selects no rows of the data.")
         return mask
 
     def _cond(self, node):
@@ -348,11 +180,11 @@ class _Compiler:
                     m = {"<": np.less, "<=": np.less_equal, ">": np.greater, ">=": np.greater_equal,
                          "==": np.equal, "!=": np.not_equal}[sym](a, b)
                 except TypeError:
-                    raise self.fail(f"cannot compare {_shown(node, self.quoted)!r}: the column and "
+                    raise self.fail(f"cannot compare {shown(node, self.quoted)!r}: the column and "
                                     f"the value have different types (text vs number).") from None
                 mask &= np.asarray(m, dtype=bool)
             return mask
-        raise self.fail(f"{_shown(node, self.quoted)!r} is not a condition; write e.g. "
+        raise self.fail(f"{shown(node, self.quoted)!r} is not a condition; write e.g. "
                         f"segment == 'retail' or distance_km > 10.")
 
     def _cond_value(self, node):
@@ -370,7 +202,7 @@ class _Compiler:
             if name in self.columns:
                 return self.ctx.frame[name].to_numpy()
             raise self.unknown(name)
-        raise self.fail(f"{_shown(node, self.quoted)!r} is not allowed in a condition; use data "
+        raise self.fail(f"{shown(node, self.quoted)!r} is not allowed in a condition; use data "
                         f"column names, numbers and quoted text.")
 
     # ---- values: affine expressions, norms
@@ -399,7 +231,7 @@ class _Compiler:
             raise self.fail("comparisons cannot be nested inside an expression.")
         if isinstance(node, ast.Attribute):
             raise self.fail("attribute access (a.b) is not part of the rule language.")
-        raise self.fail(f"{_shown(node, self.quoted)!r} is not part of the rule language.")
+        raise self.fail(f"{shown(node, self.quoted)!r} is not part of the rule language.")
 
     def name_value(self, name: str, mask):
         if name == "__rest__":
@@ -457,7 +289,7 @@ class _Compiler:
                     and (a.constant or b.constant):
                 raise self.fail("multiplying by a data column row by row is not supported; "
                                 "use a number.")
-            raise self.not_convex(f"{_shown(node, self.quoted)!r} multiplies two unknowns "
+            raise self.not_convex(f"{shown(node, self.quoted)!r} multiplies two unknowns "
                                   f"(coefficients or predictions); a product of unknowns is not convex. "
                                   f"Rules must be linear in the coefficients, or norms <= a value.")
         if isinstance(op, ast.Div):
@@ -465,7 +297,7 @@ class _Compiler:
                 if b.c[0] == 0:
                     raise self.fail("division by zero.")
                 return _scale(a, 1.0 / float(b.c[0]), self)
-            raise self.not_convex(f"{_shown(node, self.quoted)!r} divides by an unknown or a data "
+            raise self.not_convex(f"{shown(node, self.quoted)!r} divides by an unknown or a data "
                                   f"column; only division by a number keeps a rule convex.")
         if isinstance(op, ast.Pow):
             if isinstance(a, Affine) and a.constant and a.rows is None and isinstance(b, Affine) and b.constant and b.rows is None:
@@ -474,13 +306,13 @@ class _Compiler:
                 except (OverflowError, ZeroDivisionError):
                     v = float("inf")
                 if not np.isfinite(v) or isinstance(v, complex) or abs(v) > 1e15:
-                    raise self.fail(f"{_shown(node, self.quoted)!r} is not a usable number.")
+                    raise self.fail(f"{shown(node, self.quoted)!r} is not a usable number.")
                 return _scalar(self.ctx, c=v)
-            raise self.not_convex(f"{_shown(node, self.quoted)!r} raises an unknown to a power; "
+            raise self.not_convex(f"{shown(node, self.quoted)!r} raises an unknown to a power; "
                                   f"powers of coefficients are not linear, and an equality or "
                                   f"lower bound on them is not convex. Use norm2(...) <= value "
                                   f"for a bound on a sum of squares.")
-        raise self.fail(f"the operator in {_shown(node, self.quoted)!r} is not part of the rule language.")
+        raise self.fail(f"the operator in {shown(node, self.quoted)!r} is not part of the rule language.")
 
     def call(self, node: ast.Call, mask):
         if not isinstance(node.func, ast.Name):
@@ -519,7 +351,7 @@ class _Compiler:
         order = 2.0 if fn == "norm2" else 1.0
         if fn == "abs" and len(A) != 1:
             raise self.fail("abs(...) takes one scalar; use norm1(...) for several.")
-        return NormTerm(1.0, A, c, order, _scalar(self.ctx), _shown(node, self.quoted))
+        return NormTerm(1.0, A, c, order, _scalar(self.ctx), shown(node, self.quoted))
 
 
 def _add(a, b, comp: _Compiler) -> Affine:
@@ -544,23 +376,3 @@ def _scale(v, k: float, comp):
             return _scale(v.affine, 0.0, comp)
         return NormTerm(v.k * k, v.A, v.c, v.order, _scale(v.affine, k, comp), v.source)
     return Affine(k * v.A, k * v.c, v.rows)
-
-
-def compile_all(specs: Sequence[RuleSpec], ctx: Context) -> list[Requirement]:
-    """Compile every rule; collect every problem and raise them together."""
-    reqs, problems, not_convex = [], [], []
-    for spec in specs:
-        try:
-            reqs.extend(spec.compile(ctx))
-        except NotConvexError as exc:
-            not_convex.append(str(exc))
-        except DataError as exc:
-            problems.append(str(exc))
-    if not_convex:
-        raise NotConvexError(not_convex[0] if len(not_convex) == 1 else "Some rules are not convex",
-                             problems=not_convex + problems)
-    if problems:
-        raise DataError(problems[0] if len(problems) == 1 else "Some rules cannot be used",
-                        problems=problems)
-    return reqs
-

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import os
 
 from learnopt.core.errors import MissingDependencyError, ParameterError
-from learnopt.data.sharded import _dask
+from learnopt.data.sharded import need_dask
 
 _LOCAL: dict = {}
 
@@ -19,7 +19,7 @@ _LOCAL: dict = {}
 def connect(client=None):
     """The distributed Client to use: the one given, a scheduler address, dask's default, or a
     local cluster learnopt starts (once per process)."""
-    _dask()
+    need_dask()
     try:
         from distributed import Client, LocalCluster, default_client
     except ImportError as exc:

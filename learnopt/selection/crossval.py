@@ -15,6 +15,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import DataError, ParameterError
 from learnopt.data.table import take_rows
@@ -162,7 +163,7 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
                     continue
                 s = np.asarray(X @ fit.coef.to_numpy()).ravel() + fit.intercept
                 table[j, k] = score(y, s, w)
-                certified[j] += fit.status == "optimal"
+                certified[j] += fit.status == Status.OPTIMAL
             bar.step()
     finally:
         bar.close()

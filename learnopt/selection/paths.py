@@ -22,6 +22,7 @@ from typing import Any, Sequence
 import numpy as np
 import pandas as pd
 
+from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import MissingDependencyError, ParameterError
 from learnopt.problem.algebra import loss_argument
@@ -213,7 +214,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
         for lam in grid:
             runner.set_strength(lam)
             fit = solve_task(task, settings, **opts)
-            if fit.status in ("optimal", "unverified"):
+            if fit.status.has_point:
                 runner.start = fit.theta
             fits.append(fit)
             w = fit.coef.to_numpy()
@@ -245,12 +246,12 @@ def _strength_scale(task, index) -> float:
 
 def _settled(fit) -> bool:
     """A certified fit at a huge strength where rules hold some coefficients away from zero."""
-    return fit.status == "optimal" and bool(fit.binding.any()) if len(fit.binding) else False
+    return fit.status == Status.OPTIMAL and bool(fit.binding.any()) if len(fit.binding) else False
 
 
 def _all_zero(task, index, fit) -> bool:
     """Are the coefficients penalty ``index`` acts on all (numerically) zero at this fit?"""
-    if fit.status not in ("optimal", "unverified"):
+    if not fit.status.has_point:
         return False
     unit = task.penalties[index].with_strength(1.0)
     w = fit.coef.to_numpy()

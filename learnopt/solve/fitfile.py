@@ -22,7 +22,7 @@ from learnopt.core.errors import DataError, LearnoptError
 from learnopt.core.files import write_atomic
 from learnopt.data.table import Dataset, Encoding
 from learnopt.problem.problem import Problem
-from learnopt.rules.language import TextRule
+from learnopt.rules.objects import TextRule
 from learnopt.solve.solvers import REGISTRY
 from learnopt.solve.timings import Timings
 from learnopt.terms import losses as _losses

@@ -221,9 +221,9 @@ def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd
         rows.append({"solver": spec.name, "status": fit.status.value, "objective": fit.objective, "gap": fit.gap,
                      "violation": fit.violation, "iterations": fit.extras.get("iterations"),
                      **{f"{k}_s": v for k, v in fit.timings.as_dict().items()},
-                     "note": "" if fit.status == "optimal" else fit.message})
+                     "note": "" if fit.status == Status.OPTIMAL else fit.message})
     table = pd.DataFrame(rows).set_index("solver")
-    certified = [n for n, f in fits.items() if f.status == "optimal"]
+    certified = [n for n, f in fits.items() if f.status == Status.OPTIMAL]
     pool = certified or [n for n, f in fits.items() if np.all(np.isfinite(f.coef))]
     if pool:
         best = min(pool, key=lambda n: fits[n].objective)

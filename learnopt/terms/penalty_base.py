@@ -119,8 +119,8 @@ def freeze_counted(factors, owner: str, count: int, unit: str):
     if factors is None:
         return None
     if isinstance(factors, Mapping) or len(frozen := freeze_factors(factors, owner)) != count:
-        raise refuse("factors", f"The 'factors' parameter of {owner} must be a list of {count} finite "
-                                f"numbers >= 0, one per {unit}. Got {factors!r} instead.")
+        raise refuse("factors", f"The 'factors' parameter of {owner} must be a list with one finite number "
+                                f">= 0 per {unit} ({count} in all). Got {factors!r} instead.")
     return frozen
 
 
@@ -146,16 +146,34 @@ def factor_array(factors, names: Sequence[str], owner: str) -> np.ndarray:
     return out
 
 
-def name_list(value, owner: str, parameter: str, what: str) -> tuple[str, ...]:
-    """A non-empty list of coefficient names (strings or numbers), as a tuple of strings."""
-    ok = not isinstance(value, (str, bytes, Mapping))
+def _items(value) -> list:
+    """The items of a list-like value (not a string or mapping); [] when it is not one."""
+    if isinstance(value, (str, bytes, Mapping)):
+        return []
     try:
-        items = list(value) if ok else []
+        return list(value)
     except TypeError:
-        items = []
-    if not items or not all(isinstance(n, (str, Real)) and not isinstance(n, bool) for n in items):
+        return []
+
+
+def _name(n) -> bool:
+    return isinstance(n, (str, Real)) and not isinstance(n, bool)
+
+
+def name_list(value, owner: str, parameter: str, what: str, least: int = 1) -> tuple[str, ...]:
+    """A list of at least ``least`` coefficient names (strings or numbers), as a tuple of strings."""
+    items = _items(value)
+    if len(items) < least or not all(_name(n) for n in items):
         raise refuse(parameter, f"The '{parameter}' parameter of {owner} must be {what}. Got {value!r} instead.")
     return tuple(str(n) for n in items)
+
+
+def name_lists(value, owner: str, parameter: str, what: str) -> tuple[tuple[str, ...], ...]:
+    """A non-empty list of non-empty lists of coefficient names (or a mapping label -> list)."""
+    lists = _items(value.values() if isinstance(value, Mapping) else value)
+    if not lists or not all((items := _items(g)) and all(_name(n) for n in items) for g in lists):
+        raise refuse(parameter, f"The '{parameter}' parameter of {owner} must be {what}. Got {value!r} instead.")
+    return tuple(tuple(str(n) for n in g) for g in lists)
 
 
 @dataclass(frozen=True)

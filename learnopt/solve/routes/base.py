@@ -130,7 +130,7 @@ class RunnerBase:
         for k, pen in enumerate(self.task.penalties):
             if k == self.vary:
                 if self.strength is None:
-                    self.strength = cp.Parameter(nonneg=True, value=float(pen.lam), name="strength")
+                    self.strength = cp.Parameter(nonneg=True, value=float(pen.strength), name="strength")
                 total = total + self.strength * pen.with_strength(1.0).expr(w, self.task.features)
             else:
                 total = total + pen.expr(w, self.task.features)
