@@ -139,7 +139,7 @@ BAD = [
     ("[data]\npath='x.csv'\n[task]\nkind='ranking'\ntarget='y'\n[task.loss]\nname='squared'\n",
      ["task.kind: Input should be 'regression' or 'classification'"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='huber'\ndelta=-1\n"
-     "[solve]\ntol=5\n", ["task.loss.delta: Input should be greater than 0", "solve.tol: Input should be less than 1"]),
+     "[solve]\ntol=5\n", ["task.loss.delta: The 'delta' parameter of huber must be > 0", "solve.tol: Input should be less than 1"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\ntau=0.5\n",
      ["the squared loss takes no parameters; remove tau"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\n"
@@ -160,6 +160,53 @@ def test_bad_recipes_list_every_problem_with_its_place(tmp_path, text, fragments
     out = CliRunner().invoke(main, ["run", str(path)])
     assert out.exit_code == 2 and "Traceback" not in out.output
     reliability.record("hostile recipe", "validation error")
+
+
+def test_recipe_names_and_keys_come_from_the_registries(tmp_path):
+    # every fittable loss (with its own parameters) and every penalty is a recipe block; the
+    # block's own check gives the range error, placed at the recipe key
+    from learnopt.interface.recipes import LossPart, PenaltyPart
+    for kind in ("regression", "classification"):
+        for name in lo.loss.for_kind(kind):
+            example = lo.loss.LOSSES[name].examples[-1]
+            keys = {k: getattr(example, k) for k in lo.loss.LOSSES[name].parameters}
+            assert LossPart(name=name, **keys).build() == example
+    assert set(PenaltyPart.model_fields) == {"name", "strength", "factors", "mix", "groups", "order"}
+    assert PenaltyPart(name="total_variation", strength=0.5, order=["a", "b", "c"], factors=[1, 0]).build() \
+        == lo.penalty.total_variation(0.5, ["a", "b", "c"], factors=[1.0, 0.0])
+    path = tmp_path / "bad.toml"
+    path.write_text("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\n"
+                    "[[task.penalties]]\nname='elastic_net'\nstrength=-1\nmix=2\n"
+                    "[[task.penalties]]\nname='total_variation'\nstrength=1\norder='ab'\n")
+    with pytest.raises(lo.DataError) as info:
+        read_recipe(path)
+    assert info.value.problems == [
+        "task.penalties.0.strength: The 'strength' parameter of elastic_net must be >= 0. Got -1 instead.",
+        "task.penalties.0.mix: The 'mix' parameter of elastic_net must be >= 0 and <= 1. Got 2 instead.",
+        "task.penalties.1.order: The 'names' parameter of total_variation must be a list of at least two "
+        "coefficient names, in order. Got 'ab' instead."]
+
+
+def test_old_penalty_key_weights_still_works_with_a_note(tmp_path, copied):
+    recipe = copied / "deliveries.toml"
+    text = recipe.read_text()
+    assert 'name = "l1"\nstrength = 0.01\n' in text
+    recipe.write_text(text.replace('name = "l1"\nstrength = 0.01\n',
+                                   'name = "l1"\nstrength = 0.01\nweights = { distance_km = 0.0 }\n'))
+    with pytest.warns(DeprecationWarning, match="'weights' is now called 'factors'"):
+        task = load_recipe(recipe)
+    assert task.penalties == (lo.penalty.l1(0.01, factors={"distance_km": 0.0}),)
+    out = CliRunner().invoke(main, ["check", str(recipe)])
+    assert out.exit_code == 0 and "note: The penalty key 'weights' is now called 'factors'" in out.output
+    both = text.replace('strength = 0.01\n', 'strength = 0.01\nweights = { stops = 1.0 }\nfactors = { stops = 1.0 }\n')
+    recipe.write_text(both)
+    with pytest.raises(lo.DataError, match="give 'factors' only"):
+        read_recipe(recipe)
+
+
+def test_compare_refuses_unknown_solver_names_with_the_known_ones(copied):
+    out = CliRunner().invoke(main, ["compare", str(copied / "deliveries.toml"), "--solvers", "clarabel,osqpp"])
+    assert out.exit_code == 2 and "Did you mean osqp?" in out.output and "clarabel, osqp, scs" in out.output
 
 
 def test_missing_data_and_non_convex_rule_exit_codes(tmp_path):

@@ -1,16 +1,22 @@
-"""Checks run over every registered building block (common practice: property tables)."""
+"""Checks run over every registered building block (common practice: property tables).
+
+The blocks come from the registries (``lo.loss.LOSSES``, ``lo.penalty.PENALTIES``), so a new
+registry row is checked here without touching this file.
+"""
+import json
+import warnings
+
 import cvxpy as cp
 import numpy as np
 import pytest
 
 import learnopt as lo
+from learnopt.terms.registry import EXAMPLE_NAMES
 
-LOSSES = [lo.loss.squared(), lo.loss.absolute(), lo.loss.huber(0.7), lo.loss.quantile(0.2),
-          lo.loss.epsilon_insensitive(0.3), lo.loss.hinge(), lo.loss.squared_hinge(), lo.loss.logistic()]
-NAMES = ("a", "b", "c", "d")
-PENALTIES = [lo.penalty.l1(0.3), lo.penalty.l2(0.2), lo.penalty.elastic_net(0.4, 0.3),
-             lo.penalty.l1(0.3, weights={"a": 0.0, "b": 2.0}),
-             lo.penalty.group(0.5, [["a", "b"], ["c"]]), lo.penalty.total_variation(0.6, ["a", "b", "c", "d"])]
+LOSSES = [ex for spec in lo.loss.LOSSES.values() if spec.convex for ex in spec.examples]
+NAMES = EXAMPLE_NAMES
+PENALTIES = [ex for spec in lo.penalty.PENALTIES.values() for ex in spec.examples]
+FIRST_PENALTIES = [spec.examples[0] for spec in lo.penalty.PENALTIES.values()]
 Z = np.linspace(-3.0, 3.0, 41)
 
 
@@ -97,7 +103,7 @@ def test_certificate_bounds_suboptimality_regression(loss, pen):
 
 
 @pytest.mark.parametrize("loss", [l for l in LOSSES if l.argument == "margin"], ids=lambda l: l.describe())
-@pytest.mark.parametrize("pen", [None] + PENALTIES[:3], ids=lambda p: "none" if p is None else p.describe())
+@pytest.mark.parametrize("pen", [None] + FIRST_PENALTIES, ids=lambda p: "none" if p is None else p.describe())
 def test_certificate_bounds_suboptimality_classification(loss, pen):
     _check_certificate(loss, pen, classify=True)
 
@@ -121,3 +127,154 @@ def _check_certificate(loss, pen, classify):
             continue  # solver cannot handle this class (e.g. OSQP and exponential cones)
         if loose.status in ("optimal", "unverified") and loose.violation <= 1e-9:
             assert loose.objective - tight.objective <= loose.gap + 1e-9
+
+
+# ----------------------------------------------------------------------------- the registries
+
+def test_every_registry_row_has_examples_made_by_its_own_constructor():
+    for name, spec in lo.loss.LOSSES.items():
+        assert spec.examples and spec.factory().name == name
+        assert all(type(ex) is type(spec.factory()) for ex in spec.examples)
+    for name, spec in lo.penalty.PENALTIES.items():
+        assert spec.examples and spec.required[0] == "strength" and "factors" in spec.parameters
+        assert all(ex.describe().startswith(f"{name}(strength=") for ex in spec.examples)
+
+
+def test_by_name_knows_every_row_and_alias():
+    for name, spec in lo.loss.LOSSES.items():
+        assert lo.loss.by_name(name) == spec.factory()
+        for alias in spec.aliases:
+            assert lo.loss.by_name(alias) == spec.factory()
+    with pytest.raises(lo.ParameterError, match="Did you mean squared_hinge"):
+        lo.loss.by_name("squared_hinj")
+
+
+def test_for_kind_lists_the_fittable_losses_of_each_kind():
+    assert lo.loss.for_kind("regression") == ("squared", "absolute", "huber", "quantile", "epsilon_insensitive")
+    assert lo.loss.for_kind("classification") == ("squared", "hinge", "squared_hinge", "logistic")
+    with pytest.raises(lo.ParameterError, match="'kind' parameter of for_kind"):
+        lo.loss.for_kind("ranking")
+
+
+def _tiny(kind):
+    rng = np.random.default_rng(3)
+    X = rng.normal(size=(30, 2))
+    y = X @ np.array([1.0, -1.0]) + 0.2 * rng.normal(size=30)
+    return (X, y) if kind == "regression" else (X, np.where(y > 0, "yes", "no"))
+
+
+@pytest.mark.parametrize("name", list(lo.loss.LOSSES))
+def test_each_loss_is_accepted_by_its_kinds_and_refused_by_the_others(name):
+    spec = lo.loss.LOSSES[name]
+    builders = {"regression": lo.regression, "classification": lo.classification}
+    for kind, build in builders.items():
+        X, y = _tiny(kind)
+        for loss in (name, spec.examples[-1]):
+            if not spec.convex:
+                with pytest.raises(lo.NotConvexError, match="not convex|non-convex"):
+                    build(X, y, loss)
+            elif kind in spec.kinds:
+                fit = build(X, y, loss).solve()
+                assert fit.status == "optimal", fit.message
+                assert name in lo.loss.for_kind(kind)
+            else:
+                with pytest.raises(lo.ParameterError) as info:
+                    build(X, y, loss)
+                message = str(info.value)
+                assert name in message and kind in message
+                assert name not in lo.loss.for_kind(kind)
+
+
+# ----------------------------------------------------------------------------- renamed keywords
+
+OLD_AND_NEW = [
+    (lambda: lo.penalty.l1(lam=0.3), lambda: lo.penalty.l1(strength=0.3)),
+    (lambda: lo.penalty.l2(lam=0.2), lambda: lo.penalty.l2(0.2)),
+    (lambda: lo.penalty.elastic_net(lam=0.4, mix=0.3), lambda: lo.penalty.elastic_net(0.4, 0.3)),
+    (lambda: lo.penalty.group(lam=0.5, groups=[["a", "b"]]), lambda: lo.penalty.group(0.5, [["a", "b"]])),
+    (lambda: lo.penalty.total_variation(lam=0.6, names=["a", "b"]),
+     lambda: lo.penalty.total_variation(0.6, ["a", "b"])),
+    (lambda: lo.penalty.l1(0.3, weights={"a": 2.0}), lambda: lo.penalty.l1(0.3, factors={"a": 2.0})),
+    (lambda: lo.penalty.elastic_net(0.3, weights=[1.0, 0.0, 2.0, 1.0]),
+     lambda: lo.penalty.elastic_net(0.3, factors=[1.0, 0.0, 2.0, 1.0])),
+    (lambda: lo.penalty.group(0.5, [["a"], ["b"]], weights=[1.0, 2.0]),
+     lambda: lo.penalty.group(0.5, [["a"], ["b"]], factors=[1.0, 2.0])),
+    (lambda: lo.penalty.total_variation(0.6, ["a", "b", "c"], weights=[1.0, 0.0]),
+     lambda: lo.penalty.total_variation(0.6, ["a", "b", "c"], factors=[1.0, 0.0])),
+]
+
+
+@pytest.mark.parametrize("old,new", OLD_AND_NEW, ids=[f"case{k}" for k in range(len(OLD_AND_NEW))])
+def test_old_keyword_still_works_with_a_deprecation_warning(old, new):
+    with pytest.warns(DeprecationWarning, match="is now called .* removed in the next"):
+        before = old()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        after = new()
+    assert before == after
+    w = np.array([0.5, -1.2, 2.0, 0.1])
+    assert before.value(w, NAMES) == after.value(w, NAMES)
+
+
+@pytest.mark.parametrize("make", [
+    lambda: lo.penalty.l1(0.3, lam=0.3),
+    lambda: lo.penalty.l1(strength=0.3, lam=0.3),
+    lambda: lo.penalty.group(0.5, [["a"]], lam=0.5),
+    lambda: lo.penalty.l2(0.2, factors=[1.0], weights=[1.0]),
+])
+def test_old_and_new_keyword_together_is_a_parameter_error(make):
+    with pytest.raises(lo.ParameterError, match="both .* and its old name"):
+        make()
+
+
+def test_old_attribute_names_read_with_a_deprecation_warning():
+    pen = lo.penalty.elastic_net(0.4, 0.3, factors={"b": 2.0})
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert pen.strength == 0.4 and pen.factors == (("b", 2.0),)
+        assert pen.describe() == "elastic_net(strength=0.4, mix=0.3)"
+    with pytest.warns(DeprecationWarning, match="penalty.strength"):
+        assert pen.lam == 0.4
+    with pytest.warns(DeprecationWarning, match="penalty.factors"):
+        assert pen.weights == (("b", 2.0),)
+    with pytest.warns(DeprecationWarning):
+        assert type(pen)(lam=0.4, mix=0.3, weights=(("b", 2.0),)) == pen
+
+
+def test_a_model_file_written_with_the_old_field_names_still_loads(tmp_path):
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(40, 4))
+    y = X @ np.array([1.0, 0.0, -2.0, 0.5]) + 0.1 * rng.normal(size=40)
+    fit = (lo.regression(X, y, features=NAMES)
+           .penalize(lo.penalty.l1(0.05, factors={"a": 0.0}), lo.penalty.group(0.1, [["b", "c"]])).solve())
+    fit.save(tmp_path / "new.json")
+    saved = json.loads((tmp_path / "new.json").read_text())
+    for piece in saved["task"]["penalties"]:
+        fields = piece["fields"]
+        fields["lam"], fields["weights"] = fields.pop("strength"), fields.pop("factors")
+    (tmp_path / "old.json").write_text(json.dumps(saved))
+    with pytest.warns(DeprecationWarning):
+        back = lo.load_fit(tmp_path / "old.json")
+    assert back.task.penalties == fit.task.penalties
+    np.testing.assert_array_equal(back.predict(X), fit.predict(X))
+
+
+@pytest.mark.parametrize("make,parameter", [
+    (lambda: lo.penalty.l1(0.1, factors={"a": -1.0}), "factors"),
+    (lambda: lo.penalty.l1(0.1, factors="ab"), "factors"),
+    (lambda: lo.penalty.group(0.1, [["a"], ["b"]], factors=[1.0]), "factors"),
+    (lambda: lo.penalty.group(0.1, "ab"), "groups"),
+    (lambda: lo.penalty.group(0.1, [["a", ["b"]]]), "groups"),
+    (lambda: lo.penalty.total_variation(0.1, ["a"]), "names"),
+    (lambda: lo.penalty.elastic_net(0.1, "half"), "mix"),
+    (lambda: lo.penalty.l1(), None),
+    (lambda: lo.penalty.l1(0.1, factor=[1.0]), None),
+])
+def test_malformed_penalty_arguments_are_parameter_errors(make, parameter):
+    with pytest.raises(lo.ParameterError) as info:
+        make()
+    if parameter is not None:
+        assert f"'{parameter}' parameter" in str(info.value)
+        assert info.value.parameters == (parameter,)
+    else:
+        assert "it takes strength, factors" in str(info.value)

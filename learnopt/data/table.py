@@ -120,7 +120,7 @@ def _weights(weights, frame, n) -> tuple[np.ndarray, str | None]:
     return w, (weights if isinstance(weights, str) else None)
 
 
-def _kind_of(col: pd.Series) -> str:
+def _column_type(col: pd.Series) -> str:
     if pd.api.types.is_bool_dtype(col):
         return "bool"
     if pd.api.types.is_datetime64_any_dtype(col) or pd.api.types.is_timedelta64_dtype(col):
@@ -152,7 +152,7 @@ def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
     names, levels, reference = [], {}, {}
     for c in columns:
         col = frame[c]
-        kind = _kind_of(col)
+        kind = _column_type(col)
         if kind == "datetime":
             raise DataError(f"Column {c!r} holds dates/times; convert it to a number (e.g. days "
                             f"since a start date) or to text categories before fitting.")
@@ -195,7 +195,7 @@ def design(encoding: Encoding, frame: pd.DataFrame) -> np.ndarray:
             blocks.append(np.column_stack([(s == v).astype(float) for v in encoding.levels[c]])
                           if encoding.levels[c] else np.zeros((len(frame), 0)))
         else:
-            kind = _kind_of(col)
+            kind = _column_type(col)
             if kind not in ("numeric", "bool"):
                 raise DataError(f"Column {c!r} was numeric in the training data but is {col.dtype} here; "
                                 f"convert it to numbers.")

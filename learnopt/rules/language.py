@@ -88,22 +88,22 @@ class _Compiler:
                         "or one of increasing(...), decreasing(...), nonneg(...), nonpos(...).")
 
     def shape(self, node: ast.Call) -> list[Requirement]:
-        kind = node.func.id
+        fn = node.func.id
         if node.keywords:
-            raise self.fail(f"{kind}(...) takes coefficient names only, no keywords.")
+            raise self.fail(f"{fn}(...) takes coefficient names only, no keywords.")
         terms = [self.value(a, None) for a in node.args]
         if any(not isinstance(t, Affine) or t.rows is not None for t in terms):
-            raise self.fail(f"{kind}(...) takes coefficient names or scalar expressions of them.")
-        if kind in ("increasing", "decreasing") and len(terms) < 2:
-            raise self.fail(f"{kind}(...) needs at least two names.")
+            raise self.fail(f"{fn}(...) takes coefficient names or scalar expressions of them.")
+        if fn in ("increasing", "decreasing") and len(terms) < 2:
+            raise self.fail(f"{fn}(...) needs at least two names.")
         if not terms:
-            raise self.fail(f"{kind}(...) needs at least one name.")
-        if kind in ("increasing", "decreasing"):
-            sign = 1.0 if kind == "increasing" else -1.0
+            raise self.fail(f"{fn}(...) needs at least one name.")
+        if fn in ("increasing", "decreasing"):
+            sign = 1.0 if fn == "increasing" else -1.0
             A = np.vstack([sign * (terms[i].A - terms[i + 1].A) for i in range(len(terms) - 1)])
             rhs = np.concatenate([-sign * (terms[i].c - terms[i + 1].c) for i in range(len(terms) - 1)])
         else:
-            sign = -1.0 if kind == "nonneg" else 1.0
+            sign = -1.0 if fn == "nonneg" else 1.0
             A = np.vstack([sign * t.A for t in terms])
             rhs = np.concatenate([-sign * t.c for t in terms])
         return [Requirement(self.text, "<=", A, rhs)]

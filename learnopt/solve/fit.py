@@ -26,7 +26,6 @@ from learnopt.solve.certificate import Certificate
 from learnopt.solve.evaluation import Evaluation, evaluate
 from learnopt.solve.timings import Attempt, Timings
 
-STATUSES = tuple(s.value for s in Status)
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -20,6 +20,7 @@ import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError
 from learnopt.core.files import write_atomic
+from learnopt.core.status import Status
 from learnopt.data.table import Dataset, Encoding
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import TextRule
@@ -156,6 +157,9 @@ def read(path, *, task_type=None) -> dict:
     task = (task_type or Problem)(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,
                                   tuple(TextRule(r) for r in t["rules"]))
     ev = saved["evidence"]
+    if ev.get("status") not in {s.value for s in Status}:
+        raise DataError(f"Model file {path!r}: evidence.status is {ev.get('status')!r}; a fit's status is one of "
+                        f"{', '.join(s.value for s in Status)}.")
     coef = pd.Series([_float(saved["coef"][n]) for n in names], index=list(names), name="coef", dtype=float)
     return dict(status=ev["status"], message=ev["message"], objective=_float(ev["objective"]),
                 gap=_float(ev["gap"]), rel_gap=_float(ev["rel_gap"]), violation=_float(ev["violation"]),

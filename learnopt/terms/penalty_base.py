@@ -93,8 +93,9 @@ def _factor(value) -> bool:
 
 
 def freeze_factors(factors: Factors, owner: str):
-    """Factors as hashable data: a mapping name -> factor becomes sorted (name, factor) pairs, a
-    sequence a tuple. Each factor must be a finite number >= 0 (ParameterError otherwise)."""
+    """Factors as hashable data: a mapping name -> factor becomes sorted (name, factor) pairs (an
+    empty one None: every factor 1), a sequence a tuple. Each factor must be a finite number >= 0
+    (ParameterError otherwise)."""
     if factors is None:
         return None
     bad = refuse("factors", f"The 'factors' parameter of {owner} must be a mapping coefficient name -> "
@@ -102,7 +103,7 @@ def freeze_factors(factors: Factors, owner: str):
     if isinstance(factors, Mapping):
         if not all(_factor(v) for v in factors.values()):
             raise bad
-        return tuple(sorted((str(k), float(v)) for k, v in factors.items()))
+        return tuple(sorted((str(k), float(v)) for k, v in factors.items())) or None
     if isinstance(factors, (str, bytes)):
         raise bad
     try:
