@@ -52,7 +52,7 @@ def test_labels(df):
 @pytest.mark.parametrize("make,fragment", [
     (lambda: lo.loss.quantile(1.5), "'tau' parameter of quantile must be > 0 and < 1. Got 1.5"),
     (lambda: lo.loss.huber(-1.0), "'delta' parameter of huber must be > 0. Got -1.0"),
-    (lambda: lo.penalty.l1(-0.1), "'lam' parameter of l1 must be >= 0"),
+    (lambda: lo.penalty.l1(-0.1), "'strength' parameter of l1 must be >= 0"),
     (lambda: lo.penalty.elastic_net(0.1, 2.0), "'mix' parameter"),
 ])
 def test_parameters_checked_with_one_template(make, fragment):

@@ -26,9 +26,17 @@ class DataError(LearnoptError, ValueError):
 
 
 class ParameterError(LearnoptError, ValueError):
-    """A parameter of a loss, penalty, rule or solve call is out of its allowed range."""
+    """A parameter of a loss, penalty, rule or solve call is out of its allowed range.
+
+    ``parameters`` names the parameters that failed (when the raiser knows them), so a recipe
+    reader can point at the right key.
+    """
 
     exit_code = 2
+
+    def __init__(self, message: str, *, problems: list[str] | None = None, parameters=()) -> None:
+        super().__init__(message, problems=problems)
+        self.parameters = tuple(parameters)
 
 
 class NotConvexError(LearnoptError, ValueError):

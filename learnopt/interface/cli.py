@@ -181,8 +181,8 @@ def path(recipe, grid, count, as_json, report):
         try:
             values = [float(v) for v in grid.split(",") if v.strip()]
         except ValueError:
-            _fail(ParameterError(f"--grid must be comma-separated numbers, e.g. 1,0.1,0.01. Got {grid!r} instead."),
-                  as_json)
+            _fail(ParameterError(f"--grid must be comma-separated numbers, e.g. 1,0.1,0.01. "
+                                 f"Got {grid!r} instead."), as_json)
     _run(recipe, as_json, report, action="path", grid=values, n=count)
 
 

@@ -23,7 +23,7 @@ from typing import Any, ClassVar, Literal, Mapping
 
 import pandas as pd
 
-from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError, ParameterError
+from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
 from learnopt.data.gateway import read_source
 from learnopt.interface.task import classification, regression
 from learnopt.solve.routes import ROUTES
@@ -63,7 +63,7 @@ def _keyword(key: str) -> str:
 class BlockProblem(ValueError):
     """A building block refused its values: its own message, with the recipe keys it is about."""
 
-    def __init__(self, exc: ParameterError):
+    def __init__(self, exc: LearnoptError):
         keys = [_key(p) for p in getattr(exc, "parameters", ())]
         self.pairs = list(zip(keys, exc.problems)) if len(keys) == len(exc.problems) else [(None, str(exc))]
         super().__init__(str(exc))
@@ -92,7 +92,7 @@ class _Block(_Strict):
             raise ValueError(f"the {self.name} {self.what} needs {', '.join(repr(k) for k in missing)}")
         try:
             self.build()
-        except ParameterError as exc:
+        except LearnoptError as exc:
             raise BlockProblem(exc) from None
         return self
 
@@ -128,7 +128,7 @@ class _Penalty(_Block):
                     raise ValueError(f"give '{new}' only ('{old}' is its old name)")
                 warnings.warn(f"The penalty key '{old}' is now called '{new}' (per-coefficient factors, not "
                               f"row weights); '{old}' is still accepted in this release and will be removed "
-                              f"in the next one.", DeprecationWarning, stacklevel=2)
+                              f"in the next one.", DeprecationWarning, stacklevel=1)
                 data = {(new if k == old else k): v for k, v in data.items()}
         return data
 

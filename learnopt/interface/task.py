@@ -28,10 +28,6 @@ from learnopt.solve.routes.base import Settings
 from learnopt.terms import losses as _losses
 from learnopt.terms.convexity import Verdict, require_convex
 
-REGRESSION_LOSSES = {"squared", "absolute", "huber", "quantile", "epsilon_insensitive"}
-CLASSIFICATION_LOSSES = {"hinge", "squared_hinge", "logistic", "squared", "zero_one"}
-
-
 @dataclass(frozen=True, eq=False)
 class Task(Problem):
     """A learning task: the problem value (:class:`~learnopt.problem.problem.Problem`) with the
@@ -185,11 +181,11 @@ def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
     if isinstance(obj, _losses.Custom):
         require_convex(obj.fn, 5, f"Custom loss {obj.describe()!r}", "z")
         return obj
-    allowed = REGRESSION_LOSSES if kind == "regression" else CLASSIFICATION_LOSSES
+    allowed = _losses.for_kind(kind)
     if obj.name not in allowed:
         other = "lo.classification" if kind == "regression" else "lo.regression"
         raise ParameterError(f"The {obj.describe()} loss is not a {kind} loss; use it with {other}, or "
-                             f"pick one of {', '.join(sorted(allowed - {'zero_one'}))}.")
+                             f"pick one of {', '.join(allowed)}.")
     return obj
 
 

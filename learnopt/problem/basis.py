@@ -72,7 +72,7 @@ def _map_penalty(pen: Separable, s: np.ndarray, names):
     a1, c2 = pen.separable(names)           # at the penalty's strength: a1 |w| + c2 w^2 per coefficient
     out = []
     if np.any(a1 > 0):
-        out.append(l1(1.0, weights=dict(zip(names, (a1 / s).tolist()))))
+        out.append(l1(1.0, factors=dict(zip(names, (a1 / s).tolist()))))
     if np.any(c2 > 0):
-        out.append(l2(1.0, weights=dict(zip(names, (c2 / s ** 2).tolist()))))
+        out.append(l2(1.0, factors=dict(zip(names, (c2 / s ** 2).tolist()))))
     return out

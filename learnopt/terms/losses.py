@@ -49,6 +49,9 @@ __all__ = [
     "Loss", "squared", "absolute", "huber", "quantile", "epsilon_insensitive", "hinge",
     "squared_hinge", "logistic", "zero_one", "custom", "by_name", "for_kind", "LOSSES", "LossSpec",
     "KINDS", "CONES",
+    # the classes (model files name them; isinstance checks use them)
+    "Squared", "Absolute", "Huber", "Quantile", "EpsilonInsensitive", "Hinge", "SquaredHinge", "Logistic",
+    "ZeroOne", "Custom", "NotConvexError", "ParameterError",
 ]
 
 REGRESSION, CLASSIFICATION = ("regression",), ("classification",)

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 from typing import Callable, Mapping, Sequence
 
-from learnopt.core.errors import DataError, ParameterError  # noqa: F401 - importable from here as before
+from learnopt.core.errors import DataError, ParameterError
 from learnopt.terms.arguments import refuse, renamed
 from learnopt.terms.penalty_base import (CustomPenalty, Factors, Penalty, freeze_counted, freeze_factors,
                                          name_list, name_lists)
@@ -37,7 +37,10 @@ from learnopt.terms.separable import Separable, separable_conjugate, separable_s
 from learnopt.terms.structured import Group, TotalVariation
 
 __all__ = ["Penalty", "l1", "l2", "elastic_net", "group", "total_variation", "custom", "PENALTIES",
-           "PenaltySpec"]
+           "PenaltySpec",
+           # the classes (model files name them; isinstance checks use them) and their helpers
+           "Separable", "Group", "TotalVariation", "CustomPenalty", "separable_conjugate", "separable_shrink",
+           "Factors", "Weights", "DataError", "ParameterError"]
 
 Weights = Factors   # the old name of the type
 
