@@ -62,7 +62,7 @@ class CentresTask:
     fixed: tuple[tuple[float, ...], ...] = ()
     rules: tuple[Placement, ...] = ()
     index: pd.Index | None = None
-    source: object | None = None          # sharded points (learnopt.shards.ShardedPoints); X is empty then
+    source: object | None = None          # sharded points (learnopt.data.sharded.ShardedPoints); X is empty then
 
     def require(self, *rules, centre: int | None = None) -> "CentresTask":
         """A new task with rules on the centres (text, lo.rule.polygon / ball / segment / bounds).

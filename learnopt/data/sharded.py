@@ -197,7 +197,7 @@ def encode_block(part: pd.DataFrame, spec: BlockSpec, index: int):
 
 @dataclass(eq=False)
 class ShardedPoints:
-    """Points for :func:`learnopt.centres` that live on a dask cluster."""
+    """Points for :func:`learnopt.centres.placement.centres` that live on a dask cluster."""
 
     source: Any
     names: tuple[str, ...]

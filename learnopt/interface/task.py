@@ -95,7 +95,7 @@ class Task(Problem):
               time_limit: float | None = None, polish: bool = False,
               solver_options: dict | None = None, verbose: bool = False, client=None,
               progress: bool | None = None):
-        """Solve and certify; return a :class:`~learnopt.fit.Fit`.
+        """Solve and certify; return a :class:`~learnopt.solve.fit.Fit`.
 
         Parameters
         ----------
@@ -125,7 +125,7 @@ class Task(Problem):
     def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
              route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
              feas_tol: float = 1e-6, progress: bool | None = None):
-        """Solve along a grid of strengths of one penalty; return a :class:`~learnopt.select.Path`.
+        """Solve along a grid of strengths of one penalty; return a :class:`~learnopt.selection.paths.Path`.
 
         Parameters
         ----------
@@ -147,7 +147,7 @@ class Task(Problem):
                        groups=None, *, ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
                        route: str | None = None, solver: str | None = None, tol: float = 1e-9,
                        gap_tol: float = 1e-7, feas_tol: float = 1e-6, progress: bool | None = None):
-        """k-fold cross-validation of one penalty's strength; a :class:`~learnopt.select.CrossValidation`.
+        """k-fold cross-validation of one penalty's strength; a :class:`~learnopt.selection.crossval.CrossValidation`.
 
         Folds: random with ``seed`` (default), by ``groups`` (a column name or one label per
         row; a group is never split), or ``ordered=True`` for time-ordered rows (forward

@@ -43,7 +43,7 @@ def argument_histogram(dataset: ShardedDataset, theta, intercept: bool, margin: 
 # ---- held-out evaluation by passes
 
 def _evaluation_part(part, spec: BlockSpec, w, b, loss, index: int) -> np.ndarray:
-    """This partition's sums for the held-out metrics (see learnopt.evaluate)."""
+    """This partition's sums for the held-out metrics (see learnopt.solve.evaluation)."""
     X, y, _ = encode_block(part, spec, index)
     score = X @ w + b
     n = float(len(y))

@@ -9,7 +9,7 @@ The task's objective is the weighted mean ``sum_i a_i f(z_i)`` with ``a_i = w_i 
 Every loss declares its curvature facts (convex, smooth, the cone class it needs) and
 provides its cvxpy expression, its numpy value, its (sub)gradient, and its convex conjugate
 ``f*(u) = sup_z (u z - f(z))`` with the interval where ``f*`` is finite; the certificate
-(:mod:`learnopt.certify`) is built from those alone.
+(:mod:`learnopt.solve.certificate`) is built from those alone.
 
 The classes live in :mod:`~learnopt.terms.smooth_losses`, :mod:`~learnopt.terms.linear_losses`
 and :mod:`~learnopt.terms.special_losses`; this module is the one users see (``lo.loss``) and

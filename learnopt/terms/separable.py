@@ -39,8 +39,8 @@ class Separable(Penalty):
         return "linear" if self.mix == 1.0 else "quadratic"
 
     def describe(self):
-        kind = self.describe_name()
-        return f"{kind}(strength={self.strength:g}" + (f", mix={self.mix:g})" if kind == "elastic_net" else ")")
+        name = self.describe_name()
+        return f"{name}(strength={self.strength:g}" + (f", mix={self.mix:g})" if name == "elastic_net" else ")")
 
     def separable(self, names):
         c = factor_array(self.factors, names, self.describe_name())

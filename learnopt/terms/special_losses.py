@@ -46,14 +46,14 @@ class Custom(Loss):
 
     fn: Callable = None
     label: str = "custom"
-    kind: str = "residual"
+    argument_of: str = "residual"      # what the loss is a function of: "residual" or "margin"
     conjugate_fn: Callable | None = None
     domain: tuple[float, float] = (-np.inf, np.inf)
     name: ClassVar[str] = "custom"
 
     @property
     def argument(self):  # type: ignore[override]
-        return self.kind
+        return self.argument_of
 
     @property
     def cone(self):  # type: ignore[override]
@@ -98,4 +98,4 @@ def custom(fn: Callable, *, name: str = "custom", argument: str = "residual",
     if argument not in ("residual", "margin"):
         raise ParameterError(f"The 'argument' parameter of custom loss {name!r} must be "
                              f"'residual' or 'margin'. Got {argument!r} instead.")
-    return Custom(fn=fn, label=name, kind=argument, conjugate_fn=conjugate, domain=tuple(domain))
+    return Custom(fn=fn, label=name, argument_of=argument, conjugate_fn=conjugate, domain=tuple(domain))

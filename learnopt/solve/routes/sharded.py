@@ -86,8 +86,8 @@ def Runner(task, vary: int | None = None, cluster: ClusterSettings = ClusterSett
     t0 = time.perf_counter()
     blocks = Blocks(task.dataset, client)
     report = _Report(progress, blocks)
-    kind = {"gram": GramRunner, "newton": NewtonRunner, "admm": AdmmRunner}[method]
-    runner = kind(task, blocks, report, **admm_options)
+    runner_class = {"gram": GramRunner, "newton": NewtonRunner, "admm": AdmmRunner}[method]
+    runner = runner_class(task, blocks, report, **admm_options)
     runner.build_seconds = time.perf_counter() - t0
     return runner
 

@@ -189,7 +189,7 @@ _LOCAL_PROBLEMS: dict = {}
 
 def certify_sharded(blocks: Blocks, task, theta, multipliers, common: dict, u_blocks=None,
                     enough: float = 0.0, row_terms=None) -> Certificate:
-    """learnopt's certificate (see :mod:`learnopt.certify`) with every row sum done on the blocks.
+    """learnopt's certificate (see :mod:`learnopt.solve.certificate`) with every row sum done on the blocks.
 
     ``row_terms``: the summed :func:`_row_terms` of the rules row by row at theta, if any.
     """
