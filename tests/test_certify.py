@@ -83,3 +83,23 @@ def test_polish_turns_a_loose_solve_into_a_certified_one(task):
     assert polished.status == "optimal", polished.message
     assert any("polish" in a.solver for a in polished.attempts)
     assert polished.objective <= loose.objective + loose.gap
+
+
+def test_the_best_attempt_is_the_lowest_certified_objective_then_the_lowest_feasible_one():
+    # the order the solve loop keeps attempts in (common practice: a lower objective at a
+    # feasible point is the better answer whatever the gap says)
+    from learnopt.solve.certificate import Certificate
+    from learnopt.solve.loop import candidate_rank
+
+    def cert(primal, gap, violation=0.0):
+        return Certificate(primal, primal - gap, gap, gap / max(1.0, abs(primal)), violation, violation, 0.0)
+
+    certified_low, certified_high = cert(1.0, 1e-9), cert(1.0 + 1e-8, 1e-12)
+    assert candidate_rank(certified_low, True, 1e-6) < candidate_rank(certified_high, True, 1e-6)
+    # none certified: the lower objective wins although its gap is larger
+    low_big_gap, high_small_gap = cert(2.0, 1e-5), cert(2.0 + 7e-9 * 2.0, 1e-6)
+    assert candidate_rank(low_big_gap, False, 1e-6) < candidate_rank(high_small_gap, False, 1e-6)
+    # a feasible point beats an infeasible one with a lower objective; certified beats both
+    infeasible = cert(0.5, 0.0, violation=1e-3)
+    assert candidate_rank(high_small_gap, False, 1e-6) < candidate_rank(infeasible, False, 1e-6)
+    assert candidate_rank(certified_high, True, 1e-6) < candidate_rank(low_big_gap, False, 1e-6)

@@ -57,6 +57,11 @@ def test_fit_is_frozen_and_built_by_keyword_only(task):
     assert lo.Fit(**{f.name: getattr(fit, f.name) for f in dataclasses.fields(fit)}).objective == fit.objective
 
 
+def test_a_task_prints_as_a_summary_not_its_arrays(task):
+    text = repr(task)
+    assert text.startswith("Task(regression, loss=squared") and "array(" not in text and len(text) < 300
+
+
 def test_routes_see_the_plain_problem_and_the_fit_keeps_the_users_task(task):
     fit = task.solve()
     assert fit.task is task and isinstance(task, Problem)

@@ -195,3 +195,19 @@ def test_plots_draw(diabetes):
     assert len(ax.get_lines()) == 10
     ax = task.cross_validate(folds=3, n=4, progress=False).plot()
     assert ax.get_xlabel() == "strength"
+
+
+def test_every_path_point_is_as_accurate_as_a_single_solve():
+    # scikit-learn's diabetes data (an ill-conditioned design): each warm-started path point must
+    # match a cold single solve at its strength, and scikit-learn's Lasso at a tight tolerance
+    # (its alpha = strength / 2, common practice for the 1/(2n) scaling)
+    from sklearn.datasets import load_diabetes
+    from sklearn.linear_model import Lasso
+    X, y = load_diabetes(return_X_y=True)
+    path = lo.regression(X, y).penalize(lo.penalty.l1(1.0)).path(n=15)
+    assert path.table["rel_gap"].max() <= 1e-12
+    for strength, fit in zip(path.table["strength"], path.fits):
+        single = lo.regression(X, y).penalize(lo.penalty.l1(strength)).solve()
+        np.testing.assert_allclose(fit.coef.to_numpy(), single.coef.to_numpy(), rtol=0, atol=1e-8)
+        ref = Lasso(alpha=strength / 2, tol=1e-14, max_iter=1_000_000).fit(X, y)
+        np.testing.assert_allclose(fit.coef.to_numpy(), ref.coef_, rtol=0, atol=1e-5)

@@ -45,9 +45,36 @@ def test_infeasible_names_the_conflicting_rules(data):
     X, y = data
     fit = lo.regression(X, y).require("x0 >= 2", "x0 + x1 <= 0", "x1 >= 1", "x2 <= 5").solve()
     assert fit.status == "infeasible"
-    assert set(fit.conflicts.index) <= {"x0 >= 2", "x0 + x1 <= 0", "x1 >= 1"}
-    assert fit.conflicts.sum() == pytest.approx(3.0, rel=1e-5) or fit.conflicts.sum() > 0
+    # every rule of the conflict named, each with the amount it alone must move (worked by hand:
+    # x0 >= 2 and x1 >= 1 force x0 + x1 >= 3 against x0 + x1 <= 0)
+    assert dict(fit.conflicts) == pytest.approx({"x0 >= 2": 3.0, "x0 + x1 <= 0": 3.0, "x1 >= 1": 3.0}, abs=1e-9)
     assert "x2 <= 5" not in fit.conflicts.index
+
+
+@pytest.mark.parametrize("rules,amounts", [
+    # worked by hand: x <= 0 must move to 500 (2x >= 1000 holds at x = 500); 2x >= 1000 must move to 0
+    (["2*x0 >= 1000", "x0 <= 0"], {"2*x0 >= 1000": 1000.0, "x0 <= 0": 500.0}),
+    (["x0 == 500", "x0 == 500.5"], {"x0 == 500": 0.5, "x0 == 500.5": 0.5}),
+    # a rule and its contradiction are both named, whatever else the task holds
+    (["x0 >= 1", "x0 <= 0", "x1 <= 3"], {"x0 >= 1": 1.0, "x0 <= 0": 1.0}),
+    # a chained rule is named as written
+    (["0 <= x0 <= 2", "x0 >= 3"], {"0 <= x0 <= 2": 1.0, "x0 >= 3": 1.0}),
+    # closed forms: the unit disc against the half-plane x0 + x1 >= 3 (distance 3/sqrt(2))
+    (["norm2(x0, x1) <= 1", "x0 + x1 >= 3"], {"norm2(x0, x1) <= 1": 3 / np.sqrt(2) - 1, "x0 + x1 >= 3": 3 - np.sqrt(2)}),
+])
+def test_conflicts_name_an_irreducible_set_and_exact_amounts(data, rules, amounts):
+    X, y = data
+    fit = lo.regression(X, y).require(*rules).solve()
+    assert fit.status == "infeasible"
+    assert dict(fit.conflicts) == pytest.approx(amounts, rel=1e-9, abs=1e-9)
+
+
+def test_a_rule_that_alone_cannot_resolve_the_conflict_needs_infinity(data):
+    # two independent conflicts: one set is named, and each of its rules alone is not enough
+    X, y = data
+    fit = lo.regression(X, y).require("x0 >= 1", "x0 <= 0", "x1 >= 1", "x1 <= 0").solve()
+    assert fit.status == "infeasible" and len(fit.conflicts) == 2
+    assert np.all(np.isinf(fit.conflicts.to_numpy()))
 
 
 def test_infeasible_prediction_rules():

@@ -28,7 +28,7 @@ from learnopt.solve.routes.base import Settings
 from learnopt.terms import losses as _losses
 from learnopt.terms.convexity import Verdict, require_convex
 
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, repr=False)
 class Task(Problem):
     """A learning task: the problem value (:class:`~learnopt.problem.problem.Problem`) with the
     verbs a user calls. Build it with :func:`regression` or :func:`classification`.

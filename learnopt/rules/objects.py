@@ -5,7 +5,7 @@ reports every problem at once. Region rules (polygon, ball, segment) are in
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import numpy as np
@@ -89,7 +89,7 @@ def compile_all(specs: Sequence[RuleSpec], ctx: Context) -> list[Requirement]:
     reqs, problems, not_convex = [], [], []
     for spec in specs:
         try:
-            reqs.extend(spec.compile(ctx))
+            reqs.extend(replace(r, rule=spec.text) for r in spec.compile(ctx))
         except NotConvexError as exc:
             not_convex.append(str(exc))
         except DataError as exc:

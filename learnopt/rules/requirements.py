@@ -24,7 +24,8 @@ class NoRows(DataError):
 
 @dataclass(frozen=True, eq=False)
 class Requirement:
-    """One compiled requirement. ``sense`` is "<=", "==" or "norm"."""
+    """One compiled requirement. ``sense`` is "<=", "==" or "norm". ``text`` is this piece's
+    own text (one half of a chained rule, say); ``rule`` the whole rule as the user wrote it."""
 
     text: str
     sense: str
@@ -33,6 +34,12 @@ class Requirement:
     order: float | None = None
     f: np.ndarray | None = None
     bound: float | None = None
+    rule: str | None = None
+
+    @property
+    def source(self) -> str:
+        """The rule this requirement came from, as the user wrote it."""
+        return self.rule if self.rule is not None else self.text
 
     @property
     def rows(self) -> int:

@@ -140,7 +140,7 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
                 row_rules.append(spec.text)
             continue
         if not hook.calls:
-            done.append([_narrow(r, p) for r in reqs])
+            done.append([replace(_narrow(r, p), rule=spec.text) for r in reqs])
             continue
         pending.append((spec.text, reqs, hook, len(done)))
         done.append([])
@@ -166,7 +166,7 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
                 terms.append((k * sumA, k * sumc))
             G = np.array([g for g, _ in terms])
             c = np.array([cc for _, cc in terms])
-            done[place] = [_substitute(r, p, G, c) for r in reqs]
+            done[place] = [replace(_substitute(r, p, G, c), rule=text) for r in reqs]
     return [r for group in done for r in group], row_rules
 
 

@@ -26,7 +26,7 @@ from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import MissingDependencyError, ParameterError
 from learnopt.problem.algebra import loss_argument
-from learnopt.solve.certificate import requirement_terms
+from learnopt.solve.rule_duals import requirement_terms
 from learnopt.solve.loop import solve_task
 from learnopt.solve.routes import prepare
 from learnopt.solve.routes.base import Settings

@@ -29,6 +29,8 @@ import scipy.linalg as sla
 from learnopt.terms.penalties import CustomPenalty, Separable, separable_conjugate, separable_shrink
 from learnopt.problem.algebra import loss_argument
 from learnopt.rules.requirements import Requirement
+from learnopt.solve.rule_duals import KINKS, feasibility, fitted_rule_terms, requirement_terms
+
 
 
 @dataclass(frozen=True)
@@ -163,6 +165,44 @@ def _active_targets(w, penalties, names, p, threshold):
     return T, -(a[idx] * np.sign(w[idx]) + 2.0 * c[idx] * w[idx])
 
 
+def _joint(requirements, multipliers, theta, start, T, t, kink, M, a, z, loss, low, high, tol: float = 1e-6):
+    """Norm rules' multipliers and the loss's dual values on rows at a loss kink, fitted
+    together (see learnopt.solve.rule_duals.fitted_rule_terms); None when there are too many
+    such rows for a small dense solve."""
+    size = max(1.0, float(np.abs(z).max(initial=0.0)))
+    rows = np.flatnonzero(np.any([np.abs(z - k) <= tol * size for k in loss.kinks()], axis=0) & (a > 0))
+    if rows.size == 0 or rows.size > 2000:
+        return None
+    K_u = T @ (np.asarray(M[rows].T @ np.eye(rows.size)) * a[rows])
+    g_rest = M.T @ (a * start)
+    fitted = fitted_rule_terms(requirements, multipliers, theta, g_rest, T, t, kink,
+                               loss_rows=(K_u, start[rows], low, high))
+    if fitted is None:
+        return None
+    g_req, const_req, du = fitted
+    u = start.copy()
+    u[rows] = np.clip(u[rows] + du, low, high)
+    return (g_req, const_req), u
+
+
+def _kink_start(loss, z, low, high, tol: float = 1e-6):
+    """For a piecewise-linear loss, the dual point the primal point implies: the loss slope on
+    rows away from a kink, the middle of the subgradient interval on rows at a kink (where the
+    repair may then move it). None for losses without kinks."""
+    kinks = loss.kinks()
+    if kinks is None:
+        return None
+    u = np.asarray(loss.gradient(z), float)
+    size = max(1.0, float(np.abs(z).max(initial=0.0)))
+    for k in kinks:
+        at = np.abs(z - k) <= tol * size
+        if at.any():
+            h = 1e-3 * (1.0 + abs(k))
+            middle = 0.5 * (loss.gradient(np.array([k - h]))[0] + loss.gradient(np.array([k + h]))[0])
+            u[at] = middle
+    return np.clip(u, low, high)
+
+
 def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
     """Least-change correction of u (inside dom f*) so that T g(u) = t.
 
@@ -208,50 +248,6 @@ def repair_targets(theta, penalties, names, N):
         yield T, t
 
 
-def requirement_terms(requirements, multipliers, theta) -> tuple[np.ndarray, float]:
-    """The rules' part of the Lagrangian at theta: its gradient sum_k A_k' mu_k (norm rules
-    through their subgradient) and its constant part, multipliers clipped to their signs."""
-    g_req = np.zeros(len(theta))
-    const_req = 0.0
-    for r, m in zip(requirements, multipliers):
-        if r.sense == "norm":
-            lam = max(float(m), 0.0)
-            y = r.A @ theta + r.rhs
-            if r.order == 2:
-                nrm = np.linalg.norm(y)
-                v = y / nrm if nrm > 0 else np.zeros_like(y)
-            else:
-                v = np.sign(y)
-            g_req += lam * (r.A.T @ v + r.f)
-            const_req += lam * (v @ r.rhs - r.bound)
-        else:
-            m = np.asarray(m, float).ravel()
-            if r.sense == "<=":
-                m = np.maximum(m, 0.0)
-            g_req += r.A.T @ m
-            const_req -= m @ r.rhs
-    return g_req, const_req
-
-
-def _complementarity(requirements, multipliers, theta) -> float:
-    """Largest |multiplier x slack| over inequality and norm rules (zero at an exact KKT point)."""
-    worst = 0.0
-    for r, m in zip(requirements, multipliers):
-        if r.sense == "==":
-            continue
-        m = np.maximum(np.atleast_1d(np.asarray(m, float)), 0.0)
-        worst = max(worst, float(np.max(np.abs(m * r.slack(theta)), initial=0.0)))
-    return worst
-
-
-def feasibility(requirements, multipliers, theta) -> tuple[float, float, float]:
-    """(worst violation, worst relative violation, complementarity) of the rules at theta."""
-    viol = [r.violation(theta) for r in requirements]
-    violation = max(viol, default=0.0)
-    rel_violation = max((v / r.scale() for v, r in zip(viol, requirements)), default=0.0)
-    return violation, rel_violation, _complementarity(requirements, multipliers, theta)
-
-
 def no_conjugate(loss, primal, violation, rel_violation, comp) -> Certificate | None:
     """The certificate of a loss without a conjugate (no dual bound), or None when it has one."""
     try:
@@ -284,23 +280,24 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     low, high = loss.dual_domain()
     u = np.clip(np.asarray(u, float), low, high)
 
-    g_req, const_req = requirement_terms(requirements, multipliers, theta)
+    closed = requirement_terms(requirements, multipliers, theta)   # the rules' terms, closed form
+    g_loss = M.T @ (a * u)
 
-    recent: list = []       # the last few (u, g(u)): the repair and the bound ask for the same ones
+    recent: list = []       # the last few (u, terms, g(u)): the repair and the bound ask for the same ones
 
-    def gradient(uu):
-        for seen_u, seen_g in recent:
-            if seen_u is uu:
+    def gradient(uu, terms=closed):
+        for seen_u, seen_terms, seen_g in recent:
+            if seen_u is uu and seen_terms is terms:
                 return seen_g
-        out = M.T @ (a * uu) + g_req
-        recent[:] = [(uu, out)] + recent[:2]
+        out = (g_loss if uu is u else M.T @ (a * uu)) + terms[0]
+        recent[:] = [(uu, terms, out)] + recent[:2]
         return out
 
     N = null_space(penalties, names, d, intercept)
     g = gradient(u)
     stationarity = float(np.linalg.norm(N.T @ g)) if N.shape[1] else 0.0
     note = ""
-    base_scale = np.abs(g_req).max(initial=0.0) + 1.0
+    base_scale = np.abs(closed[0]).max(initial=0.0) + 1.0
     scale_g = []        # the size of the terms summed in g, computed only when needed
 
     def free_ok(gg):
@@ -314,32 +311,61 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
             scale_g.append(float(np.abs(M.T @ (a * np.abs(u))).max(initial=0.0)) + base_scale)
         return resid <= 1e-11 * scale_g[0]
 
-    def bound(uu) -> float:
+    def bound(uu, terms=closed) -> float:
         """The dual value at uu (any uu in dom f* with exact stationarity on N gives a valid bound)."""
-        g = gradient(uu)
+        g = gradient(uu, terms)
         if not free_ok(g):
             return -np.inf
         if N.shape[1]:
             g = g - N @ (N.T @ g)      # what is left along the free directions is round-off
         s, inner_val = inf_penalty(g[:d], penalties, names)
         su = s * uu
-        value = float(-a @ loss.conjugate(su) - (a * su) @ q + s * const_req + inner_val)
+        value = float(-a @ loss.conjugate(su) - (a * su) @ q + s * terms[1] + inner_val)
         return value if np.isfinite(value) else -np.inf
 
     # The dual point must meet T g = t exactly: free directions (T = N', t = 0) or the bound is
     # -inf. Asking also that active separable coordinates have g_j = -R'_j(w_j) keeps the bound
     # tight without rescaling, but which coordinates are active is a judgement on a numerical
-    # point, so a few readings are tried and the best (largest) valid bound is kept.
+    # point, so a few readings are tried and the best (largest) valid bound is kept. For each
+    # reading, the rules' terms are the closed form and, when a norm rule is tight, the terms
+    # with its multiplier vector fitted to the reading (see learnopt.solve.rule_duals).
     readings, dual = [], -np.inf
+    starts = [u]                                   # the route's dual point, and for piecewise-linear
+    kinked = _kink_start(loss, z, low, high)       # losses one rebuilt from the point's own rows
+    if kinked is not None:
+        starts.append(kinked)
+    norm_rules = any(r.sense == "norm" for r in requirements)
+    done = False
     for T, t in repair_targets(theta, penalties, names, N):
-        readings.append(_repair(u, T, t, M, a, gradient, low, high) if T.shape[0] else u)
-        dual = max(dual, bound(readings[-1]))
-        if (primal - dual) <= enough * max(1.0, abs(primal)):
-            break                     # tight enough: further readings cannot matter
+        for start in starts:
+            g_start = g_loss if start is u else M.T @ (a * start)
+            for kink in (None,) + (KINKS if norm_rules and T.shape[0] else ()):
+                terms = closed if kink is None else fitted_rule_terms(requirements, multipliers, theta, g_start,
+                                                                      T, t, kink)
+                if terms is None:
+                    continue
+                uu = _repair(start, T, t, M, a, lambda v, terms=terms: gradient(v, terms), low, high) \
+                    if T.shape[0] else start
+                if kink is not None and start is kinked and not free_ok(gradient(uu, terms)):
+                    # the rules' multipliers and the loss's dual values on the rows at a kink
+                    # settle each other: fit them together, then repair what round-off is left
+                    joint = _joint(requirements, multipliers, theta, start, T, t, kink, M, a, z, loss, low, high)
+                    if joint is not None:
+                        terms, uu = joint
+                        uu = _repair(uu, T, t, M, a, lambda v, terms=terms: gradient(v, terms), low, high)
+                readings.append((uu, terms))
+                dual = max(dual, bound(uu, terms))
+                done = (primal - dual) <= enough * max(1.0, abs(primal))
+                if done:
+                    break             # tight enough: further readings cannot matter
+            if done:
+                break
+        if done:
+            break
     if not np.isfinite(dual):
         note = ("the dual point could not be made exactly stationary along the free directions "
                 "(intercept and unpenalised coefficients); no finite dual bound") if N.shape[1] and \
-            not any(free_ok(gradient(uu)) for uu in readings) else "the dual bound is not finite at this point"
+            not any(free_ok(gradient(uu, terms)) for uu, terms in readings) else "the dual bound is not finite at this point"
         return Certificate(primal, dual, np.inf, np.inf, violation, rel_violation, stationarity, note, comp)
     gap = max(primal - dual, 0.0)
     return Certificate(primal, dual, gap, gap / max(1.0, abs(primal)), violation, rel_violation,

@@ -1,7 +1,7 @@
 """Solve a task: plan the route, walk the solver chain, certify, assemble the fit.
 
 A solver's own status is never taken as evidence: "optimal" comes only from learnopt's
-certificate; "infeasible" only when the elastic relaxation confirms that the requirements
+certificate; "infeasible" only when learnopt's own check (learnopt.solve.conflicts) confirms that the requirements
 cannot hold together; otherwise the next capable solver is tried and the attempt recorded.
 """
 from __future__ import annotations
@@ -19,7 +19,8 @@ from learnopt.problem.algebra import objective
 from learnopt.problem.basis import conditioned
 from learnopt.scale.cluster import ClusterSettings
 from learnopt.solve.fit import Fit
-from learnopt.solve.routes import direct, prepare
+from learnopt.solve.conflicts import conflicts as find_conflicts
+from learnopt.solve.routes import prepare
 from learnopt.solve.routes.base import SOLVER_FAULTS, Candidate, RunnerBase, Settings
 from learnopt.solve.solvers import lookup
 from learnopt.solve.solvers import plan as plan_solvers
@@ -42,6 +43,14 @@ def _prices(task, mults, theta, feas_tol, noise):
         active = bool(np.min(r.slack(theta)) <= feas_tol * r.scale()) if r.sense != "==" else True
         binding[r.text] = binding.get(r.text, False) or active
     return pd.Series(prices, dtype=float), pd.Series(binding, dtype=bool)
+
+
+def candidate_rank(cert, certified: bool, feas_tol: float) -> tuple:
+    """How attempts are ordered (lower is better): certified points first, by objective; then
+    feasible points, by objective (their gaps are reported, not compared: a small gap at a
+    higher objective is the worse answer); then infeasible points, by relative violation."""
+    infeasible = cert.rel_violation > feas_tol
+    return (not certified, infeasible, cert.rel_violation if infeasible else cert.primal)
 
 
 def solve_task(task, settings: Settings, *, solver: str | None = None, route: str | None = None,
@@ -105,9 +114,9 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
             late_note = f"; took {wall:.3g}s, over the time limit of {time_limit:g}s" if late else ""
             status = out.status
             if status in ("infeasible", "infeasible_inaccurate"):
-                found = direct.elastic(problem)
+                found = find_conflicts(problem)
                 if found:
-                    attempts.append(Attempt(label, f"{status}; confirmed by the elastic relaxation", seconds=wall))
+                    attempts.append(Attempt(label, f"{status}; confirmed: the rules cannot all hold", seconds=wall))
                     verdict, conflicts = Status.INFEASIBLE, found
                     break
                 attempts.append(Attempt(label, f"{status}, but the requirements can all hold: "
@@ -135,7 +144,7 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
                                     cert.primal, cert.gap, wall + cert_s))
             prices, binding = _prices(problem, out.multipliers, theta, feas_tol,
                                       gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
-            rank = (not ok, cert.rel_violation > feas_tol, cert.rel_gap)
+            rank = candidate_rank(cert, ok, feas_tol)
             if best is None or rank < best.rank:
                 best = Candidate(rank=rank, solver=out.solved_by or spec.name, theta=theta, certificate=cert,
                                  timings=Timings(runner.build_seconds, out.compile_seconds, out.solve_seconds, cert_s),
@@ -173,8 +182,8 @@ def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts,
     common = dict(route=route, attempts=tuple(attempts), task=task)
     if best is None:
         if verdict == Status.INFEASIBLE:
-            status, msg = verdict, ("the requirements cannot hold together; fit.conflicts lists "
-                                    "the rules that must give and by how much")
+            status, msg = verdict, ("the rules cannot all hold together; fit.conflicts names a "
+                                    "conflicting set and how far each of its rules alone must move")
         elif verdict == Status.UNBOUNDED:
             status, msg = verdict, ("the objective can decrease without limit; add a penalty or "
                                     "bounds on the coefficients")

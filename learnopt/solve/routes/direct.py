@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import os
 
-import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
@@ -77,41 +76,6 @@ class Runner(RunnerBase):
         nu = np.asarray(nu, float).ravel()
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(model.a > 0, -nu / model.a, 0.0)
-
-
-def elastic(task, tol: float = 1e-7):
-    """Smallest total slack that makes the requirements hold together (no loss).
-
-    Returns {rule text: slack} for the rules that need slack, or None when the solve fails.
-    """
-    reqs = task.requirements
-    if not reqs:
-        return {}
-    p = task.dataset.d + int(task.intercept)
-    theta = cp.Variable(p)
-    s = cp.Variable(len(reqs), nonneg=True)
-    cons = []
-    for k, r in enumerate(reqs):
-        scale = r.scale()
-        if r.sense == "norm":
-            cons.append(cp.norm(r.A @ theta + r.rhs, r.order) + r.f @ theta <= r.bound + scale * s[k])
-        elif r.sense == "==":
-            cons.append(cp.abs(r.A @ theta - r.rhs) <= scale * s[k])
-        else:
-            cons.append(r.A @ theta <= r.rhs + scale * s[k])
-    prob = cp.Problem(cp.Minimize(cp.sum(s)), cons)
-    try:
-        prob.solve(solver="CLARABEL")
-    except cp.error.SolverError:
-        return None
-    if prob.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE):
-        return None
-    out = {}
-    for k, r in enumerate(reqs):
-        amount = float(s.value[k]) * r.scale()
-        if s.value[k] > tol:
-            out[r.text] = out.get(r.text, 0.0) + amount
-    return out
 
 
 ROUTE = RouteSpec("direct", "the whole problem as one vectorised cvxpy program; takes every problem",

@@ -16,8 +16,8 @@ from learnopt.problem.algebra import Design, requirement_constraint
 from learnopt.scale.blocks import Blocks, add_up
 from learnopt.solve.routes import newton
 from learnopt.solve.routes.base import read_multipliers
-from learnopt.solve.certificate import (Certificate, feasibility, inf_penalty, no_conjugate, null_space,
-                                        repair_targets, requirement_terms)
+from learnopt.solve.certificate import Certificate, inf_penalty, no_conjugate, null_space, repair_targets
+from learnopt.solve.rule_duals import feasibility, requirement_terms
 
 
 def _rows(block, margin: bool, intercept: bool, W: float):
