@@ -26,6 +26,7 @@ from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import MissingDependencyError, ParameterError
 from learnopt.problem.algebra import loss_argument
+from learnopt.selection.zeroing import zeroing_strength
 from learnopt.solve.rule_duals import requirement_terms
 from learnopt.solve.loop import solve_task
 from learnopt.solve.routes import prepare
@@ -173,12 +174,19 @@ def _training_loss(task, fit) -> float:
     return float(fit.objective - sum(p.value(w, task.features) for p in task.penalties))
 
 
-def default_grid(task, index, top_fit, n: int, ratio: float) -> np.ndarray:
-    top = zero_strength(task, index, top_fit)
+def default_grid(task, index, top_fit, n: int, ratio: float):
+    """(the grid, (the rules' multipliers, the loss's dual point) at its top when known exactly,
+    else None)."""
+    exact = zeroing_strength(task, index, top_fit.theta)
+    duals = None
+    if exact is None:
+        top = zero_strength(task, index, top_fit)
+    else:
+        top, duals = exact[0], exact[1:]     # zero is optimal there: the path starts at it exactly
     if not np.isfinite(top) or top <= 0:
         raise ParameterError("Every penalised coefficient is zero at every strength (the gradient "
                              "at zero vanishes); pass grid=[...] explicitly.")
-    return top * np.geomspace(1.0, ratio, n)
+    return top * np.geomspace(1.0, ratio, n), duals
 
 
 def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
@@ -206,7 +214,14 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
         else:
             raise ParameterError("No strength tried set the penalised coefficients to zero; "
                                  "pass grid=[...] explicitly.")
-        grid = default_grid(runner.task, index, top_fit, int(n), ratio)
+        grid, top_duals = default_grid(runner.task, index, top_fit, int(n), ratio)
+        # the first point's optimum is the restricted one just found: start there, exactly zero
+        # (certified at the first strength, it is taken as it is)
+        start = np.asarray(top_fit.theta, float).copy()
+        acts = _acts_on(runner.task, index)
+        start[: acts.size][acts] = 0.0
+        runner.start = start
+        runner.start_multipliers, runner.start_dual = top_duals if top_duals is not None else (None, None)
     grid = np.sort(grid)[::-1]
     fits, rows = [], []
     bar = _Progress(len(grid), "path", progress)
@@ -214,6 +229,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
         for lam in grid:
             runner.set_strength(lam)
             fit = solve_task(task, settings, **opts)
+            runner.start_multipliers = runner.start_dual = None
             if fit.status.has_point:
                 runner.start = fit.theta
             fits.append(fit)
@@ -247,6 +263,16 @@ def _strength_scale(task, index) -> float:
 def _settled(fit) -> bool:
     """A certified fit at a huge strength where rules hold some coefficients away from zero."""
     return fit.status == Status.OPTIMAL and bool(fit.binding.any()) if len(fit.binding) else False
+
+
+def _acts_on(task, index) -> np.ndarray:
+    """Which coefficients penalty ``index`` sets to zero (l1-type weights > 0; else all it touches)."""
+    unit = task.penalties[index].with_strength(1.0)
+    if isinstance(unit, Separable):
+        return unit.separable(task.features)[0] > 0
+    N = unit.null_space(task.features)
+    moved = np.eye(task.dataset.d) - N @ N.T if N.shape[1] else np.eye(task.dataset.d)
+    return np.abs(moved).sum(axis=0) > 1e-12
 
 
 def _all_zero(task, index, fit) -> bool:

@@ -97,7 +97,9 @@ class RunnerBase:
 
     A runner built with ``vary=k`` compiles penalty k as (strength Parameter) x (the penalty at
     strength 1), so :meth:`set_strength` moves along a path without recompiling (cvxpy DPP).
-    ``start`` is a warm start for iterative routes (the previous point of a path).
+    ``start`` is a warm start for iterative routes (the previous point of a path); with
+    ``start_multipliers`` as well, the solve loop first checks whether ``start`` is already
+    certified (a path's first point, found exactly) and then skips the solvers.
     """
 
     name: str = "?"
@@ -107,6 +109,8 @@ class RunnerBase:
     vary: int | None = None
     strength: cp.Parameter | None = None
     start: np.ndarray | None = None
+    start_multipliers: list | None = None   # the rules' multipliers at ``start``, when known exactly
+    start_dual: np.ndarray | None = None    # ... and the loss's dual point there (None: its gradient)
     settings: Settings = Settings()
     goal: Goal | None = None
     last_certificate: Certificate | None = None
