@@ -24,6 +24,16 @@ from learnopt.terms.convexity import Verdict
 __version__ = "0.1.0"
 
 
+def load_recipe(path) -> Task:
+    """The task a recipe file describes (needs the ``cli`` extra, for pydantic).
+
+    See :func:`learnopt.interface.recipes.load_recipe`. Imported on first use, because recipes
+    need pydantic (an optional extra).
+    """
+    from learnopt.interface.recipes import load_recipe as _load_recipe
+    return _load_recipe(path)
+
+
 def estimator(kind: str = "regression", loss=None, **options):
     """A scikit-learn compatible estimator around a learnopt task (needs scikit-learn).
 
@@ -35,7 +45,7 @@ def estimator(kind: str = "regression", loss=None, **options):
 
 
 __all__ = [
-    "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "loss", "penalty", "rule", "Task", "Problem", "Status", "Fit", "Attempt", "Timings",
+    "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "load_recipe", "loss", "penalty", "rule", "Task", "Problem", "Status", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
     "SolverError", "TooLargeError", "MissingDependencyError", "AccuracyWarning", "installed_solvers",
 ]

@@ -105,3 +105,43 @@ def test_a_loaded_fit_describes_its_task_and_predicts_the_same(task, tmp_path):
     assert isinstance(back.task, lo.Task) and back.status == "optimal"
     X = np.random.default_rng(1).normal(size=(5, 3))
     np.testing.assert_array_equal(back.predict(X), fit.predict(X))
+
+
+def test_outputs_get_the_users_default_permissions(task, tmp_path):
+    # common practice: a new file is 0666 less the umask; atomic writing must not narrow it
+    import os
+    old = os.umask(0o022)
+    try:
+        task.solve().save(tmp_path / "fit.json")
+        assert (os.stat(tmp_path / "fit.json").st_mode & 0o777) == 0o644
+        os.chmod(tmp_path / "fit.json", 0o664)               # a rewrite keeps what the file had
+        task.solve().save(tmp_path / "fit.json")
+        assert (os.stat(tmp_path / "fit.json").st_mode & 0o777) == 0o664
+    finally:
+        os.umask(old)
+
+
+def test_load_recipe_is_on_the_face():
+    from pathlib import Path
+    recipe = Path(__file__).resolve().parents[1] / "recipes" / "deliveries.toml"
+    assert isinstance(lo.load_recipe(recipe), lo.Task)
+
+
+def test_a_core_install_imports_and_solves_without_the_extras():
+    # the extras (recipes, command line, scale-out, plots, estimator) stay optional: with their
+    # packages hidden, learnopt imports and solves (common practice for optional dependencies)
+    import subprocess
+    import sys
+    code = (
+        "import sys\n"
+        "class Hide:\n"
+        "    def find_spec(self, name, path=None, target=None):\n"
+        "        if name.split('.')[0] in ('pydantic', 'click', 'rich', 'sklearn', 'dask', 'distributed', "
+        "'matplotlib'):\n"
+        "            raise ImportError(name)\n"
+        "sys.meta_path.insert(0, Hide())\n"
+        "import numpy as np, learnopt as lo\n"
+        "print(lo.regression(np.eye(5), np.arange(5.0)).solve().status)\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert out.stdout.strip() == "optimal"

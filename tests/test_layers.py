@@ -27,8 +27,9 @@ LAYERS = {
 }
 ALLOWED_UPWARD: set[tuple[str, str]] = set()     # (importing module, imported module): none today
 # imports written inside a function on purpose: the package face imports the estimator adapter on
-# first use of lo.estimator, because the adapter imports scikit-learn (an optional extra, ~1 s)
-ALLOWED_LAZY = {("learnopt", "learnopt.interface.adapter")}
+# first use of lo.estimator (it imports scikit-learn) and the recipe reader on first use of
+# lo.load_recipe (it imports pydantic): optional extras a core install does not have
+ALLOWED_LAZY = {("learnopt", "learnopt.interface.adapter"), ("learnopt", "learnopt.interface.recipes")}
 
 
 def _modules():

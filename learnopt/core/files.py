@@ -5,6 +5,13 @@ import os
 import tempfile
 
 
+def _umask() -> int:
+    """The process's umask (read by setting it and putting it back)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 def write_atomic(path, text) -> None:
     """Write ``text`` to ``path`` via a temporary file in the same folder renamed into place;
     on any failure (an interruption included) neither a partial file nor the temporary remains.
@@ -15,6 +22,10 @@ def write_atomic(path, text) -> None:
     os.makedirs(folder, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
     try:
+        # mkstemp creates the file readable by its owner only; an output gets the permissions any
+        # new file of the user's gets (0666 less the umask), or the ones the file it replaces had
+        mode = os.stat(path).st_mode & 0o7777 if os.path.exists(path) else 0o666 & ~_umask()
+        os.chmod(tmp, mode)
         with os.fdopen(fd, "wb") as fh:
             for chunk in ([text] if isinstance(text, (str, bytes)) else text):
                 fh.write(chunk.encode("utf-8") if isinstance(chunk, str) else chunk)
