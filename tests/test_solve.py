@@ -287,3 +287,20 @@ def test_interrupted_writes_leave_nothing_half_written(tmp_path, monkeypatch, da
     with pytest.raises(KeyboardInterrupt):
         fit.save(target)
     assert not target.exists() and not list(tmp_path.iterdir())
+
+
+@pytest.mark.parametrize("strength", [20.0, 1e3])
+def test_prices_at_a_kink_are_the_rate_relaxing_delivers(strength):
+    # a sign rule on a coefficient that the l1 penalty already holds at zero: the solver's
+    # multiplier is not unique there, and the price must be the rate of the optimal value as
+    # the rule is relaxed (checked by finite differences, common practice), here zero
+    from learnopt.interface.demo import make_data
+    df = make_data()
+    feat = ["distance_km", "stops", "size", "region"]
+    base = lo.regression(df, target="minutes", loss=lo.loss.huber(2.0), features=feat).penalize(
+        lo.penalty.l1(strength))
+    fit = base.require("distance_km >= 0").solve()
+    relaxed = base.require("distance_km >= -0.01").solve()
+    assert fit.status == "optimal" and relaxed.status == "optimal"
+    rate = (fit.objective - relaxed.objective) / 0.01
+    assert fit.prices["distance_km >= 0"] == pytest.approx(rate, abs=1e-6)

@@ -19,6 +19,7 @@ from learnopt.problem.algebra import objective
 from learnopt.problem.basis import conditioned
 from learnopt.scale.cluster import ClusterSettings
 from learnopt.solve.fit import Fit
+from learnopt.solve.prices import degenerate, smallest_prices
 from learnopt.solve.conflicts import conflicts as find_conflicts
 from learnopt.solve.routes import prepare
 from learnopt.solve.routes.base import SOLVER_FAULTS, Candidate, RunnerBase, Settings
@@ -33,9 +34,13 @@ TOL_FLOOR = 1e-13
 
 
 def _prices(task, mults, theta, feas_tol, noise):
+    smallest = (smallest_prices(task, theta, mults)
+                if task.requirements and not task.sharded and degenerate(task, theta) else {})
     prices, binding = {}, {}
-    for r, m in zip(task.requirements, mults):
+    for k, (r, m) in enumerate(zip(task.requirements, mults)):
         value = float(np.sum(m)) if r.sense != "norm" else float(m)
+        if smallest and k in smallest:
+            value = min(value, smallest[k])       # the rate relaxing the rule actually delivers
         if r.sense == "<=" or r.sense == "norm":
             value = max(value, 0.0)
         if abs(value) <= noise:   # solver round-off on a rule that does not bind
