@@ -261,3 +261,20 @@ def test_report_renders_in_a_headless_browser(tmp_path, copied):
     pixels = (mpimg.imread(shot)[..., :3] * 255).round().astype(int)
     bar = np.all(np.abs(pixels - np.array([0x44, 0xAA, 0x77])) <= 3, axis=-1)
     assert bar.sum() > 2000
+
+
+def test_an_infeasible_recipe_shows_its_conflicts_everywhere(tmp_path, copied):
+    # item: the conflicting rules and how far each must move, in the terminal, JSON and report
+    text = (copied / "deliveries.toml").read_text()
+    rules_at = text.index("rules = [")
+    text = text[:rules_at] + 'rules = ["distance_km >= 1", "distance_km <= 0", ' + text[rules_at + len("rules = ["):]
+    (copied / "conflict.toml").write_text(text)
+    runner = CliRunner()
+    out = runner.invoke(main, ["run", str(copied / "conflict.toml"), "--report", str(tmp_path / "r.html")])
+    assert "infeasible" in out.output and "conflicting rules" in out.output
+    assert "distance_km >= 1" in out.output and "distance_km <= 0" in out.output
+    data = json.loads(runner.invoke(main, ["run", str(copied / "conflict.toml"), "--json"]).output)
+    assert data["fit"]["evidence"]["conflicts"] == pytest.approx({"distance_km >= 1": 1.0, "distance_km <= 0": 1.0})
+    assert data["fit"]["evidence"]["attempts"][0]["outcome"].startswith("infeasible")
+    report = (tmp_path / "r.html").read_text()
+    assert "Conflicting rules" in report and "Solver attempts" in report

@@ -304,3 +304,40 @@ def test_prices_at_a_kink_are_the_rate_relaxing_delivers(strength):
     assert fit.status == "optimal" and relaxed.status == "optimal"
     rate = (fit.objective - relaxed.objective) / 0.01
     assert fit.prices["distance_km >= 0"] == pytest.approx(rate, abs=1e-6)
+
+
+def test_an_unbounded_claim_on_a_task_bounded_below_is_rejected(monkeypatch, data):
+    # every built-in loss and penalty is >= 0, so the objective cannot fall without limit
+    # (common practice: a claim contradicting a lower bound is a solver failure)
+    X, y = data
+    real = cp.Problem.solve
+
+    def liar(self, *args, solver=None, **kwargs):
+        if solver == "ECOS":
+            out = real(self, *args, solver=solver, **kwargs)
+            self._status = "unbounded"
+            return out
+        return real(self, *args, solver=solver, **kwargs)
+
+    monkeypatch.setattr(cp.Problem, "solve", liar)
+    task = lo.regression(X, y, loss=lo.loss.huber(1.0)).penalize(lo.penalty.l1(0.01)).require("x0 >= 0")
+    fit = task.solve("ecos", route="direct")
+    assert fit.status == "optimal" and fit.solver != "ecos"
+    assert "bounded below" in fit.attempts[0].outcome and "rejected" in fit.attempts[0].outcome
+
+
+def test_an_answer_from_another_solver_than_the_one_asked_says_so(monkeypatch, data):
+    X, y = data
+    real = cp.Problem.solve
+
+    def broken(self, *args, solver=None, **kwargs):
+        if solver == "OSQP":
+            raise cp.error.SolverError("simulated crash")
+        return real(self, *args, solver=solver, **kwargs)
+
+    monkeypatch.setattr(cp.Problem, "solve", broken)
+    fit = lo.regression(X, y).penalize(lo.penalty.l2(0.1)).solve("osqp", route="direct")
+    assert fit.status == "optimal" and fit.solver != "osqp"
+    assert f"comes from {fit.solver}, not from osqp" in fit.message and "simulated crash" in fit.message
+    table = fit.attempt_table()
+    assert list(table.index[:2]) == ["osqp", fit.solver] and "attempts:" in fit.summary()

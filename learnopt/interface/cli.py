@@ -80,8 +80,14 @@ def _show(job, as_json: bool) -> None:
         pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
         pr.index.name = "rule"
         con.print(_frame_table(pr, "rules: price per unit relaxation"))
+    if len(fit.conflicts):
+        cf = fit.conflicts.to_frame("must move by")
+        cf.index.name = "rule"
+        con.print(_frame_table(cf, "conflicting rules (each alone, in its own units)"))
+    if fit.attempts:
+        con.print(_frame_table(fit.attempt_table()[["outcome", "seconds"]], "solver attempts"))
     if job.compare is not None:
-        cols = [c for c in ("status", "objective", "gap", "iterations", "total_s", "max_coef_diff")
+        cols = [c for c in ("status", "objective", "gap", "steps", "total_s", "max_coef_diff")
                 if c in job.compare.columns]
         con.print(_frame_table(job.compare[cols], "solver comparison"))
     if job.path is not None:

@@ -87,6 +87,14 @@ def html(job) -> str:
                                       "worst violation", "solver", "route"]
                                      + [f"{k} seconds" for k in fit.timings.as_dict()], name="evidence"))
     parts.append("<h2>Evidence</h2>" + _table(ev))
+    if len(fit.conflicts):
+        cf = fit.conflicts.to_frame("must move by")
+        cf.index.name = "rule"
+        parts.append("<h2>Conflicting rules</h2><p class=\"note\">The rules cannot all hold. Each rule below is "
+                     "part of the conflict; the amount is how far that rule alone must move, in its own units "
+                     "(inf: moving it alone is not enough).</p>" + _table(cf))
+    if fit.attempts:
+        parts.append("<h2>Solver attempts</h2>" + _table(fit.attempt_table()))
     parts.append("<h2>Coefficients</h2>" + _table(fit.coefficients()))
     if len(fit.prices):
         pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})

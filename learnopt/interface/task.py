@@ -166,7 +166,8 @@ class Task(Problem):
                 tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6):
         """Solve the same task with each solver (no fallback); one row per solver.
 
-        Columns: status, objective, gap (learnopt's certificate), violation, iterations,
+        Columns: status, objective, gap (learnopt's certificate), violation, steps (the solver's
+        iterations, or the route's outer steps),
         build/compile/solve/certify/total seconds, note, and max_coef_diff (largest coefficient
         difference from the certified row with the lowest objective). Solvers that are not
         installed or cannot handle the problem class get a row with the reason.

@@ -159,6 +159,13 @@ class Fit:
         and evaluation (no training data); ``task_type`` builds it (default: a plain Problem)."""
         return cls(**fitfile.read(path, task_type=task_type))
 
+    def attempt_table(self) -> pd.DataFrame:
+        """Every solver tried, in order: outcome, objective, certified gap, seconds."""
+        table = pd.DataFrame([{"solver": a.solver, "outcome": a.outcome, "objective": a.objective, "gap": a.gap,
+                               "seconds": a.seconds} for a in self.attempts],
+                             columns=["solver", "outcome", "objective", "gap", "seconds"])
+        return table.set_index("solver")
+
     # ---- display
     def summary(self) -> str:
         lines = [f"status     {self.status}  ({self.message})",
@@ -177,8 +184,11 @@ class Fit:
             pr = pd.DataFrame({"price": self.prices, "binding": self.binding})
             lines.append(pr.to_string(float_format=lambda v: f"{v:.6g}"))
         if len(self.conflicts):
-            lines.append("conflicting rules (amount each must give):")
+            lines.append("conflicting rules (how far each alone must move, in its own units):")
             lines.append(self.conflicts.to_string())
+        if len(self.attempts) > 1:
+            lines.append("attempts:")
+            lines.append(self.attempt_table()[["outcome", "seconds"]].to_string(float_format=lambda v: f"{v:.3g}"))
         lines.append(CAUTION)
         return "\n".join(lines)
 

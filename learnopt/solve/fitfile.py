@@ -114,6 +114,9 @@ def to_dict(fit) -> dict:
             "gap": _plain(fit.gap), "rel_gap": _plain(fit.rel_gap), "violation": _plain(fit.violation),
             "solver": fit.solver, "route": fit.route, "timings": fit.timings.as_dict(),
             "prices": _plain(fit.prices.to_dict()), "binding": _plain(fit.binding.to_dict()),
+            "conflicts": _plain(fit.conflicts.to_dict()),
+            "attempts": [{"solver": a.solver, "outcome": a.outcome, "objective": _plain(float(a.objective)),
+                          "gap": _plain(float(a.gap)), "seconds": _plain(float(a.seconds))} for a in fit.attempts],
             "versions": _versions(fit.solver),
         },
     }

@@ -26,7 +26,8 @@ from learnopt.solve.routes.base import SOLVER_FAULTS, Candidate, RunnerBase, Set
 from learnopt.solve.solvers import lookup
 from learnopt.solve.solvers import plan as plan_solvers
 from learnopt.solve.timings import Attempt, Timings
-from learnopt.terms.penalties import Separable
+from learnopt.terms.losses import Custom
+from learnopt.terms.penalties import CustomPenalty, Separable
 
 POLISH_ROUNDS = 2      # tighter re-solves of one solver before moving down the chain
 POLISH_FACTOR = 1e-3   # each polish round divides the tolerance by this much
@@ -92,6 +93,11 @@ def exact_zeros(problem, theta, check, gap_tol: float, feas_tol: float):
         if cert.passes(gap_tol, feas_tol):
             return new, cert
     return None
+
+
+def bounded_below(problem) -> bool:
+    """Is the objective bounded below by construction (every built-in loss and penalty is >= 0)?"""
+    return not isinstance(problem.loss, Custom) and not any(isinstance(p, CustomPenalty) for p in problem.penalties)
 
 
 def candidate_rank(cert, certified: bool, feas_tol: float) -> tuple:
@@ -183,6 +189,10 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
                 attempts.append(Attempt(label, f"{status}, but the requirements can all hold: "
                                         f"the solver's claim is rejected{late_note}", seconds=wall))
                 break
+            if status in ("unbounded", "unbounded_inaccurate") and bounded_below(problem):
+                attempts.append(Attempt(label, f"{status}, but every loss and penalty is >= 0, so the objective "
+                                        f"is bounded below: the solver's claim is rejected{late_note}", seconds=wall))
+                break
             if status in ("unbounded", "unbounded_inaccurate"):
                 attempts.append(Attempt(label, status + late_note, seconds=wall))
                 if sum(a.outcome.startswith("unbounded") for a in attempts) >= 2 or spec is chain[-1]:
@@ -227,7 +237,8 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
     if T is not None:
         best = _back_to_original(original, T, best)
     # a fit names the user's task; along a path, the problem at this point's strength
-    return _assemble(problem if along_path else original, runner.name, attempts, best, verdict, conflicts, gap_tol, feas_tol, total)
+    return _assemble(problem if along_path else original, runner.name, attempts, best, verdict, conflicts, gap_tol,
+                     feas_tol, total, requested=solver)
 
 
 def _back_to_original(task, T, best: Candidate | None) -> Candidate | None:
@@ -244,7 +255,8 @@ def _back_to_original(task, T, best: Candidate | None) -> Candidate | None:
     return replace(best, theta=theta, certificate=cert, extras={**best.extras, "basis": "centred and scaled columns"})
 
 
-def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts, gap_tol, feas_tol, total) -> Fit:
+def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts, gap_tol, feas_tol, total,
+              requested: str | None = None) -> Fit:
     names = list(task.features)
     common = dict(route=route, attempts=tuple(attempts), task=task)
     if best is None:
@@ -274,6 +286,10 @@ def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts,
             why.append(f"a requirement is violated by {cert.rel_violation:.3g} (relative) > {feas_tol:g}")
         status, msg = Status.UNVERIFIED, ("the certificate does not confirm optimality: " + "; ".join(why)
                                           + ". Try a tighter tol or another solver.")
+    if requested is not None and not str(best.solver).startswith(lookup(requested).name):
+        asked = [a for a in attempts if a.solver.startswith(lookup(requested).name)]
+        why = f": {asked[-1].outcome}" if asked else ""
+        msg += f" The answer comes from {best.solver}, not from {lookup(requested).name}, the solver asked for{why}."
     d = len(names)
     return Fit(status=status, message=msg, objective=cert.primal, gap=cert.gap, rel_gap=cert.rel_gap,
                violation=cert.violation, coef=pd.Series(theta[:d], index=names, name="coef"),
@@ -295,7 +311,7 @@ def compare(task, solvers, *, tol: float, gap_tol: float, feas_tol: float) -> pd
         fit = solve_task(task, Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, fallback=False), solver=spec.name)
         fits[spec.name] = fit
         rows.append({"solver": spec.name, "status": fit.status.value, "objective": fit.objective, "gap": fit.gap,
-                     "violation": fit.violation, "iterations": fit.extras.get("iterations"),
+                     "violation": fit.violation, "steps": fit.extras.get("iterations"),
                      **{f"{k}_s": v for k, v in fit.timings.as_dict().items()},
                      "note": "" if fit.status == Status.OPTIMAL else fit.message})
     table = pd.DataFrame(rows).set_index("solver")
