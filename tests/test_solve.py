@@ -341,3 +341,16 @@ def test_an_answer_from_another_solver_than_the_one_asked_says_so(monkeypatch, d
     assert f"comes from {fit.solver}, not from osqp" in fit.message and "simulated crash" in fit.message
     table = fit.attempt_table()
     assert list(table.index[:2]) == ["osqp", fit.solver] and "attempts:" in fit.summary()
+
+
+def test_a_chained_rule_is_priced_under_the_text_the_user_wrote(data):
+    # prices keyed by the rule as written, the pieces offered too; the price is the rate of the
+    # optimal value as the binding half is relaxed (finite differences, common practice)
+    X, y = data
+    base = lo.regression(X, y)
+    fit = base.require("-10 <= x0 <= 0.5").solve()
+    assert fit.status == "optimal" and fit.binding["-10 <= x0 <= 0.5"] and fit.binding["x0 <= 0.5"]
+    assert fit.prices["-10 <= x0 <= 0.5"] == fit.prices["x0 <= 0.5"] + fit.prices["-10 <= x0"]
+    relaxed = base.require("-10 <= x0 <= 0.501").solve()
+    rate = (fit.objective - relaxed.objective) / 0.001
+    assert fit.prices["-10 <= x0 <= 0.5"] == pytest.approx(rate, rel=2e-3)

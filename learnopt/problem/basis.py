@@ -63,8 +63,8 @@ def conditioned(task):
 
 def _map_rule(r: Requirement, T: np.ndarray) -> Requirement:
     if r.sense == "norm":
-        return Requirement(r.text, r.sense, r.A @ T, r.rhs, r.order, T.T @ r.f, r.bound)
-    return Requirement(r.text, r.sense, r.A @ T, r.rhs)
+        return replace(r, A=r.A @ T, f=T.T @ r.f)
+    return replace(r, A=r.A @ T)
 
 
 def _map_penalty(pen: Separable, s: np.ndarray, names):

@@ -35,6 +35,8 @@ TOL_FLOOR = 1e-13
 
 
 def _prices(task, mults, theta, feas_tol, noise):
+    """(prices, binding) keyed by each rule as the user wrote it (the pieces of a chained rule
+    such as ``0 <= x <= 2`` summed; a piece binds when either does)."""
     smallest = (smallest_prices(task, theta, mults)
                 if task.requirements and not task.sharded and degenerate(task, theta) else {})
     prices, binding = {}, {}
@@ -46,9 +48,10 @@ def _prices(task, mults, theta, feas_tol, noise):
             value = max(value, 0.0)
         if abs(value) <= noise:   # solver round-off on a rule that does not bind
             value = 0.0
-        prices[r.text] = prices.get(r.text, 0.0) + value
         active = bool(np.min(r.slack(theta)) <= feas_tol * r.scale()) if r.sense != "==" else True
-        binding[r.text] = binding.get(r.text, False) or active
+        for key in dict.fromkeys((r.source, r.text)):     # the rule as written, and its piece
+            prices[key] = prices.get(key, 0.0) + value
+            binding[key] = binding.get(key, False) or active
     return pd.Series(prices, dtype=float), pd.Series(binding, dtype=bool)
 
 
