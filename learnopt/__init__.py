@@ -21,7 +21,7 @@ from learnopt.terms import losses as loss
 from learnopt.terms import penalties as penalty
 from learnopt.terms.convexity import Verdict
 
-__version__ = "0.1.0"
+from learnopt.core.version import __version__  # noqa: F401 - the face shows it
 
 
 def load_recipe(path) -> Task:

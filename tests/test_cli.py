@@ -278,3 +278,12 @@ def test_an_infeasible_recipe_shows_its_conflicts_everywhere(tmp_path, copied):
     assert data["fit"]["evidence"]["attempts"][0]["outcome"].startswith("infeasible")
     report = (tmp_path / "r.html").read_text()
     assert "Conflicting rules" in report and "Solver attempts" in report
+
+
+def test_version_and_plain_numbers_in_messages():
+    runner = CliRunner()
+    out = runner.invoke(main, ["--version"])
+    assert out.exit_code == 0 and out.output.strip() == f"learnopt {lo.__version__}"
+    with pytest.raises(lo.ParameterError) as err:
+        lo.loss.huber(np.float64(-2.0))
+    assert "np.float64" not in str(err.value) and "-2.0" in str(err.value)

@@ -65,6 +65,11 @@ def _imports(name: str, path: Path):
     yield from walk(tree, False)
 
 
+def _private(name: str) -> bool:
+    """A leading underscore marks a private name; dunder names (``__version__``) are public."""
+    return name.startswith("_") and not (name.startswith("__") and name.endswith("__"))
+
+
 def _folder(module: str) -> str | None:
     parts = module.split(".")
     return parts[1] if len(parts) > 1 else None      # None: the package face (learnopt/__init__)
@@ -94,7 +99,7 @@ def _violations():
                              f"which is above it")
             elif LAYERS[there] == LAYERS[here]:
                 found.append(f"{where}: {here} and {there} share layer {LAYERS[here]} and must not import each other")
-            private = [n for n in names if n.startswith("_")]
+            private = [n for n in names if _private(n)]
             if private:
                 found.append(f"{where}: imports private name(s) {private} from another folder ({module})")
     return found
@@ -114,7 +119,7 @@ def test_tests_import_no_private_names_across_folders():
     problems = []
     for path in sorted((ROOT / "tests").rglob("*.py")):
         for line, module, names, _ in _imports("tests.x", path):
-            private = [n for n in names if n.startswith("_")]
+            private = [n for n in names if _private(n)]
             if private:
                 problems.append(f"{path.relative_to(ROOT)}:{line}: imports private {private} from {module}")
     assert not problems, "\n".join(problems)

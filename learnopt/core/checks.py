@@ -45,6 +45,13 @@ OPEN_UNIT = Interval(0.0, 1.0, closed_low=False, closed_high=False)
 UNIT = Interval(0.0, 1.0)
 
 
+def shown(value) -> str:
+    """A value as the user would write it: numpy scalars and arrays as plain numbers and lists."""
+    if hasattr(value, "tolist") and type(value).__module__ == "numpy":
+        value = value.tolist()
+    return repr(value)
+
+
 def check(owner: str, **values_and_rules: tuple[object, Interval]) -> None:
     """Check each ``name=(value, interval)``; raise one ParameterError listing every failure.
 
@@ -55,11 +62,11 @@ def check(owner: str, **values_and_rules: tuple[object, Interval]) -> None:
         if isinstance(value, bool) or not isinstance(value, Real):
             problems.append(
                 f"The '{name}' parameter of {owner} must be a number {rule.describe()}. "
-                f"Got {value!r} instead."
+                f"Got {shown(value)} instead."
             )
         elif not rule.holds(float(value)):
             problems.append(
-                f"The '{name}' parameter of {owner} must be {rule.describe()}. Got {value!r} instead."
+                f"The '{name}' parameter of {owner} must be {rule.describe()}. Got {shown(value)} instead."
             )
     if problems:
         raise ParameterError(problems[0] if len(problems) == 1 else f"{owner}: invalid parameters",

@@ -17,6 +17,8 @@ import warnings
 
 import pandas as pd
 
+from learnopt.core.checks import shown
+from learnopt.core.version import __version__
 from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
 from learnopt.core.status import CAUTION
 from learnopt.interface import jobs
@@ -129,6 +131,7 @@ _report = click.option("--report", type=click.Path(dir_okay=False), default=None
 
 
 @click.group(help="learnopt: convex learning tasks with rules, solved and certified.")
+@click.version_option(__version__, "--version", prog_name="learnopt", message="%(prog)s %(version)s")
 def main():
     pass
 
@@ -188,7 +191,7 @@ def path(recipe, grid, count, as_json, report):
             values = [float(v) for v in grid.split(",") if v.strip()]
         except ValueError:
             _fail(ParameterError(f"--grid must be comma-separated numbers, e.g. 1,0.1,0.01. "
-                                 f"Got {grid!r} instead."), as_json)
+                                 f"Got {shown(grid)} instead."), as_json)
     _run(recipe, as_json, report, action="path", grid=values, n=count)
 
 

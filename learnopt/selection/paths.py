@@ -198,7 +198,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
         grid = np.asarray(grid, float).ravel()
         if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
             raise ParameterError("The 'grid' parameter of path must be non-negative finite strengths. "
-                                 f"Got {grid!r} instead.")
+                                 f"Got {params.shown(grid)} instead.")
     runner = prepare(task.as_problem(), route, vary=index)
     settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
     opts = dict(solver=solver, route=route, runner=runner)
