@@ -287,3 +287,13 @@ def test_version_and_plain_numbers_in_messages():
     with pytest.raises(lo.ParameterError) as err:
         lo.loss.huber(np.float64(-2.0))
     assert "np.float64" not in str(err.value) and "-2.0" in str(err.value)
+
+
+def test_a_recipe_without_a_loss_takes_the_python_default(copied):
+    # recipes and Python agree: no [task.loss] means squared for regression, as lo.regression does
+    text = (copied / "blend.toml").read_text()
+    start = text.index("[task.loss]")
+    end = text.index("\n[", start + 1)
+    (copied / "noloss.toml").write_text(text[:start] + text[end + 1:])
+    task = lo.load_recipe(copied / "noloss.toml")
+    assert task.loss.name == "squared"

@@ -144,7 +144,7 @@ class TaskPart(_Strict):
     weights: str | None = None
     intercept: bool = True
     positive: str | int | float | bool | None = None
-    loss: LossPart
+    loss: LossPart | None = None          # none: the Python default (squared / logistic)
     penalties: list[PenaltyPart] = Field(default_factory=list)
     rules: list[str] = Field(default_factory=list)
 
@@ -266,7 +266,7 @@ def build_task(recipe: Recipe, frame=None):
     frame = _frame(recipe) if frame is None else frame
     problems, loss, pens = [], None, []
     try:
-        loss = t.loss.build()
+        loss = t.loss.build() if t.loss is not None else ("squared" if t.kind == "regression" else "logistic")
     except LearnoptError as exc:
         problems.append(f"task.loss: {exc}")
     for k, part in enumerate(t.penalties):
