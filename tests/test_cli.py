@@ -297,3 +297,16 @@ def test_a_recipe_without_a_loss_takes_the_python_default(copied):
     (copied / "noloss.toml").write_text(text[:start] + text[end + 1:])
     task = lo.load_recipe(copied / "noloss.toml")
     assert task.loss.name == "squared"
+
+
+@pytest.mark.parametrize("old,new,expect", [
+    ('strength = 0.01', 'strenght = 0.01', "did you mean 'strength'"),
+    ('target = "minutes"', 'targt = "minutes"', "did you mean 'target'"),
+    ('name = "huber"', 'name = "zero_one"', "convex surrogate"),
+])
+def test_recipe_mistakes_get_the_same_help_as_python(copied, old, new, expect):
+    text = (copied / "deliveries.toml").read_text()
+    assert old in text
+    (copied / "bad.toml").write_text(text.replace(old, new, 1))
+    out = CliRunner().invoke(main, ["check", str(copied / "bad.toml")])
+    assert out.exit_code == 2 and expect in out.output, out.output

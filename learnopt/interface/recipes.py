@@ -16,6 +16,7 @@ called ``weights`` before this release (still accepted, with a DeprecationWarnin
 """
 from __future__ import annotations
 
+import difflib
 import os
 import tomllib
 import warnings
@@ -28,7 +29,7 @@ from learnopt.data.gateway import read_source
 from learnopt.interface.task import classification, regression
 from learnopt.solve.routes import ROUTES
 from learnopt.solve.solvers import REGISTRY as SOLVERS
-from learnopt.terms.losses import KINDS, LOSSES, for_kind
+from learnopt.terms.losses import KINDS, LOSSES, by_name, for_kind
 from learnopt.terms.penalties import PENALTIES
 
 try:
@@ -206,6 +207,22 @@ class Recipe(_Strict):
         return relative if os.path.isabs(relative) else os.path.normpath(os.path.join(self.folder, relative))
 
 
+def _known_keys() -> set[str]:
+    """Every key a recipe may hold: the sections' fields and the building blocks' parameters."""
+    keys = set(KEYS.values()) | set(OLD_KEYS)
+    stack = [Recipe]
+    while stack:
+        model = stack.pop()
+        for name, info in model.model_fields.items():
+            keys.add(name)
+            for arg in getattr(info.annotation, "__args__", ()) + (info.annotation,):
+                if isinstance(arg, type) and issubclass(arg, BaseModel) and arg not in stack:
+                    stack.append(arg)
+    for spec in list(LOSSES.values()) + list(PENALTIES.values()):
+        keys.update(spec.parameters)
+    return keys
+
+
 def _problems(exc: ValidationError) -> list[str]:
     out = []
     for err in exc.errors():
@@ -215,8 +232,14 @@ def _problems(exc: ValidationError) -> list[str]:
             out += [f"{where}.{key}: {text}" if key else f"{where}: {text}" for key, text in block.pairs]
             continue
         msg = err["msg"].replace("Value error, ", "")
+        loc = tuple(str(p) for p in err["loc"])
         if err["type"] == "extra_forbidden":
-            msg = "unknown key (check the spelling; see the recipe reference in the README)"
+            close = difflib.get_close_matches(loc[-1], sorted(_known_keys()), n=1, cutoff=0.75)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            msg = f"unknown key ({hint}check the spelling; see the recipe reference in the README)"
+        elif err["type"] == "literal_error" and loc[-2:] == ("loss", "name") and err.get("input") in LOSSES \
+                and not by_name(err.get("input")).convex:
+            msg = str(by_name(err.get("input")).refusal())      # the same explanation Python gives
         elif err["type"] == "literal_error":
             msg = f"{msg}; got {err.get('input')!r}"
         out.append(f"{where}: {msg}")
