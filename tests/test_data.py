@@ -123,3 +123,23 @@ def test_gateway_battery_automatic_handling():
         lo.regression(_BASE, "y", weights=np.zeros(5))
     with pytest.raises(lo.DataError, match="3 label"):
         lo.classification(_BASE.assign(y=[1, 2, 3, 1, 2]), "y")
+
+
+def test_check_names_identifier_and_proportional_columns_and_solve_says_it_interpolates():
+    # common practice: an identifier column (one level per row) lets a fit reproduce every row;
+    # a column that is a multiple of another cannot have its own coefficient
+    rng = np.random.default_rng(0)
+    df = pd.DataFrame({"x": rng.normal(size=200), "id": [f"r{i}" for i in range(200)], "y": rng.normal(size=200)})
+    task = lo.regression(df, "y")
+    notes = " ".join(task.check().data)
+    assert "'id' has 200 distinct values in 200 rows" in notes
+    fit = task.solve()
+    assert "reproduces every training row exactly" in fit.message
+    df2 = pd.DataFrame({"a": rng.normal(size=50)})
+    df2["b"] = 2 * df2["a"] + 1
+    df2["y"] = df2["a"] + rng.normal(size=50)
+    notes2 = " ".join(lo.regression(df2, "y").check().data)
+    assert "'a' and 'b' are proportional (b = " in notes2
+    plain = lo.regression(df2.drop(columns="b"), "y")
+    assert "proportional" not in " ".join(plain.check().data)
+    assert "reproduces" not in plain.solve().message

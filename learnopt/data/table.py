@@ -276,7 +276,7 @@ def _from_frame(frame, target, kind, features, weights, intercept, positive) -> 
     enc = encode(frame, features, intercept)
     X = design(enc, frame)
     y, labels = _target(ycol, kind, positive, tname)
-    notes = _notes(X, enc.names)
+    notes = _id_like(frame, features) + _notes(X, enc.names)
     return Dataset(X, y, w, enc.names, frame, enc, labels, notes)
 
 
@@ -336,6 +336,38 @@ def _from_array(X, target, kind, features, weights, positive) -> Dataset:
     return Dataset(X, y, w, names, None, None, labels, _notes(X, names))
 
 
+def _proportional(dense, names, span, limit: int = 400) -> list[str]:
+    """Pairs of non-constant columns that are exact or near multiples of each other (|correlation|
+    above 1 - 1e-10): their coefficients cannot be told apart. Checked for up to ``limit`` columns."""
+    keep = np.flatnonzero(span > 0)
+    if keep.size < 2 or keep.size > limit:
+        return []
+    Z = dense[:, keep] - dense[:, keep].mean(axis=0)
+    Z = Z / np.linalg.norm(Z, axis=0)
+    C = np.abs(Z.T @ Z)
+    out = []
+    for i, j in zip(*np.nonzero(np.triu(C, 1) > 1.0 - 1e-10)):
+        a, b = keep[i], keep[j]
+        ratio = float(np.dot(dense[:, b], dense[:, a]) / max(np.dot(dense[:, a], dense[:, a]), 1e-300))
+        out.append(f"columns {names[a]!r} and {names[b]!r} are proportional ({names[b]} = {ratio:.6g} x "
+                   f"{names[a]}, up to an offset): their coefficients cannot be told apart; drop one.")
+    return out[:10]
+
+
+def _id_like(frame: pd.DataFrame, columns) -> list[str]:
+    """Text columns with a level for (nearly) every row: identifiers, not features."""
+    out = []
+    n = len(frame)
+    for c in columns:
+        col = frame[c]
+        if _column_type(col) == "category" and n >= 10:
+            levels = col.nunique(dropna=True)
+            if levels >= 0.5 * n:
+                out.append(f"column {c!r} has {levels} distinct values in {n} rows: it looks like an "
+                           f"identifier, not a feature (each level can fit its own rows exactly); drop it.")
+    return out
+
+
 def _notes(X, names) -> list[str]:
     """Data findings that do not stop the fit (reported by task.check())."""
     notes = []
@@ -351,7 +383,8 @@ def _notes(X, names) -> list[str]:
                      f"the intercept unless a penalty or rule pins them.")
     if X.shape[0] < X.shape[1]:
         notes.append(f"more features ({X.shape[1]}) than rows ({X.shape[0]}): without a penalty the "
-                     f"coefficients are not unique.")
+                     f"coefficients are not unique, and the fit can reproduce the training rows exactly.")
+    notes += _proportional(dense, names, span)
     scale = np.abs(dense).max(axis=0)
     scale = scale[scale > 0]
     if scale.size and scale.max() / scale.min() > 1e6:

@@ -15,7 +15,7 @@ import pandas as pd
 from learnopt.core import checks as params
 from learnopt.core.errors import ParameterError
 from learnopt.core.status import Status
-from learnopt.problem.algebra import objective
+from learnopt.problem.algebra import loss_argument, objective
 from learnopt.problem.basis import conditioned
 from learnopt.scale.cluster import ClusterSettings
 from learnopt.solve.fit import Fit
@@ -96,6 +96,15 @@ def exact_zeros(problem, theta, check, gap_tol: float, feas_tol: float):
         if cert.passes(gap_tol, feas_tol):
             return new, cert
     return None
+
+
+def _reproduces_rows(task, theta) -> bool:
+    """Do the residuals vanish on every training row (in memory, residual losses, 3 rows or more)?"""
+    if task.sharded or task.loss.argument != "residual" or task.dataset.n < 3:
+        return False
+    M, q, _ = loss_argument(task)
+    resid = M @ theta - q
+    return bool(np.max(np.abs(resid)) <= 1e-9 * (1.0 + float(np.max(np.abs(q)))))
 
 
 def bounded_below(problem) -> bool:
@@ -289,6 +298,10 @@ def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts,
             why.append(f"a requirement is violated by {cert.rel_violation:.3g} (relative) > {feas_tol:g}")
         status, msg = Status.UNVERIFIED, ("the certificate does not confirm optimality: " + "; ".join(why)
                                           + ". Try a tighter tol or another solver.")
+    if _reproduces_rows(task, theta):
+        msg += (" The fit reproduces every training row exactly: with as many free coefficients as rows "
+                "(see task.check() for identifier-like or proportional columns) it interpolates the data "
+                "rather than modelling it.")
     if requested is not None and not str(best.solver).startswith(lookup(requested).name):
         asked = [a for a in attempts if a.solver.startswith(lookup(requested).name)]
         why = f": {asked[-1].outcome}" if asked else ""
