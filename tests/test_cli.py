@@ -120,7 +120,7 @@ def test_run_check_compare_path_in_process(tmp_path, copied):
 def test_demo_command_writes_data_recipe_and_report(tmp_path):
     out = CliRunner().invoke(main, ["demo", "--folder", str(tmp_path / "demo")])
     assert out.exit_code == 0, out.output
-    assert (tmp_path / "demo" / "report.html").exists()
+    assert (tmp_path / "demo" / "out" / "deliveries-report.html").exists()   # where its recipe says
     assert (tmp_path / "demo" / "out" / "deliveries-fit.json").exists()
     back = lo.load_fit(tmp_path / "demo" / "out" / "deliveries-fit.json")
     assert back.status == "optimal"

@@ -201,7 +201,7 @@ def path(recipe, grid, count, as_json, report):
 @_report
 def demo(folder, as_json, report):
     recipe = write_demo(folder)
-    _run(recipe, as_json, report or os.path.join(folder, "report.html"))
+    _run(recipe, as_json, report)       # the recipe names its own report (out/...)
 
 
 if __name__ == "__main__":  # pragma: no cover

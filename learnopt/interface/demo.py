@@ -5,7 +5,7 @@ The fit asks what ready-made estimators cannot: minutes must not fall with dista
 sizes must cost increasing time, stops are capped, retail forecasts must stay above the
 promised service floor, and the two regions must get similar average forecasts.
 
-Run ``python -m learnopt.interface.demo`` (or ``learnopt-demo``).
+Run it with ``learnopt demo`` (one command, one answer).
 """
 from __future__ import annotations
 
@@ -15,12 +15,9 @@ from importlib import resources
 import numpy as np
 import pandas as pd
 
-from learnopt.core.status import Status
 from learnopt.centres.placement import centres
 from learnopt.core.files import write_atomic
-from learnopt.interface.task import regression
 from learnopt.rules.regions import polygon, segment
-from learnopt.terms import losses, penalties
 
 
 def make_data(n: int = 600, seed: int = 7) -> pd.DataFrame:
@@ -76,27 +73,3 @@ def write_demo(folder: str) -> str:
     path = os.path.join(folder, "deliveries.toml")
     write_atomic(path, demo_recipe())
     return path
-
-
-def main() -> int:
-    df = make_data()
-    train, test = df.iloc[:480], df.iloc[480:]
-    task = (regression(train, target="minutes", loss=losses.huber(4.0),
-                       features=["distance_km", "stops", "size", "region"])
-            .penalize(penalties.l1(0.01))
-            .require("distance_km >= 0",
-                     "0 <= stops <= 3",
-                     "increasing(`size=small`, `size=medium`, `size=large`)",
-                     "prediction >= service_floor where segment == 'retail'",
-                     "mean(prediction where region == 'south') - mean(prediction where region == 'north') <= 1"))
-    print("Harbour Lane Deliveries (invented data): minutes per route\n")
-    print(task.check(), "\n")
-    fit = task.solve()
-    print(fit.summary(), "\n")
-    print("held-out evaluation:")
-    print(fit.evaluate(test))
-    return 0 if fit.status == Status.OPTIMAL else 1
-
-
-if __name__ == "__main__":
-    raise SystemExit(main())
