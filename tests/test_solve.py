@@ -354,3 +354,18 @@ def test_a_chained_rule_is_priced_under_the_text_the_user_wrote(data):
     relaxed = base.require("-10 <= x0 <= 0.501").solve()
     rate = (fit.objective - relaxed.objective) / 0.001
     assert fit.prices["-10 <= x0 <= 0.5"] == pytest.approx(rate, rel=2e-3)
+
+
+def test_a_long_fit_shows_progress_lines_and_a_quick_one_none(data, capsys, monkeypatch):
+    # a line per certificate check once the fit has run for a while (here: from the start)
+    from learnopt.solve import loop
+    X, y = data
+    task = lo.regression(X, y, loss=lo.loss.huber(1.0)).penalize(lo.penalty.l1(0.01))
+    task.solve(progress=True)
+    assert capsys.readouterr().err == ""                      # quick: nothing
+    monkeypatch.setattr(loop, "PROGRESS_AFTER", 0.0)         # as if it had run long
+    fit = task.solve(progress=True)
+    err = capsys.readouterr().err
+    assert fit.status == "optimal" and "relative gap" in err and fit.route in err
+    task.solve(progress=False)
+    assert capsys.readouterr().err == ""

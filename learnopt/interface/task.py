@@ -115,12 +115,13 @@ class Task(Problem):
         verbose : show the solver's own log.
         client : sharded data only: a ``distributed.Client`` or a scheduler address (default:
             dask's current client, else a local cluster learnopt starts).
-        progress : sharded data only: a line per round of passes (None: only on a terminal).
+        progress : a line on stderr per certificate check and solver attempt once the fit has run
+            for 2 seconds (sharded data: a line per round of passes); None: only on a terminal.
         """
         settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, time_limit=time_limit, polish=polish,
                             fallback=fallback, solver_options=dict(solver_options or {}), verbose=verbose)
         cluster = None if client is None and progress is None else ClusterSettings(client=client, progress=progress)
-        return solve_task(self, settings, solver=solver, route=route, cluster=cluster)
+        return solve_task(self, settings, solver=solver, route=route, cluster=cluster, progress=progress)
 
     def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
              route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,

@@ -6,6 +6,7 @@ cannot hold together; otherwise the next capable solver is tried and the attempt
 """
 from __future__ import annotations
 
+import sys
 import time
 from dataclasses import replace
 
@@ -120,8 +121,27 @@ def candidate_rank(cert, certified: bool, feas_tol: float) -> tuple:
     return (not certified, infeasible, cert.rel_violation if infeasible else cert.primal)
 
 
+PROGRESS_AFTER = 2.0   # seconds a fit runs before it shows progress lines
+
+
+class Progress:
+    """A line per certificate check and per solver attempt on stderr, once a fit has run for
+    ``after`` seconds (a quick fit prints nothing): route, attempt, round, current gap. On when
+    asked, or (``enabled=None``) when stderr is a terminal."""
+
+    def __init__(self, enabled: bool | None):
+        self.on = bool(sys.stderr.isatty()) if enabled is None else bool(enabled)
+        self.after, self.start, self.rounds = PROGRESS_AFTER, time.perf_counter(), 0
+
+    def line(self, text: str) -> None:
+        elapsed = time.perf_counter() - self.start
+        if self.on and elapsed >= self.after:
+            print(f"learnopt {elapsed:7.1f}s  {text}", file=sys.stderr, flush=True)
+
+
 def solve_task(task, settings: Settings, *, solver: str | None = None, route: str | None = None,
-               runner: RunnerBase | None = None, cluster: ClusterSettings | None = None) -> Fit:
+               runner: RunnerBase | None = None, cluster: ClusterSettings | None = None,
+               progress: bool | None = False) -> Fit:
     """Solve and certify ``task`` (or, with ``runner``, the runner's current problem: paths).
 
     ``task`` is the user's task (kept as ``fit.task``); the routes and the certificate see its
@@ -133,9 +153,10 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
         params.check("solve", time_limit=(settings.time_limit, params.POSITIVE))
     t_start = time.perf_counter()
     original, T, along_path = task, None, runner is not None
-    if cluster is not None and runner is None and not task.sharded:
-        raise ParameterError("client= and progress= are for sharded data; this task's data is in memory. "
+    if cluster is not None and cluster.client is not None and runner is None and not task.sharded:
+        raise ParameterError("client= is for sharded data; this task's data is in memory. "
                              "Give a dask DataFrame or a file pattern to fit on a cluster.")
+    ticker = Progress(progress if not task.sharded else False)   # sharded fits report by rounds
     if runner is None and task.sharded:
         runner = prepare(task.as_problem(), route, cluster=cluster or ClusterSettings())
     elif runner is None:
@@ -159,6 +180,9 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
         cert = check(theta, u, mults)
         seen.update(theta=theta.copy(), cert=cert, seconds=seen.get("seconds", 0.0) + time.perf_counter() - t)
         runner.last_certificate = cert       # for routes that report progress
+        ticker.rounds += 1
+        ticker.line(f"{runner.name} route, check {ticker.rounds}: relative gap {cert.rel_gap:.3g}, "
+                    f"relative violation {cert.rel_violation:.3g}")
         return cert.passes(gap_tol, feas_tol)
 
     runner.configure(settings, goal)
@@ -230,6 +254,7 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
             label = out.solved_by or label
             attempts.append(Attempt(label, f"{status}; certificate {'passed' if ok else 'failed'}{late_note}",
                                     cert.primal, cert.gap, wall + cert_s))
+            ticker.line(f"{runner.name} route, {label}: {attempts[-1].outcome}, relative gap {cert.rel_gap:.3g}")
             prices, binding = _prices(problem, out.multipliers, theta, feas_tol,
                                       gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
             rank = candidate_rank(cert, ok, feas_tol)
