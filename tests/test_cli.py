@@ -310,3 +310,21 @@ def test_recipe_mistakes_get_the_same_help_as_python(copied, old, new, expect):
     (copied / "bad.toml").write_text(text.replace(old, new, 1))
     out = CliRunner().invoke(main, ["check", str(copied / "bad.toml")])
     assert out.exit_code == 2 and expect in out.output, out.output
+
+
+def test_without_the_cli_extra_the_command_says_how_to_install_it():
+    # a base install has no click / rich / pydantic: no traceback, a message and exit code 6
+    code = (
+        "import sys\n"
+        "class Hide:\n"
+        "    def find_spec(self, name, path=None, target=None):\n"
+        "        if name.split('.')[0] in ('click', 'rich', 'pydantic'):\n"
+        "            raise ImportError(name)\n"
+        "sys.meta_path.insert(0, Hide())\n"
+        "import importlib.util\n"
+        "importlib.util.find_spec = lambda name, *a: None if name in ('click', 'rich', 'pydantic') else 1\n"
+        "from learnopt.interface.cli import main\n"
+        "main()\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 6 and "pip install 'learnopt[cli]'" in out.stderr
+    assert "Traceback" not in out.stderr

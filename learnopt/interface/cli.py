@@ -1,207 +1,25 @@
-"""The ``learnopt`` command line: run, check, compare and path a recipe; demo.
+"""The ``learnopt`` command's entry point.
 
-Exit codes: 0 the fit is certified optimal (or the check passed); 1 the fit is not certified
-(unverified, infeasible, unbounded, failed); 2 invalid input (recipe, data, parameters);
-3 a piece is not convex; 4 no usable solver; 5 too large for the route; 6 a package is missing.
-Every command takes ``--json`` for machine-readable output. Lists of names (solvers, actions)
-come from their registries. A recipe that uses a key renamed in this release still runs; the
-renaming is noted on stderr.
+The commands live in :mod:`learnopt.interface.commands`. They need the ``cli`` extra (click and
+rich for the screen, pydantic for recipes); without it, ``learnopt`` prints how to install it
+and exits with code 6 instead of showing an import traceback.
 """
 from __future__ import annotations
 
-import difflib
-import json
-import os
+import importlib.util
 import sys
-import warnings
 
-import pandas as pd
+EXTRA = ("click", "rich", "pydantic")
+MISSING = [name for name in EXTRA if importlib.util.find_spec(name) is None]
 
-from learnopt.core.checks import shown
-from learnopt.core.version import __version__
-from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
-from learnopt.core.status import CAUTION
-from learnopt.interface import jobs
-from learnopt.interface.demo import write_demo
-from learnopt.interface.recipes import load_recipe, read_recipe
-from learnopt.solve.fitfile import to_dict
-from learnopt.solve.solvers import REGISTRY as SOLVERS
-
-try:
-    import click
-    from rich.console import Console
-    from rich.table import Table
-except ImportError as exc:  # pragma: no cover - exercised only without the cli extra
-    raise MissingDependencyError("The command line needs click and rich: pip install 'learnopt[cli]'.") from exc
-
-
-def _console() -> Console:
-    return Console(highlight=False, soft_wrap=True)
-
-
-def _fail(exc: LearnoptError, as_json: bool) -> None:
-    if as_json:
-        click.echo(json.dumps({"error": type(exc).__name__, "message": str(exc), "problems": exc.problems}))
-    else:
-        _console().print(f"[bold red]{type(exc).__name__}[/]: {exc}")
-    sys.exit(exc.exit_code)
-
-
-def _frame_table(frame, title: str) -> Table:
-    table = Table(title=title)
-    table.add_column(str(frame.index.name or ""))
-    for c in frame.columns:
-        table.add_column(str(c), justify="right")
-    for idx, row in frame.iterrows():
-        table.add_row(str(idx), *[f"{v:.6g}" if isinstance(v, float) else str(v) for v in row])
-    return table
-
-
-def _show(job, as_json: bool) -> None:
-    fit = job.fit
-    if as_json:
-        out = {"fit": to_dict(fit), "written": job.written}
-        if job.compare is not None:
-            out["compare"] = json.loads(job.compare.to_json(orient="index"))
-        if job.path is not None:
-            out["path"] = json.loads(job.path.table.to_json(orient="records"))
-        if job.evaluation is not None:
-            out["evaluation"] = json.loads(job.evaluation.metrics.to_json())
-        click.echo(json.dumps(out, default=str))
-        return
-    con = _console()
-    ev = pd.DataFrame({"value": [fit.status, f"{fit.objective:.10g}", f"{fit.gap:.3g} (relative {fit.rel_gap:.3g})",
-                                 f"{fit.violation:.3g}", fit.route, str(fit.solver),
-                                 ", ".join(f"{k} {v:.3f}s" for k, v in fit.timings.as_dict().items())]},
-                      index=pd.Index(["status", "objective", "certified gap", "worst violation", "route",
-                                      "solver", "timings"], name="evidence"))
-    con.print(_frame_table(ev, job.recipe.title or "learnopt fit"))
-    con.print(fit.message)
-    con.print(_frame_table(fit.coefficients(), "coefficients"))
-    if len(fit.prices):
-        pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
-        pr.index.name = "rule"
-        con.print(_frame_table(pr, "rules: price per unit relaxation"))
-    if len(fit.conflicts):
-        cf = fit.conflicts.to_frame("must move by")
-        cf.index.name = "rule"
-        con.print(_frame_table(cf, "conflicting rules (each alone, in its own units)"))
-    if fit.attempts:
-        con.print(_frame_table(fit.attempt_table()[["outcome", "seconds"]], "solver attempts"))
-    if job.compare is not None:
-        cols = [c for c in ("status", "objective", "gap", "steps", "total_s", "max_coef_diff")
-                if c in job.compare.columns]
-        con.print(_frame_table(job.compare[cols], "solver comparison"))
-    if job.path is not None:
-        con.print(_frame_table(job.path.table.set_index("strength")[["status", "objective", "gap", "nonzero"]],
-                               "path"))
-    if job.evaluation is not None:
-        con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
-    for path in job.written:
-        con.print(f"wrote {path}")
-    con.print(CAUTION)
-
-
-def _read(reader, recipe_path):
-    """``reader(recipe_path)``; learnopt's deprecation notes (renamed recipe keys) go to stderr."""
-    home = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        out = reader(recipe_path)
-    for w in caught:
-        if issubclass(w.category, DeprecationWarning) and os.path.abspath(w.filename).startswith(home):
-            click.echo(f"note: {w.message}", err=True)
-        else:
-            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    return out
-
-
-def _run(recipe_path, as_json, report, **overrides):
-    try:
-        job = jobs.run(_read(read_recipe, recipe_path), report=report, **overrides)
-    except LearnoptError as exc:
-        _fail(exc, as_json)
-    _show(job, as_json)
-    sys.exit(0 if job.ok else 1)
-
-
-_json = click.option("--json", "as_json", is_flag=True, help="Machine-readable output.")
-_report = click.option("--report", type=click.Path(dir_okay=False), default=None,
-                       help="Write a self-contained HTML report here.")
-
-
-@click.group(help="learnopt: convex learning tasks with rules, solved and certified.")
-@click.version_option(__version__, "--version", prog_name="learnopt", message="%(prog)s %(version)s")
-def main():
-    pass
-
-
-@main.command(help="Solve a recipe and show the evidence and coefficients.")
-@click.argument("recipe", type=click.Path(dir_okay=False))
-@_json
-@_report
-def run(recipe, as_json, report):
-    _run(recipe, as_json, report)
-
-
-@main.command(help="Check a recipe (validation, data, convexity) without solving.")
-@click.argument("recipe", type=click.Path(dir_okay=False))
-@_json
-def check(recipe, as_json):
-    try:
-        task = _read(load_recipe, recipe)
-        verdict = task.check()
-    except LearnoptError as exc:
-        _fail(exc, as_json)
-    if as_json:
-        click.echo(json.dumps({"convex": verdict.convex, "problem_class": verdict.problem_class,
-                               "pieces": verdict.pieces, "reasons": verdict.reasons, "data": verdict.data}))
-    else:
-        _console().print(str(verdict))
-    sys.exit(0 if verdict.convex else 3)
-
-
-@main.command(help="Solve a recipe with several solvers and compare them.")
-@click.argument("recipe", type=click.Path(dir_okay=False))
-@click.option("--solvers", default=None,
-              help=f"Comma-separated, from {','.join(SOLVERS)} (default: the recipe's do.solvers).")
-@_json
-@_report
-def compare(recipe, solvers, as_json, report):
-    names = [s.strip().lower() for s in solvers.split(",") if s.strip()] if solvers else None
-    unknown = [n for n in names or () if n not in SOLVERS]
-    if unknown:
-        close = [m for n in unknown for m in difflib.get_close_matches(n, list(SOLVERS), n=1)]
-        hint = f" Did you mean {', '.join(close)}?" if close else ""
-        _fail(ParameterError(f"--solvers names unknown solvers {', '.join(unknown)}.{hint} "
-                             f"Known solvers: {', '.join(SOLVERS)}."), as_json)
-    _run(recipe, as_json, report, action="compare", solvers=names)
-
-
-@main.command(help="Walk a grid of penalty strengths and show the path table.")
-@click.argument("recipe", type=click.Path(dir_okay=False))
-@click.option("--grid", default=None, help="Comma-separated strengths (default: from the zeroing strength down).")
-@click.option("--n", "count", type=click.IntRange(2, 500), default=None, help="Number of strengths.")
-@_json
-@_report
-def path(recipe, grid, count, as_json, report):
-    values = None
-    if grid:
-        try:
-            values = [float(v) for v in grid.split(",") if v.strip()]
-        except ValueError:
-            _fail(ParameterError(f"--grid must be comma-separated numbers, e.g. 1,0.1,0.01. "
-                                 f"Got {shown(grid)} instead."), as_json)
-    _run(recipe, as_json, report, action="path", grid=values, n=count)
-
-
-@main.command(help="Write the bundled demo (invented data + recipe) to a folder and run it.")
-@click.option("--folder", type=click.Path(file_okay=False), default="learnopt-demo", show_default=True)
-@_json
-@_report
-def demo(folder, as_json, report):
-    recipe = write_demo(folder)
-    _run(recipe, as_json, report)       # the recipe names its own report (out/...)
+if not MISSING:
+    from learnopt.interface.commands import main
+else:
+    def main(args=None) -> None:
+        """Without the cli extra: say what is missing and how to get it."""
+        print(f"learnopt's command line needs {', '.join(MISSING)}: pip install 'learnopt[cli]'",
+              file=sys.stderr)
+        raise SystemExit(6)
 
 
 if __name__ == "__main__":  # pragma: no cover
