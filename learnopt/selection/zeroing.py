@@ -21,13 +21,11 @@ put the top of the grid a thousand times too high.
 """
 from __future__ import annotations
 
-import warnings
-
 import cvxpy as cp
 import numpy as np
 
 from learnopt.problem.algebra import loss_argument
-from learnopt.solve.routes.base import quiet
+from learnopt.solve.small import kink_rows, solve_small
 from learnopt.terms.penalties import Separable
 
 ZERO = 1e-9          # |w_j| below this (relative) is read as zero
@@ -60,18 +58,12 @@ def zeroing_strength(problem, index: int, theta: np.ndarray):
     p = theta.size
     variables, pieces, cons = [], [], []
     # the loss's dual values on rows at a kink are free within the subgradient interval
-    kinks = loss.kinks()
-    at = np.zeros(0, dtype=int)
-    if kinks is not None:
-        size = max(1.0, float(np.abs(z).max(initial=0.0)))
-        at = np.flatnonzero(np.any([np.abs(z - k) <= 1e-6 * size for k in kinks], axis=0) & (rw > 0))
-        if at.size:
-            h = 1e-3
-            low = np.minimum(loss.gradient(z[at] - h), loss.gradient(z[at] + h))
-            high = np.maximum(loss.gradient(z[at] - h), loss.gradient(z[at] + h))
-            du = cp.Variable(at.size)
-            cons += [u0[at] + du >= low, u0[at] + du <= high]
-            pieces.append(np.asarray(M[at].T @ np.eye(at.size)) * rw[at] @ du)
+    found = kink_rows(loss, z, rw, 1e-6)
+    if found is not None:
+        at, low, high = found
+        du = cp.Variable(at.size)
+        cons += [u0[at] + du >= low, u0[at] + du <= high]
+        pieces.append(np.asarray(M[at].T @ np.eye(at.size)) * rw[at] @ du)
     # the rules' multipliers: on active rows only, signed by the rule's sense
     for r in problem.requirements:
         mu = cp.Variable(r.rows)
@@ -110,16 +102,9 @@ def zeroing_strength(problem, index: int, theta: np.ndarray):
     if at_zero.size == 0:
         return None
     prob = cp.Problem(cp.Minimize(lam), cons)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        try:
-            with quiet(True):
-                prob.solve(solver="HIGHS")
-        except cp.error.SolverError:
-            return None
-    if prob.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE) or lam.value is None:
+    if not solve_small(prob, None) or lam.value is None:
         return None
     u = u0.copy()
-    if kinks is not None and at.size:
+    if found is not None:
         u[at] = np.clip(u0[at] + np.asarray(du.value, float), low, high)
     return float(lam.value), [np.asarray(mu.value, float).ravel() for mu in variables], u

@@ -19,7 +19,6 @@ evaluates inf = -R*(-g_w) in closed form (a small exact solve for mixtures of pe
 """
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import cvxpy as cp
@@ -29,6 +28,7 @@ import scipy.linalg as sla
 from learnopt.terms.penalties import CustomPenalty, Separable, separable_conjugate, separable_shrink
 from learnopt.problem.algebra import loss_argument
 from learnopt.rules.requirements import Requirement
+from learnopt.solve.small import kink_rows, solve_small
 from learnopt.solve.rule_duals import KINKS, feasibility, fitted_rule_terms, requirement_terms
 
 
@@ -113,31 +113,21 @@ def inf_penalty(g_w, penalties, names) -> tuple[float, float]:
         conj = conj + expr
     s = cp.Variable()
     feas = cp.Problem(cp.Maximize(s), cons + [sum(vs) == -s * g_w, s <= 1, s >= 0])
-    if not _solve_small(feas) or s.value is None or s.value <= 0:
+    if not _exact_small(feas) or s.value is None or s.value <= 0:
         return 1.0, -np.inf
     s_val = float(min(1.0, s.value * (1 - 1e-7)))
     split = cp.Problem(cp.Minimize(conj), cons + [sum(vs) == -s_val * g_w])
-    if not _solve_small(split):
+    if not _exact_small(split):
         return s_val, -np.inf
     # any feasible split gives a valid (possibly weaker) bound
     return s_val, -float(split.value)
-
-
-def _solve_small(prob) -> bool:
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            prob.solve(solver="CLARABEL", tol_gap_abs=1e-10, tol_gap_rel=1e-10, tol_feas=1e-10)
-    except cp.error.SolverError:
-        return False
-    return prob.status == cp.OPTIMAL
 
 
 def _inf_by_primal_solve(g_w, penalties, names):
     """inf_w g.w + R(w) by one small solve (custom penalties have no conjugate)."""
     w = cp.Variable(len(g_w))
     prob = cp.Problem(cp.Minimize(g_w @ w + sum(p.expr(w, names) for p in penalties)))
-    if not _solve_small(prob):
+    if not _exact_small(prob):
         return 1.0, -np.inf
     return 1.0, float(prob.value)
 
@@ -169,10 +159,10 @@ def _joint(requirements, multipliers, theta, start, T, t, kink, M, a, z, loss, l
     """Norm rules' multipliers and the loss's dual values on rows at a loss kink, fitted
     together (see learnopt.solve.rule_duals.fitted_rule_terms); None when there are too many
     such rows for a small dense solve."""
-    size = max(1.0, float(np.abs(z).max(initial=0.0)))
-    rows = np.flatnonzero(np.any([np.abs(z - k) <= tol * size for k in loss.kinks()], axis=0) & (a > 0))
-    if rows.size == 0 or rows.size > 2000:
+    found = kink_rows(loss, z, a, tol)
+    if found is None or found[0].size > 2000:
         return None
+    rows = found[0]
     K_u = T @ (np.asarray(M[rows].T @ np.eye(rows.size)) * a[rows])
     g_rest = M.T @ (a * start)
     fitted = fitted_rule_terms(requirements, multipliers, theta, g_rest, T, t, kink,
@@ -189,17 +179,13 @@ def _kink_start(loss, z, low, high, tol: float = 1e-6):
     """For a piecewise-linear loss, the dual point the primal point implies: the loss slope on
     rows away from a kink, the middle of the subgradient interval on rows at a kink (where the
     repair may then move it). None for losses without kinks."""
-    kinks = loss.kinks()
-    if kinks is None:
+    if loss.kinks() is None:
         return None
     u = np.asarray(loss.gradient(z), float)
-    size = max(1.0, float(np.abs(z).max(initial=0.0)))
-    for k in kinks:
-        at = np.abs(z - k) <= tol * size
-        if at.any():
-            h = 1e-3 * (1.0 + abs(k))
-            middle = 0.5 * (loss.gradient(np.array([k - h]))[0] + loss.gradient(np.array([k + h]))[0])
-            u[at] = middle
+    found = kink_rows(loss, z, np.ones_like(z), tol)
+    if found is not None:
+        rows, left, right = found
+        u[rows] = 0.5 * (left + right)
     return np.clip(u, low, high)
 
 
@@ -378,3 +364,8 @@ def certify_point(task, theta, u, mults, enough: float = 0.0):
     return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
                    requirements=list(task.requirements), theta=theta, u=u, multipliers=mults,
                    intercept=task.intercept, enough=enough)
+
+
+def _exact_small(prob) -> bool:
+    """The penalty parts' small programs: Clarabel at 1e-10, an exact optimum only."""
+    return solve_small(prob, 1e-10, accept_inaccurate=False)

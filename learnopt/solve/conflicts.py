@@ -19,11 +19,10 @@ second-order cone program (Clarabel at tight tolerances).
 """
 from __future__ import annotations
 
-import warnings
 
 import cvxpy as cp
 
-from learnopt.solve.routes.base import quiet
+from learnopt.solve.small import solve_small
 FEASIBLE = 1e-9        # total slack (relative to the rules' numbers) read as "they all hold"
 
 
@@ -54,17 +53,7 @@ def _smallest_slack(groups: dict[str, list], p: int, movable: list[str] | None):
     objective = cp.sum(cp.hstack(list(s.values()))) if s else cp.Constant(0.0)
     prob = cp.Problem(cp.Minimize(objective), cons)
     linear = all(r.sense != "norm" for reqs in groups.values() for r in reqs)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        try:
-            if linear:
-                with quiet(True):                 # HiGHS prints a banner of its own
-                    prob.solve(solver="HIGHS")
-            else:
-                prob.solve(solver="CLARABEL", tol_gap_abs=1e-12, tol_gap_rel=1e-12, tol_feas=1e-12)
-        except cp.error.SolverError:
-            return None
-    if prob.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE):
+    if not solve_small(prob, None if linear else 1e-12):
         return None
     return {name: max(float(v.value), 0.0) for name, v in s.items()}
 

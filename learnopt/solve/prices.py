@@ -16,13 +16,11 @@ zero coefficients and the loss's dual values on rows at a kink.
 """
 from __future__ import annotations
 
-import warnings
-
 import cvxpy as cp
 import numpy as np
 
 from learnopt.problem.algebra import loss_argument
-from learnopt.solve.routes.base import quiet
+from learnopt.solve.small import kink_rows, solve_small
 from learnopt.terms.penalties import Separable
 
 ZERO = 1e-9        # |w_j| below this (relative to the largest) is read as zero
@@ -63,17 +61,12 @@ def smallest_prices(problem, theta, multipliers) -> dict[int, float] | None:
     u0 = np.asarray(loss.gradient(z), float)
     g = cp.Constant(np.asarray(M.T @ (a * u0), float))
     cons = []
-    kinks = loss.kinks()
-    if kinks is not None:
-        size = max(1.0, float(np.abs(z).max(initial=0.0)))
-        at = np.flatnonzero(np.any([np.abs(z - k) <= KINK * size for k in kinks], axis=0) & (a > 0))
-        if at.size:
-            h = 1e-3
-            lo_, hi_ = loss.gradient(z[at] - h), loss.gradient(z[at] + h)
-            low, high = np.minimum(lo_, hi_), np.maximum(lo_, hi_)
-            du = cp.Variable(at.size)
-            cons += [u0[at] + du >= low, u0[at] + du <= high]
-            g = g + (np.asarray(M[at].T @ np.eye(at.size)) * a[at]) @ du
+    found = kink_rows(loss, z, a, KINK)
+    if found is not None:
+        at, low, high = found
+        du = cp.Variable(at.size)
+        cons += [u0[at] + du >= low, u0[at] + du <= high]
+        g = g + (np.asarray(M[at].T @ np.eye(at.size)) * a[at]) @ du
     size_w = max(1.0, float(np.abs(w).max(initial=0.0)))
     zero = np.abs(w) <= ZERO * size_w
     a1 = sum((pen.separable(problem.features)[0] for pen in problem.penalties), np.zeros(d))
@@ -100,24 +93,13 @@ def smallest_prices(problem, theta, multipliers) -> dict[int, float] | None:
     # of the other dual points than that
     resid = cp.Variable(nonneg=True)
     best = cp.Problem(cp.Minimize(resid), cons + [cp.abs(g) <= resid])
-    if not _solve(best):
+    if not solve_small(best, None):
         return None
     scale = 1.0 + float(np.abs(np.asarray(M.T @ (a * np.abs(u0)), float)).max(initial=0.0))
     slack = 2.0 * float(resid.value) + 1e-12 * scale
     out = {}
     for k in targets:
         prob = cp.Problem(cp.Minimize(cp.sum(mus[k])), cons + [cp.abs(g) <= slack])
-        if _solve(prob):
+        if solve_small(prob, None):
             out[k] = max(float(prob.value), 0.0)
     return out
-
-
-def _solve(prob) -> bool:
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        try:
-            with quiet(True):
-                prob.solve(solver="HIGHS")
-        except cp.error.SolverError:
-            return False
-    return prob.status in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE)

@@ -24,10 +24,11 @@ system the certificate must meet. Any choice is a valid bound; this one makes it
 """
 from __future__ import annotations
 
-import warnings
 
 import cvxpy as cp
 import numpy as np
+
+from learnopt.solve.small import solve_small
 
 KINK = 1e-7        # |y_j| below this (relative to the rule's size) is read as a kink ...
 KINKS = (KINK, 1e-4)  # ... or, for points from first-order solvers, below this: reading a small
@@ -189,12 +190,6 @@ def _constrained(K, target, fitted, where, box=None):
         if free.size:
             cons.append(cp.norm(x[k + 1: k + 1 + free.size], np.inf if r.order == 1 else 2) <= x[k])
     problem = cp.Problem(cp.Minimize(cp.norm(K @ x - target, 2)), cons)
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            problem.solve(solver="CLARABEL", tol_gap_abs=1e-15, tol_gap_rel=1e-15, tol_feas=1e-15)
-    except cp.error.SolverError:
-        return None
-    if problem.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE) or x.value is None:
+    if not solve_small(problem, 1e-15) or x.value is None:
         return None
     return np.asarray(x.value, float)

@@ -8,9 +8,6 @@ the certificate) and one multiplier per requirement (in ``task.requirements`` or
 """
 from __future__ import annotations
 
-import contextlib
-import os
-import sys
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -21,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from learnopt.solve.certificate import Certificate, certify_point
+from learnopt.solve.small import quiet
 from learnopt.solve.timings import Timings
 
 
@@ -169,28 +167,6 @@ def read_multipliers(pairs) -> list:
         else:
             out.append(float(np.sum(dv)) if r.sense == "norm" else np.asarray(dv, float).ravel())
     return out
-
-
-@contextlib.contextmanager
-def quiet(enabled: bool):
-    """Silence a solver's own start-up banner written straight to the C-level stdout."""
-    if not enabled:
-        yield
-        return
-    try:
-        fd = sys.stdout.fileno()
-    except (AttributeError, OSError, ValueError):
-        yield
-        return
-    sys.stdout.flush()
-    saved = os.dup(fd)
-    try:
-        with open(os.devnull, "w") as null:
-            os.dup2(null.fileno(), fd)
-            yield
-    finally:
-        os.dup2(saved, fd)
-        os.close(saved)
 
 
 def run(problem: cp.Problem, spec, options: dict, verbose: bool, warm: bool = False):
