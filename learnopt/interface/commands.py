@@ -74,7 +74,7 @@ def _show(job, as_json: bool) -> None:
     ev = pd.DataFrame({"value": [fit.status, f"{fit.objective:.10g}", f"{fit.gap:.3g} (relative {fit.rel_gap:.3g})",
                                  f"{fit.violation:.3g}", fit.route, str(fit.solver),
                                  ", ".join(f"{k} {v:.3f}s" for k, v in fit.timings.as_dict().items())]},
-                      index=pd.Index(["status", "objective", "certified gap", "worst violation", "route",
+                      index=pd.Index(["status", "objective", "certified gap", "worst violation (absolute)", "route",
                                       "solver", "timings"], name="evidence"))
     con.print(_frame_table(ev, job.recipe.title or "learnopt fit"))
     con.print(fit.message)

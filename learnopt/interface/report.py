@@ -84,7 +84,7 @@ def html(job) -> str:
     ev = pd.DataFrame({"value": [fit.status, fit.message, fit.objective, fit.gap, fit.rel_gap, fit.violation,
                                  fit.solver, fit.route] + list(fit.timings.as_dict().values())},
                       index=pd.Index(["status", "message", "objective", "certified gap", "relative gap",
-                                      "worst violation", "solver", "route"]
+                                      "worst violation (absolute)", "solver", "route"]
                                      + [f"{k} seconds" for k in fit.timings.as_dict()], name="evidence"))
     parts.append("<h2>Evidence</h2>" + _table(ev))
     if len(fit.conflicts):

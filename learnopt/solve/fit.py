@@ -170,7 +170,7 @@ class Fit:
     def summary(self) -> str:
         lines = [f"status     {self.status}  ({self.message})",
                  f"objective  {self.objective:.10g}",
-                 f"gap        {self.gap:.3g} (relative {self.rel_gap:.3g}), worst violation {self.violation:.3g}",
+                 f"gap        {self.gap:.3g} (relative {self.rel_gap:.3g}), worst violation {self.violation:.3g} (absolute)",
                  f"solver     {self.solver}  route {self.route}",
                  *([f"KKT        stationarity {self.certificate.stationarity:.3g} (before repair), "
                     f"complementarity {self.certificate.complementarity:.3g}"] if self.certificate else []),

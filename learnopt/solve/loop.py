@@ -314,7 +314,7 @@ def _assemble(task, route, attempts, best: Candidate | None, verdict, conflicts,
     cert, theta = best.certificate, best.theta
     if cert.passes(gap_tol, feas_tol):
         status, msg = Status.OPTIMAL, (f"certified: relative gap {cert.rel_gap:.2g} <= {gap_tol:g}, "
-                                       f"worst violation {cert.rel_violation:.2g} <= {feas_tol:g}")
+                                       f"worst relative violation {cert.rel_violation:.2g} <= {feas_tol:g}")
     else:
         why = []
         if not np.isfinite(cert.gap) or cert.rel_gap > gap_tol:
