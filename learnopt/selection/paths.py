@@ -215,13 +215,16 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
             raise ParameterError("No strength tried set the penalised coefficients to zero; "
                                  "pass grid=[...] explicitly.")
         grid, top_duals = default_grid(runner.task, index, top_fit, int(n), ratio)
-        # the first point's optimum is the restricted one just found: start there, exactly zero
-        # (certified at the first strength, it is taken as it is)
-        start = np.asarray(top_fit.theta, float).copy()
-        acts = _acts_on(runner.task, index)
-        start[: acts.size][acts] = 0.0
-        runner.start = start
-        runner.start_multipliers, runner.start_dual = top_duals if top_duals is not None else (None, None)
+        if top_duals is not None:
+            # the first point's optimum is the restricted one just found (exactly zero where the
+            # penalty acts): certified at the first strength with those duals, it is taken as it is
+            start = np.asarray(top_fit.theta, float).copy()
+            acts = runner.task.penalties[index].with_strength(1.0).separable(runner.task.features)[0] > 0
+            start[: acts.size][acts] = 0.0
+            runner.start = start
+            runner.start_multipliers, runner.start_dual = top_duals
+            # the solvers' last state is the search's, far above the grid: the next point starts cold
+            runner.cold = True
     grid = np.sort(grid)[::-1]
     fits, rows = [], []
     bar = _Progress(len(grid), "path", progress)
@@ -263,16 +266,6 @@ def _strength_scale(task, index) -> float:
 def _settled(fit) -> bool:
     """A certified fit at a huge strength where rules hold some coefficients away from zero."""
     return fit.status == Status.OPTIMAL and bool(fit.binding.any()) if len(fit.binding) else False
-
-
-def _acts_on(task, index) -> np.ndarray:
-    """Which coefficients penalty ``index`` sets to zero (l1-type weights > 0; else all it touches)."""
-    unit = task.penalties[index].with_strength(1.0)
-    if isinstance(unit, Separable):
-        return unit.separable(task.features)[0] > 0
-    N = unit.null_space(task.features)
-    moved = np.eye(task.dataset.d) - N @ N.T if N.shape[1] else np.eye(task.dataset.d)
-    return np.abs(moved).sum(axis=0) > 1e-12
 
 
 def _all_zero(task, index, fit) -> bool:

@@ -320,34 +320,39 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
     kinked = _kink_start(loss, z, low, high)       # losses one rebuilt from the point's own rows
     if kinked is not None:
         starts.append(kinked)
-    norm_rules = any(r.sense == "norm" for r in requirements)
-    done = False
-    for T, t in repair_targets(theta, penalties, names, N):
-        for start in starts:
+    kinks = (None,) + (KINKS if any(r.sense == "norm" for r in requirements) else ())
+
+    def repaired(start, T, t, terms):
+        return _repair(start, T, t, M, a, lambda v: gradient(v, terms), low, high) if T.shape[0] else start
+
+    def combinations():          # lazily: the first readings are usually enough
+        for T, t in repair_targets(theta, penalties, names, N):
+            for start in starts:
+                for kink in kinks:
+                    yield T, t, start, kink
+
+    for T, t, start, kink in combinations():
+        if kink is None:
+            terms = closed
+        elif T.shape[0]:
             g_start = g_loss if start is u else M.T @ (a * start)
-            for kink in (None,) + (KINKS if norm_rules and T.shape[0] else ()):
-                terms = closed if kink is None else fitted_rule_terms(requirements, multipliers, theta, g_start,
-                                                                      T, t, kink)
-                if terms is None:
-                    continue
-                uu = _repair(start, T, t, M, a, lambda v, terms=terms: gradient(v, terms), low, high) \
-                    if T.shape[0] else start
-                if kink is not None and start is kinked and not free_ok(gradient(uu, terms)):
-                    # the rules' multipliers and the loss's dual values on the rows at a kink
-                    # settle each other: fit them together, then repair what round-off is left
-                    joint = _joint(requirements, multipliers, theta, start, T, t, kink, M, a, z, loss, low, high)
-                    if joint is not None:
-                        terms, uu = joint
-                        uu = _repair(uu, T, t, M, a, lambda v, terms=terms: gradient(v, terms), low, high)
-                readings.append((uu, terms))
-                dual = max(dual, bound(uu, terms))
-                done = (primal - dual) <= enough * max(1.0, abs(primal))
-                if done:
-                    break             # tight enough: further readings cannot matter
-            if done:
-                break
-        if done:
-            break
+            terms = fitted_rule_terms(requirements, multipliers, theta, g_start, T, t, kink)
+        else:
+            continue
+        if terms is None:
+            continue
+        uu = repaired(start, T, t, terms)
+        if kink is not None and start is kinked and not free_ok(gradient(uu, terms)):
+            # the rules' multipliers and the loss's dual values on the rows at a kink settle
+            # each other: fit them together, then repair what round-off is left
+            joint = _joint(requirements, multipliers, theta, start, T, t, kink, M, a, z, loss, low, high)
+            if joint is not None:
+                terms, uu = joint
+                uu = repaired(uu, T, t, terms)
+        readings.append((uu, terms))
+        dual = max(dual, bound(uu, terms))
+        if (primal - dual) <= enough * max(1.0, abs(primal)):
+            break                     # tight enough: further readings cannot matter
     if not np.isfinite(dual):
         note = ("the dual point could not be made exactly stationary along the free directions "
                 "(intercept and unpenalised coefficients); no finite dual bound") if N.shape[1] and \

@@ -100,8 +100,10 @@ def exact_zeros(problem, theta, check, gap_tol: float, feas_tol: float):
 
 
 def _reproduces_rows(task, theta) -> bool:
-    """Do the residuals vanish on every training row (in memory, residual losses, 3 rows or more)?"""
-    if task.sharded or task.loss.argument != "residual" or task.dataset.n < 3:
+    """Do the residuals vanish on every training row while there are at least as many free
+    coefficients as rows (in memory, residual losses)? A tall fit that reproduces noise-free data
+    is a good fit, not interpolation, so it is not checked (nor paid for)."""
+    if task.sharded or task.loss.argument != "residual" or task.dataset.d + int(task.intercept) < task.dataset.n:
         return False
     M, q, _ = loss_argument(task)
     resid = M @ theta - q
@@ -185,6 +187,10 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
                     f"relative violation {cert.rel_violation:.3g}")
         return cert.passes(gap_tol, feas_tol)
 
+    def price(mults, theta, cert):
+        # multipliers below 1% of the gap tolerance are a non-binding rule's round-off
+        return _prices(problem, mults, theta, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
+
     runner.configure(settings, goal)
     if runner.start is not None and runner.start_multipliers is not None:
         t0 = time.perf_counter()
@@ -193,7 +199,7 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
         if cert.passes(gap_tol, feas_tol):
             wall = time.perf_counter() - t0
             attempts.append(Attempt("start", "the given start point; certificate passed", cert.primal, cert.gap, wall))
-            prices, binding = _prices(problem, mults, start, feas_tol, gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
+            prices, binding = price(mults, start, cert)
             best = Candidate(rank=candidate_rank(cert, True, feas_tol), solver="none (start point certified)",
                              theta=start, certificate=cert, timings=Timings(runner.build_seconds, 0.0, 0.0, wall),
                              prices=prices, binding=binding, extras={"iterations": 0, "multipliers": mults})
@@ -207,7 +213,9 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
             seen.clear()
             opts = {**spec.settings(tol_k, time_limit), **settings.solver_options}
             try:
-                out = runner.run(spec, opts, settings.verbose, warm=k > 0 or runner.start is not None)
+                warm = k > 0 or (runner.start is not None and not runner.cold)
+                runner.cold = False
+                out = runner.run(spec, opts, settings.verbose, warm=warm)
             except SOLVER_FAULTS as exc:
                 attempts.append(Attempt(label, f"error: {str(exc).splitlines()[0][:200]}",
                                         seconds=time.perf_counter() - t0))
@@ -247,7 +255,7 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
                 cert_s = time.perf_counter() - t1 + seen.get("seconds", 0.0)
             ok = cert.passes(gap_tol, feas_tol)
             raw = None
-            if ok and runner.name != "sharded":
+            if ok and runner.name != "sharded" and "refined" not in out.details:   # refined: exact already
                 snapped = exact_zeros(problem, theta, lambda th: check(th, out.u, out.multipliers), gap_tol, feas_tol)
                 if snapped is not None:
                     raw, (theta, cert) = theta, snapped
@@ -255,10 +263,9 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
             attempts.append(Attempt(label, f"{status}; certificate {'passed' if ok else 'failed'}{late_note}",
                                     cert.primal, cert.gap, wall + cert_s))
             ticker.line(f"{runner.name} route, {label}: {attempts[-1].outcome}, relative gap {cert.rel_gap:.3g}")
-            prices, binding = _prices(problem, out.multipliers, theta, feas_tol,
-                                      gap_tol * max(1.0, abs(cert.primal)) * 1e-2)
             rank = candidate_rank(cert, ok, feas_tol)
-            if best is None or rank < best.rank:
+            if best is None or rank < best.rank:       # prices only for the point that may be kept
+                prices, binding = price(out.multipliers, theta, cert)
                 best = Candidate(rank=rank, solver=out.solved_by or spec.name, theta=theta, certificate=cert,
                                  timings=Timings(runner.build_seconds, out.compile_seconds, out.solve_seconds, cert_s),
                                  prices=prices, binding=binding,

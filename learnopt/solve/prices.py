@@ -19,13 +19,11 @@ from __future__ import annotations
 import cvxpy as cp
 import numpy as np
 
-from learnopt.problem.algebra import loss_argument
-from learnopt.solve.small import kink_rows, solve_small
+from learnopt.solve.dual_set import ZERO, covered, dual_set
+from learnopt.solve.small import solve_small
 from learnopt.terms.penalties import Separable
 
-ZERO = 1e-9        # |w_j| below this (relative to the largest) is read as zero
 KINK = 1e-9        # |z_i - kink| below this (relative) is a row at a loss kink
-ACTIVE = 1e-7      # a rule row with slack below this (relative) may carry a multiplier
 
 
 def degenerate(problem, theta) -> bool:
@@ -51,51 +49,17 @@ def smallest_prices(problem, theta, multipliers) -> dict[int, float] | None:
                if r.sense == "<=" and float(np.sum(m)) > 0]
     if not targets:
         return {}
-    if any(r.sense == "norm" for r in reqs) or not all(isinstance(p, Separable) for p in problem.penalties):
+    if not covered(problem, problem.penalties):
         return None
-    d, p = problem.dataset.d, theta.size
-    w = theta[:d]
-    M, q, a = loss_argument(problem)
-    z = M @ theta - q
-    loss = problem.loss
-    u0 = np.asarray(loss.gradient(z), float)
-    g = cp.Constant(np.asarray(M.T @ (a * u0), float))
-    cons = []
-    found = kink_rows(loss, z, a, KINK)
-    if found is not None:
-        at, low, high = found
-        du = cp.Variable(at.size)
-        cons += [u0[at] + du >= low, u0[at] + du <= high]
-        g = g + (np.asarray(M[at].T @ np.eye(at.size)) * a[at]) @ du
-    size_w = max(1.0, float(np.abs(w).max(initial=0.0)))
-    zero = np.abs(w) <= ZERO * size_w
-    a1 = sum((pen.separable(problem.features)[0] for pen in problem.penalties), np.zeros(d))
-    c2 = sum((pen.separable(problem.features)[1] for pen in problem.penalties), np.zeros(d))
-    fixed = np.zeros(p)
-    fixed[:d] = np.where(zero, 0.0, a1 * np.sign(w) + 2.0 * c2 * w)
-    g = g + fixed
-    sub = np.flatnonzero(zero & (a1 > 0))
-    if sub.size:
-        nu = cp.Variable(sub.size)
-        cons.append(cp.abs(nu) <= a1[sub])
-        g = g + np.eye(p)[:, sub] @ nu
-    mus = []
-    for r in reqs:
-        mu = cp.Variable(r.rows)
-        if r.sense == "<=":
-            cons.append(mu >= 0)
-            inactive = np.flatnonzero(r.rhs - r.A @ theta > ACTIVE * r.scale())
-            if inactive.size:
-                cons.append(mu[inactive] == 0)
-        g = g + r.A.T @ mu
-        mus.append(mu)
+    duals = dual_set(problem, theta, problem.penalties, KINK)
+    g, cons, mus = duals.g, duals.constraints, duals.multipliers
     # how well can the optimality conditions be met at this (numerical) point? then ask no more
     # of the other dual points than that
     resid = cp.Variable(nonneg=True)
     best = cp.Problem(cp.Minimize(resid), cons + [cp.abs(g) <= resid])
     if not solve_small(best, None):
         return None
-    scale = 1.0 + float(np.abs(np.asarray(M.T @ (a * np.abs(u0)), float)).max(initial=0.0))
+    scale = 1.0 + float(np.abs(np.asarray(duals.M.T @ (duals.a * np.abs(duals.u0)), float)).max(initial=0.0))
     slack = 2.0 * float(resid.value) + 1e-12 * scale
     out = {}
     for k in targets:

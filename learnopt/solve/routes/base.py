@@ -97,7 +97,9 @@ class RunnerBase:
     strength 1), so :meth:`set_strength` moves along a path without recompiling (cvxpy DPP).
     ``start`` is a warm start for iterative routes (the previous point of a path); with
     ``start_multipliers`` as well, the solve loop first checks whether ``start`` is already
-    certified (a path's first point, found exactly) and then skips the solvers.
+    certified (a path's first point, found exactly) and then skips the solvers; ``cold`` asks the
+    next solver run not to start from the solver's own last state (a path's search far above
+    its grid leaves a state that slows the next point down).
     """
 
     name: str = "?"
@@ -109,6 +111,7 @@ class RunnerBase:
     start: np.ndarray | None = None
     start_multipliers: list | None = None   # the rules' multipliers at ``start``, when known exactly
     start_dual: np.ndarray | None = None    # ... and the loss's dual point there (None: its gradient)
+    cold: bool = False      # the solver's last state is far from the next point: do not warm-start it
     settings: Settings = Settings()
     goal: Goal | None = None
     last_certificate: Certificate | None = None

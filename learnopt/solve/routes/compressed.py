@@ -29,7 +29,7 @@ from learnopt.core.errors import AccuracyWarning
 from learnopt.terms.penalties import Separable
 from learnopt.solve.certificate import certify
 from learnopt.solve.routes.base import RouteSpec, Outcome, RunnerBase, read_multipliers, run
-from learnopt.problem.algebra import objective, requirement_constraint
+from learnopt.problem.algebra import objective, penalty_value, requirement_constraint
 
 GRAM_LIMIT = 1e8    # largest condition number of the column-scaled G for which Gram + Cholesky is used
 QR_DENSE_LIMIT = 2e7  # a sparse design larger than this (rows x columns) is never densified for QR
@@ -230,10 +230,15 @@ class Runner(RunnerBase):
         moved = keep[keep < d]
         if np.any(np.sign(new[moved]) != sign[moved]):
             return None                                   # the active set was not the optimal one
-        before = objective(task, theta)
-        if objective(task, new) > before + 1e-13 * max(1.0, abs(before)):   # round-off allowed
+        before, after = self._small_objective(theta), self._small_objective(new)
+        if after > before + 1e-13 * max(1.0, abs(before + self.constant)):   # round-off allowed
             return None
         return new
+
+    def _small_objective(self, theta) -> float:
+        """The objective on the factor (the task's objective less the constant): p x p work."""
+        resid = self.R @ theta - self.r
+        return float(resid @ resid) + penalty_value(self.task, theta)
 
 
 ROUTE = RouteSpec("compressed", "squared loss: the design reduced exactly to a p x p factor, then a small problem", eligible, Runner, worth=lambda n, p: n > p)
