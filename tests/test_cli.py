@@ -52,8 +52,16 @@ def _python_energy():
             .require("increasing(`band=b1_cold`, `band=b2_mild`, `band=b3_warm`, `band=b4_hot`)", "occupancy >= 0"))
 
 
+def _python_depots():
+    df = pd.read_csv(RECIPES / "data" / "bike_stops.csv")
+    where = ("east_km", "north_km")
+    return (lo.centres(df, k=4, weights="refills", features=list(where), fixed=[(0.5, 0.5)])
+            .require(lo.rule.polygon([(0, 0), (7, 0), (7.5, 4), (6, 7), (0, 6.5)], features=where))
+            .require(lo.rule.segment((0.0, 3.0), (7.2, 3.0), features=where), centre=2))
+
+
 PYTHON_TWINS = {"deliveries.toml": _python_deliveries, "blend.toml": _python_blend,
-                "quality.toml": _python_quality, "energy.toml": _python_energy}
+                "quality.toml": _python_quality, "energy.toml": _python_energy, "depots.toml": _python_depots}
 
 
 def test_demo_data_files_are_what_the_seeded_script_writes():
@@ -61,7 +69,8 @@ def test_demo_data_files_are_what_the_seeded_script_writes():
     spec = importlib.util.spec_from_file_location("make_demo_data", RECIPES / "data" / "make_demo_data.py")
     gen = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(gen)
-    for frame, name in ((gen.blend(), "blend.csv"), (gen.quality(), "quality.csv"), (gen.energy(), "energy.csv")):
+    for frame, name in ((gen.blend(), "blend.csv"), (gen.quality(), "quality.csv"), (gen.energy(), "energy.csv"),
+                        (gen.make_bike_stops(), "bike_stops.csv")):
         pd.testing.assert_frame_equal(pd.read_csv(RECIPES / "data" / name),
                                       pd.read_csv(__import__("io").StringIO(frame.to_csv(index=False))))
 
@@ -77,6 +86,13 @@ def test_blend_recipe_recovers_a_blend():
 def test_every_recipe_builds_the_same_task_as_the_python_api(name):
     assert name in PYTHON_TWINS, f"add the Python twin of recipes/{name} to PYTHON_TWINS"
     ours, twin = load_recipe(RECIPES / name), PYTHON_TWINS[name]()
+    if isinstance(twin, lo.CentresTask):
+        assert (ours.names, ours.k, ours.fixed) == (twin.names, twin.k, twin.fixed)
+        assert ours.rules == twin.rules
+        np.testing.assert_array_equal(ours.X, twin.X)
+        np.testing.assert_array_equal(ours.weights, twin.weights)
+        assert ours.solve(restarts=3).objective == pytest.approx(twin.solve(restarts=3).objective, rel=1e-12)
+        return
     assert ours.loss == twin.loss and ours.penalties == twin.penalties and ours.intercept == twin.intercept
     assert [r.text for r in ours.rules] == [r.text for r in twin.rules]
     assert ours.features == twin.features
@@ -137,7 +153,7 @@ BAD = [
     ("[data]\npath='x.csv'\ncolour='red'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\n",
      ["data.colour: unknown key"]),
     ("[data]\npath='x.csv'\n[task]\nkind='ranking'\ntarget='y'\n[task.loss]\nname='squared'\n",
-     ["task.kind: Input should be 'regression' or 'classification'"]),
+     ["task.kind: ", "'centres'", "'ranking'"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='huber'\ndelta=-1\n"
      "[solve]\ntol=5\n", ["task.loss.delta: The 'delta' parameter of huber must be > 0", "solve.tol: Input should be less than 1"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\ntau=0.5\n",

@@ -21,17 +21,18 @@ from __future__ import annotations
 import re
 import time
 import warnings
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import cvxpy as cp
 import numpy as np
 import pandas as pd
 
+from learnopt.centres.result import CentresFit
+from learnopt.centres.verdict import PlacementVerdict, examine
 from learnopt.core import checks as params
 from learnopt.data.points import assign, coordinate_columns
-from learnopt.core.errors import DataError, NotConvexError, ParameterError
-from learnopt.core.status import CAUTION
+from learnopt.core.errors import DataError, ParameterError
 from learnopt.data.gateway import is_sharded_source
 from learnopt.data.sharded import open_points
 from learnopt.problem.algebra import requirement_constraint
@@ -51,7 +52,7 @@ class Placement:
     centre: int | None
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, repr=False)
 class CentresTask:
     """A constrained-centres task. Build it with :func:`centres`."""
 
@@ -91,7 +92,7 @@ class CentresTask:
 
     def _constraints(self):
         """Per centre, the list of Requirements over its coordinates."""
-        ctx = Context(self.names, None, None)
+        ctx = self.context()
         per = [[] for _ in range(self.k)]
         specs_all = [p.spec for p in self.rules if p.centre is None]
         common = compile_all(specs_all, ctx) if specs_all else []
@@ -99,6 +100,22 @@ class CentresTask:
             own = [p.spec for p in self.rules if p.centre == j + 1]
             per[j] = common + (compile_all(own, ctx) if own else [])
         return per
+
+    def context(self) -> Context:
+        """The names a rule may use: the coordinates."""
+        return Context(self.names, None, None)
+
+    def check(self) -> PlacementVerdict:
+        """Ready to place? The pieces, whether every centre's rules leave an allowed place, and
+        data findings (duplicate points, constant or very differently scaled coordinates, fixed
+        centres that break a rule), without solving."""
+        return examine(self, *_projectors(self, len(self.names)))
+
+    def __repr__(self) -> str:
+        n = ("sharded points" if self.source is not None else
+             f"{len(self.X)} points" if len(self.X) else "no points: a description read from a model file")
+        return (f"CentresTask({n}, coordinates {', '.join(self.names)}; k={self.k}, {len(self.fixed)} fixed, "
+                f"{len(self.rules)} rule{'s' * (len(self.rules) != 1)})")
 
     def solve(self, restarts: int = 10, seed: int = 0, *, max_iter: int = MAX_ITER,
               tol: float = 1e-10, client=None) -> "CentresFit":
@@ -176,8 +193,8 @@ def _allowed(reqs, point) -> bool:
 class _Projector:
     """Projection of a point onto one centre's allowed set, compiled once (cvxpy, DPP)."""
 
-    def __init__(self, reqs, d: int):
-        self.reqs = reqs
+    def __init__(self, reqs, d: int, who: str = "a centre"):
+        self.reqs, self.who = reqs, who
         self.m = cp.Parameter(d)
         self.c = cp.Variable(d)
         with warnings.catch_warnings():
@@ -193,10 +210,8 @@ class _Projector:
             warnings.simplefilter("ignore")
             self.problem.solve(solver="CLARABEL", tol_gap_abs=1e-12, tol_gap_rel=1e-12, tol_feas=1e-12)
         if self.c.value is None or self.problem.status not in ("optimal", "optimal_inaccurate"):
-            raise NotConvexError("A centre's rules leave no allowed place (the rules on that centre "
-                                 "conflict); check them with a single centre first.") \
-                if self.problem.status == "infeasible" else DataError(
-                f"The projection of a centre failed ({self.problem.status}).")
+            raise _no_place(self.who, self.reqs) if self.problem.status == "infeasible" else DataError(
+                f"The projection of {self.who} failed ({self.problem.status}).")
         return np.asarray(self.c.value, float)
 
 
@@ -205,10 +220,10 @@ class _ConeProjector:
     data are built once and only the linear term changes between calls, which avoids cvxpy's
     per-call overhead (measured ~10x faster on 2-D centres with a polygon and a ball)."""
 
-    def __init__(self, reqs, d: int):
+    def __init__(self, reqs, d: int, who: str = "a centre"):
         import clarabel
         import scipy.sparse as sp
-        self.reqs = reqs
+        self.reqs, self.who = reqs, who
         eq = [r for r in reqs if r.sense == "=="]
         le = [r for r in reqs if r.sense == "<="]
         soc = [r for r in reqs if r.sense == "norm"]
@@ -246,9 +261,8 @@ class _ConeProjector:
         status = str(sol.status)
         if "Solved" not in status:
             if "Infeasible" in status:
-                raise DataError("A centre's rules leave no allowed place (they conflict); check them on "
-                                "one centre first.")
-            raise DataError(f"The projection of a centre failed ({status}).")
+                raise _no_place(self.who, self.reqs)
+            raise DataError(f"The projection of {self.who} failed ({status}).")
         return np.asarray(sol.x, float)
 
 
@@ -308,12 +322,19 @@ def _projectors(task, d: int):
     movable = np.ones(task.k, bool)
     movable[:len(task.fixed)] = False          # existing centres stay where they are, rules or not
 
-    def projector(r):
+    def projector(r, who):
         if not r:
             return lambda point: point.copy()
-        return _ConeProjector(r, d) if _ConeProjector.handles(r) else _Projector(r, d)
+        return _ConeProjector(r, d, who) if _ConeProjector.handles(r) else _Projector(r, d, who)
 
-    return reqs, movable, [projector(r) if movable[j] else (lambda point: point.copy()) for j, r in enumerate(reqs)]
+    return reqs, movable, [projector(r, f"centre {j + 1}") if movable[j] else (lambda point: point.copy())
+                           for j, r in enumerate(reqs)]
+
+
+def _no_place(who: str, reqs) -> DataError:
+    rules = "; ".join(sorted({r.source for r in reqs}))
+    return DataError(f"The rules on {who} leave it no allowed place ({rules}); relax one of them or apply it to "
+                     f"fewer centres (task.check() lists every centre's rules).")
 
 
 def _solve(task, restarts, seed, max_iter, tol, client=None):
@@ -344,67 +365,3 @@ def _solve(task, restarts, seed, max_iter, tol, client=None):
     violation = max((q.violation(C[j]) for j in np.flatnonzero(movable) for q in reqs[j]), default=0.0)
     table = pd.DataFrame(rows).set_index("restart")
     return CentresFit.build(task, C, labels, W, counts, value, iters, table, violation, time.perf_counter() - t0)
-
-
-@dataclass
-class CentresFit:
-    """Centres found by alternating exact steps; a local optimum of a non-convex problem.
-
-    Attributes: status ("local optimum"), message, objective (weighted within-cluster sum of
-    squares), centres (DataFrame, centres numbered from 1), labels (centre number per point; for
-    sharded data a lazy dask Series computed partition by partition),
-    loads (weight and count per centre), iterations, restarts (table), violation, seconds.
-    """
-
-    status: str
-    message: str
-    objective: float
-    centres: pd.DataFrame
-    labels: np.ndarray
-    loads: pd.DataFrame
-    iterations: int
-    restarts: pd.DataFrame
-    violation: float
-    seconds: float
-    task: CentresTask = field(repr=False)
-
-    @classmethod
-    def build(cls, task, C, labels, W, counts, value, iters, table, violation, seconds):
-        number = pd.Index(np.arange(1, task.k + 1), name="centre")
-        frame = pd.DataFrame(C, index=number, columns=list(task.names))
-        loads = pd.DataFrame({"weight": W, "points": np.asarray(counts, dtype=int)}, index=number)
-        same = int(np.sum(np.isclose(table["objective"], value, rtol=1e-9, atol=0)))
-        msg = (f"local optimum: the best of {len(table)} restarts ({same} reached it); each step was solved "
-               f"exactly, but placing centres is not a convex problem, so a better placement may exist"
-               + (" (k = 1 is convex: this is the global optimum)" if task.k == 1 else ""))
-        return cls("local optimum", msg, value, frame, labels, loads, iters, table, violation, seconds, task)
-
-    def assign(self, points) -> np.ndarray:
-        """Centre number (from 1) of the nearest centre for each new point."""
-        X = _points(self.task, points)
-        return assign(X, self.centres.to_numpy())[0] + 1
-
-    def evaluate(self, points, weights=None) -> pd.Series:
-        """Weighted sum and mean of squared distances to the nearest centre on new points."""
-        X = _points(self.task, points)
-        w = np.ones(len(X)) if weights is None else np.asarray(weights, float).ravel()
-        d2 = assign(X, self.centres.to_numpy())[1]
-        return pd.Series({"n": float(len(X)), "objective": float(w @ d2),
-                          "mean_squared_distance": float(np.average(d2, weights=w)),
-                          "rms_distance": float(np.sqrt(np.average(d2, weights=w)))})
-
-    def summary(self) -> str:
-        return "\n".join([f"status     {self.status} ({self.message})", f"objective  {self.objective:.10g}",
-                          self.centres.join(self.loads).to_string(), CAUTION])
-
-
-def _points(task, points) -> np.ndarray:
-    if isinstance(points, pd.DataFrame):
-        missing = [c for c in task.names if c not in points.columns]
-        if missing:
-            raise DataError(f"The new points lack column(s) {missing}.")
-        return points[list(task.names)].to_numpy(dtype=float)
-    X = np.asarray(points, dtype=float)
-    if X.ndim != 2 or X.shape[1] != len(task.names):
-        raise DataError(f"The new points must have {len(task.names)} coordinates each.")
-    return X

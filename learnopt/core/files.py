@@ -1,8 +1,11 @@
 """Writing files so that nothing is ever half-written: a temporary file, then a rename."""
 from __future__ import annotations
 
+import json
 import os
 import tempfile
+
+from learnopt.core.errors import DataError
 
 
 def _umask() -> int:
@@ -34,3 +37,37 @@ def write_atomic(path, text) -> None:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+MODEL_FORMAT = "learnopt-fit"
+MODEL_SCHEMA = 1
+
+
+def read_model(path) -> dict:
+    """The JSON of a learnopt model file, after checking its format and schema version (the
+    fields inside are checked by the reader of each kind of fit)."""
+    path = os.fspath(path)
+    try:
+        with open(path, encoding="utf-8") as fh:
+            saved = json.load(fh)
+    except FileNotFoundError:
+        raise DataError(f"Model file {path!r} does not exist.") from None
+    except IsADirectoryError:
+        raise DataError(f"Model file {path!r} is a folder; give the path of a .json model file.") from None
+    except UnicodeDecodeError:
+        raise DataError(f"Model file {path!r} is not UTF-8 text; it is not a learnopt model file.") from None
+    except json.JSONDecodeError as exc:
+        raise DataError(f"Model file {path!r} is not JSON ({exc.msg} at line {exc.lineno}).") from None
+    except RecursionError:
+        raise DataError(f"Model file {path!r} is nested too deeply to be a learnopt model file.") from None
+    if not isinstance(saved, dict) or saved.get("format") != MODEL_FORMAT:
+        raise DataError(f"{path!r} is not a learnopt model file (no \"format\": \"{MODEL_FORMAT}\").")
+    version = saved.get("schema_version")
+    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
+        raise DataError(f"Model file {path!r}: schema_version is {version!r}; it has to be a positive whole number.")
+    if version > MODEL_SCHEMA:
+        raise DataError(f"{path!r} was written with model-file schema {version!r}; this learnopt reads "
+                        f"schema {MODEL_SCHEMA} and older. Upgrade learnopt to read it.")
+    if not isinstance(saved.get("task"), dict) or not isinstance(saved["task"].get("kind"), str):
+        raise DataError(f"Model file {path!r} has no task description (\"task\" with its \"kind\").")
+    return saved

@@ -42,3 +42,6 @@ class Status(str, Enum):
 
 CAUTION = ("This fit is a statistical estimate; decisions based on it follow local rules "
            "and professional judgement.")
+
+PLACEMENT_CAUTION = ("These centres are an estimate from the points and weights given, and a local optimum; "
+                     "siting decisions follow local rules, surveys of the sites and professional judgement.")

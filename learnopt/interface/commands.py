@@ -1,7 +1,7 @@
 """The ``learnopt`` command line: run, check, compare and path a recipe; demo (entry point:
 :mod:`learnopt.interface.cli`).
 
-Exit codes: 0 the fit is certified optimal (or the check passed); 1 the fit is not certified
+Exit codes: 0 the fit is certified optimal, a placement keeps its rules, or the check passed; 1 the fit is not certified
 (unverified, infeasible, unbounded, failed); 2 invalid input (recipe, data, parameters);
 3 a piece is not convex; 4 no usable solver; 5 too large for the route; 6 a package is missing.
 Every command takes ``--json`` for machine-readable output. Lists of names (solvers, actions)
@@ -21,7 +21,8 @@ import pandas as pd
 from learnopt.core.checks import shown
 from learnopt.core.version import __version__
 from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
-from learnopt.core.status import CAUTION
+from learnopt.centres.verdict import PlacementVerdict
+from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
 from learnopt.interface.recipes import load_recipe, read_recipe
@@ -58,7 +59,32 @@ def _frame_table(frame, title: str) -> Table:
     return table
 
 
+def _show_centres(job, as_json: bool) -> None:
+    fit = job.fit
+    if as_json:
+        out = {"fit": fit.to_dict(), "written": job.written}
+        if job.evaluation is not None:
+            out["evaluation"] = json.loads(job.evaluation.to_json())
+        click.echo(json.dumps(out, default=str))
+        return
+    con = _console()
+    ev = pd.DataFrame({"value": [fit.status, f"{fit.objective:.10g}", f"{fit.violation:.3g}",
+                                 str(len(fit.restarts)), f"{fit.seconds:.3f}s"]},
+                      index=pd.Index(["status", "objective", "worst violation (absolute)", "restarts", "seconds"],
+                                     name="evidence"))
+    con.print(_frame_table(ev, job.recipe.title or "learnopt centres"))
+    con.print(fit.message, markup=False)
+    con.print(_frame_table(fit.centres.join(fit.loads), "centres"))
+    if job.evaluation is not None:
+        con.print(_frame_table(job.evaluation.to_frame("value"), "held-out points"))
+    for path in job.written:
+        con.print(f"wrote {path}", markup=False)
+    con.print(PLACEMENT_CAUTION)
+
+
 def _show(job, as_json: bool) -> None:
+    if job.centres:
+        return _show_centres(job, as_json)
     fit = job.fit
     if as_json:
         out = {"fit": to_dict(fit), "written": job.written}
@@ -154,11 +180,15 @@ def check(recipe, as_json):
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)
+    placing = isinstance(verdict, PlacementVerdict)
     if as_json:
-        click.echo(json.dumps({"convex": verdict.convex, "problem_class": verdict.problem_class,
+        click.echo(json.dumps(verdict.as_dict() if placing else
+                              {"convex": verdict.convex, "problem_class": verdict.problem_class,
                                "pieces": verdict.pieces, "reasons": verdict.reasons, "data": verdict.data}))
     else:
-        _console().print(str(verdict))
+        _console().print(str(verdict), markup=False)
+    if placing:                # a placement is never convex as a whole; it is ready, or a centre has no place
+        sys.exit(0 if verdict.ready else 1)
     sys.exit(0 if verdict.convex else 3)
 
 

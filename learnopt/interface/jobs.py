@@ -11,6 +11,7 @@ from learnopt.core.errors import DataError
 from learnopt.core.files import write_atomic
 from learnopt.data.gateway import read_source
 from learnopt.interface.report import html
+from learnopt.interface.placing import csv_chunks, write_centres
 from learnopt.interface.recipes import Recipe, _frame, build_task
 
 
@@ -27,8 +28,14 @@ class Job:
     written: list[str] = field(default_factory=list)
 
     @property
+    def centres(self) -> bool:
+        return self.recipe.task.kind == "centres"
+
+    @property
     def ok(self) -> bool:
-        return self.fit is not None and self.fit.status == Status.OPTIMAL
+        if self.fit is None:
+            return False
+        return self.fit.ok if self.centres else self.fit.status == Status.OPTIMAL
 
 
 def _split(recipe: Recipe, frame):
@@ -53,6 +60,13 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     task = build_task(recipe, train)
     job = Job(recipe, task)
     s = recipe.solve
+    if job.centres:
+        job.fit = task.solve(restarts=s.restarts, seed=s.seed, client=s.cluster)
+        if held is not None:
+            job.evaluation = job.fit.evaluate(*_held_points(recipe, held))
+        write_centres(job, frame, job.written)
+        _report(job, report)
+        return job
     opts = dict(tol=s.tol, gap_tol=s.gap_tol, feas_tol=s.feas_tol)
     action = action or recipe.do.action
     if action == "compare":
@@ -67,16 +81,6 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
         job.evaluation = job.fit.evaluate(held)
     _outputs(job, frame, report)
     return job
-
-
-def _prediction_chunks(lazy):
-    """CSV text of a lazy dask Series of predictions, one partition at a time."""
-    start = 0
-    for k, part in enumerate(lazy.to_delayed()):
-        values = part.compute()
-        chunk = pd.DataFrame({"prediction": values.to_numpy()}, index=pd.RangeIndex(start, start + len(values)))
-        start += len(values)
-        yield chunk.to_csv(index_label="row", header=k == 0)
 
 
 def _outputs(job: Job, frame, report: str | None) -> None:
@@ -95,7 +99,7 @@ def _outputs(job: Job, frame, report: str | None) -> None:
             pred = pd.DataFrame({"prediction": fit.predict(frame)})
             write_atomic(path, pred.to_csv(index_label="row"))
         else:          # sharded: partition by partition, rows numbered across partitions
-            write_atomic(path, _prediction_chunks(fit.predict(frame)))
+            write_atomic(path, csv_chunks(fit.predict(frame), "prediction"))
         job.written.append(path)
     if out.path and job.path is not None:
         path = recipe.resolve(out.path)
@@ -105,7 +109,20 @@ def _outputs(job: Job, frame, report: str | None) -> None:
         path = recipe.resolve(out.compare)
         write_atomic(path, job.compare.to_csv())
         job.written.append(path)
+    _report(job, report)
+
+
+def _report(job: Job, report: str | None) -> None:
+    out, recipe = job.recipe.outputs, job.recipe
     target = report or (recipe.resolve(out.report) if out.report else None)
     if target:
         write_atomic(target, html(job))
         job.written.append(target)
+
+
+def _held_points(recipe: Recipe, held):
+    """Held-out points and their weights (the recipe's weights column, when it has one)."""
+    w = recipe.task.weights
+    if w is not None and w not in held.columns:
+        raise DataError(f"The held-out data has no weights column {w!r}.")
+    return held, (held[w].to_numpy(dtype=float) if w is not None else None)

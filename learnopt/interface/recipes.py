@@ -26,6 +26,7 @@ import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
 from learnopt.data.gateway import read_source
+from learnopt.interface.placing import AreaPart, build_centres, kind_problems
 from learnopt.interface.task import classification, regression
 from learnopt.solve.routes import ROUTES
 from learnopt.solve.solvers import REGISTRY as SOLVERS
@@ -68,6 +69,14 @@ class BlockProblem(ValueError):
         keys = [_key(p) for p in getattr(exc, "parameters", ())]
         self.pairs = list(zip(keys, exc.problems)) if len(keys) == len(exc.problems) else [(None, str(exc))]
         super().__init__(str(exc))
+
+
+class KindProblems(ValueError):
+    """Keys that belong to the other kind of recipe, each with its own ``section.key: ...`` text."""
+
+    def __init__(self, problems: list[str]):
+        self.problems = problems
+        super().__init__("; ".join(problems))
 
 
 class _Block(_Strict):
@@ -139,8 +148,8 @@ PenaltyPart = _block_model("PenaltyPart", _Penalty)
 
 
 class TaskPart(_Strict):
-    kind: Literal[KINDS]
-    target: str
+    kind: Literal[KINDS + ("centres",)]
+    target: str | None = None
     features: list[str] | None = None
     weights: str | None = None
     intercept: bool = True
@@ -148,6 +157,9 @@ class TaskPart(_Strict):
     loss: LossPart | None = None          # none: the Python default (squared / logistic)
     penalties: list[PenaltyPart] = Field(default_factory=list)
     rules: list[str] = Field(default_factory=list)
+    k: int | None = Field(default=None, ge=1, description="centres: how many")
+    fixed: list[list[float]] | None = Field(default=None, description="centres: existing centres, pinned")
+    areas: list[AreaPart] = Field(default_factory=list, description="centres: regions a centre must stay in")
 
 
 class SolvePart(_Strict):
@@ -160,6 +172,8 @@ class SolvePart(_Strict):
     polish: bool = False
     cluster: str | None = Field(default=None, description="dask scheduler address for sharded data "
                                                           "(default: a local cluster)")
+    restarts: int = Field(default=10, ge=1, description="centres: seeded restarts")
+    seed: int = Field(default=0, ge=0, description="centres: the first restart's seed")
 
 
 class HoldoutPart(_Strict):
@@ -190,6 +204,8 @@ class OutputsPart(_Strict):
     path: str | None = Field(default=None, description="path table (CSV), when the action is path")
     compare: str | None = Field(default=None, description="solver table (CSV), when the action is compare")
     report: str | None = None
+    centres: str | None = Field(default=None, description="centres table (CSV), centres recipes")
+    assignments: str | None = Field(default=None, description="centre of each point (CSV), centres recipes")
 
 
 class Recipe(_Strict):
@@ -202,6 +218,13 @@ class Recipe(_Strict):
     do: DoPart = Field(default_factory=DoPart)
     outputs: OutputsPart = Field(default_factory=OutputsPart)
     folder: str = Field(default=".", exclude=True)
+
+    @model_validator(mode="after")
+    def _keys_of_its_kind(self):
+        problems = kind_problems(self.task, self.solve, self.outputs, self.do)
+        if problems:
+            raise KindProblems(problems)
+        return self
 
     def resolve(self, relative: str) -> str:
         return relative if os.path.isabs(relative) else os.path.normpath(os.path.join(self.folder, relative))
@@ -228,6 +251,9 @@ def _problems(exc: ValidationError) -> list[str]:
     for err in exc.errors():
         where = ".".join(str(p) for p in err["loc"]) or "(top level)"
         block = (err.get("ctx") or {}).get("error")
+        if isinstance(block, KindProblems):
+            out += block.problems
+            continue
         if isinstance(block, BlockProblem):
             out += [f"{where}.{key}: {text}" if key else f"{where}: {text}" for key, text in block.pairs]
             continue
@@ -287,6 +313,8 @@ def build_task(recipe: Recipe, frame=None):
     """The learnopt task a recipe describes (data read unless ``frame`` is given)."""
     t = recipe.task
     frame = _frame(recipe) if frame is None else frame
+    if t.kind == "centres":
+        return build_centres(t, frame)
     problems, loss, pens = [], None, []
     try:
         loss = t.loss.build() if t.loss is not None else ("squared" if t.kind == "regression" else "logistic")

@@ -9,8 +9,9 @@ import io
 import numpy as np
 import pandas as pd
 
-from learnopt.core.status import CAUTION
+from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.problem.algebra import loss_argument
+from learnopt.rules.regions import Ball, Polygon, Segment
 from learnopt.scale.passes import argument_histogram
 
 STYLE = """body{font-family:system-ui,sans-serif;max-width:60rem;margin:2rem auto;color:#222}
@@ -35,7 +36,7 @@ def _fmt(v) -> str:
     return str(v)
 
 
-def _png(draw) -> str:
+def _png(draw, size=(6.5, 3.2)) -> str:
     """An <img> with the figure inlined, or a note when matplotlib is missing."""
     try:
         import matplotlib
@@ -43,7 +44,7 @@ def _png(draw) -> str:
         import matplotlib.pyplot as plt
     except ImportError:
         return '<p class="note">Plots need matplotlib (pip install \'learnopt[plot]\').</p>'
-    fig, ax = plt.subplots(figsize=(6.5, 3.2))
+    fig, ax = plt.subplots(figsize=size)
     draw(ax)
     fig.tight_layout()
     buf = io.BytesIO()
@@ -69,7 +70,77 @@ def _maths(task) -> str:
             f"with row weights a<sub>i</sub> summing to one (the weighted mean loss).")
 
 
+def _page(title: str, parts: list[str]) -> str:
+    return (f"<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>"
+            f"{_html.escape(title)}</title><style>{STYLE}</style></head><body>"
+            + "\n".join(parts) + "</body></html>\n")
+
+
+def _map(ax, fit, task) -> None:
+    """Points coloured by their centre, the areas' outlines, centres (fixed ones as squares)."""
+    x, y = task.names[:2]
+    if len(task.X):
+        ax.scatter(task.X[:, 0], task.X[:, 1], c=np.asarray(fit.labels) % 10, cmap="tab10", vmin=0, vmax=9,
+                   s=6, alpha=0.35, linewidths=0)
+    for p in task.rules:
+        spec = p.spec
+        if isinstance(spec, Polygon) and tuple(spec.features) == (x, y):
+            V = np.asarray(spec.vertices + spec.vertices[:1])
+            ax.plot(V[:, 0], V[:, 1], color="#555", lw=1.2)
+        elif isinstance(spec, Segment) and tuple(spec.features) == (x, y):
+            ax.plot([spec.start[0], spec.end[0]], [spec.start[1], spec.end[1]], color="#36c", lw=2.5, alpha=0.6)
+        elif isinstance(spec, Ball) and tuple(spec.features) == (x, y):
+            t = np.linspace(0, 2 * np.pi, 200)
+            ax.plot(spec.centre[0] + spec.radius * np.cos(t), spec.centre[1] + spec.radius * np.sin(t),
+                    color="#555", lw=1.2, ls="--")
+    C = fit.centres.to_numpy()
+    fixed = np.arange(len(C)) < len(task.fixed)
+    ax.scatter(C[~fixed, 0], C[~fixed, 1], marker="o", s=90, facecolor="white", edgecolor="black", lw=2, zorder=3,
+               label="placed centre")
+    if fixed.any():
+        ax.scatter(C[fixed, 0], C[fixed, 1], marker="s", s=90, facecolor="black", zorder=3, label="fixed centre")
+    ax.legend(loc="best", fontsize=8, framealpha=0.8)
+    for j, (cx, cy) in enumerate(C[:, :2], start=1):
+        ax.annotate(str(j), (cx, cy), xytext=(7, 7), textcoords="offset points", fontsize=9, weight="bold")
+    ax.set_xlabel(x)
+    ax.set_ylabel(y)
+    ax.set_aspect("equal", adjustable="datalim")
+
+
+def centres_html(job) -> str:
+    """The report of a centres recipe: rules, the verdict, evidence, centres and loads, a map."""
+    fit, task, recipe = job.fit, job.task, job.recipe
+    title = recipe.title or "learnopt centres"
+    n = "sharded points" if task.source is not None else f"{len(task.X)} points"
+    parts = [f"<h1>{_html.escape(title)}</h1>",
+             f"<p>{n}, {len(task.names)} coordinates ({_html.escape(', '.join(task.names))}); {task.k} centres, "
+             f"{len(task.fixed)} of them fixed. Objective: the weighted sum of squared distances from each point "
+             f"to its nearest centre.</p>"]
+    if task.rules:
+        parts.append("<h2>Rules</h2><ul>" + "".join(
+            f"<li><code>{_html.escape(p.spec.text)}</code> on "
+            f"{'every centre' if p.centre is None else f'centre {p.centre}'}</li>" for p in task.rules) + "</ul>")
+    verdict = task.check()
+    parts.append("<h2>What was solved</h2><ul>" + "".join(f"<li>{_html.escape(a)}: {_html.escape(b)}</li>"
+                                                          for a, b in verdict.pieces) + "</ul>")
+    ev = pd.DataFrame({"value": [fit.status, fit.message, fit.objective, fit.violation, len(fit.restarts),
+                                 fit.iterations, fit.seconds]},
+                      index=pd.Index(["status", "message", "objective", "worst violation (absolute)", "restarts",
+                                      "steps (best restart)", "seconds"], name="evidence"))
+    parts.append("<h2>Evidence</h2>" + _table(ev))
+    parts.append("<h2>Centres</h2>" + _table(fit.centres.join(fit.loads)))
+    if len(task.names) >= 2:
+        parts.append("<h2>Map</h2>" + _png(lambda ax: _map(ax, fit, task), size=(6.5, 5.0)))
+    parts.append("<h2>Restarts</h2>" + _table(fit.restarts))
+    if job.evaluation is not None:
+        parts.append("<h2>Held-out points</h2>" + _table(job.evaluation.to_frame("value")))
+    parts.append(f"<p class=\"note\">{_html.escape(PLACEMENT_CAUTION)}</p>")
+    return _page(title, parts)
+
+
 def html(job) -> str:
+    if job.centres:
+        return centres_html(job)
     fit, task, recipe = job.fit, job.task, job.recipe
     parts = [f"<h1>{_html.escape(recipe.title or 'learnopt fit')}</h1>",
              f"<p>{task.dataset.n} rows, {task.dataset.d} coefficients; {_html.escape(task.kind)} with the "
@@ -118,6 +189,4 @@ def html(job) -> str:
         if job.evaluation.confusion is not None:
             parts.append(_table(job.evaluation.confusion))
     parts.append(f"<p class=\"note\">{_html.escape(CAUTION)}</p>")
-    return (f"<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>"
-            f"{_html.escape(recipe.title or 'learnopt fit')}</title><style>{STYLE}</style></head><body>"
-            + "\n".join(parts) + "</body></html>\n")
+    return _page(recipe.title or "learnopt fit", parts)

@@ -10,9 +10,14 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from typing import Sequence
 
+import os
+
 import numpy as np
 
+from learnopt.centres.result import CentresFit
+from learnopt.centres.saved import from_saved
 from learnopt.core.errors import ParameterError
+from learnopt.core.files import read_model
 from learnopt.data.gateway import from_data
 from learnopt.problem.formulate import build, one_row
 from learnopt.problem.problem import Problem
@@ -240,7 +245,11 @@ def classification(data, target, loss: _losses.Loss | str = "logistic", *, posit
     return _build("classification", data, target, loss, features, weights, intercept, positive)
 
 
-def load_fit(path) -> Fit:
-    """Read a fit saved with ``fit.save(path)``; it predicts exactly as the saved one did. Its
-    ``task`` describes the problem (no training data): use it to predict and evaluate."""
+def load_fit(path) -> Fit | CentresFit:
+    """Read a fit saved with ``fit.save(path)``: a regression or classification :class:`Fit`
+    (it predicts exactly as the saved one did) or a :class:`CentresFit` (it assigns new points to
+    the saved centres). Its ``task`` describes the problem (no training data)."""
+    saved = read_model(path)
+    if saved["task"]["kind"] == "centres":
+        return from_saved(saved, os.fspath(path))
     return Fit.load(path, task_type=Task)

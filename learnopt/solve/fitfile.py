@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError
-from learnopt.core.files import write_atomic
+from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, read_model, write_atomic
 from learnopt.core.status import Status
 from learnopt.data.table import Dataset, Encoding
 from learnopt.problem.problem import Problem
@@ -27,10 +27,9 @@ from learnopt.rules.objects import TextRule
 from learnopt.solve.solvers import REGISTRY
 from learnopt.solve.timings import Timings
 from learnopt.terms import losses as _losses
+from learnopt.terms.losses import KINDS
 from learnopt.terms import penalties as _penalties
 
-FORMAT = "learnopt-fit"
-SCHEMA_VERSION = 1
 
 
 def _plain(value):
@@ -97,7 +96,7 @@ def to_dict(fit) -> dict:
     ds = task.dataset
     enc = ds.encoding
     return {
-        "format": FORMAT, "schema_version": SCHEMA_VERSION,
+        "format": MODEL_FORMAT, "schema_version": MODEL_SCHEMA,
         "task": {
             "kind": task.kind, "loss": _piece(task.loss), "penalties": [_piece(p) for p in task.penalties],
             "rules": [r.text for r in task.rules], "intercept": task.intercept,
@@ -132,20 +131,11 @@ def read(path, *, task_type=None) -> dict:
     formats and newer schema versions. ``task_type`` builds the task description (default
     :class:`~learnopt.problem.problem.Problem`; the package face passes the user's Task)."""
     path = os.fspath(path)
-    try:
-        with open(path, encoding="utf-8") as fh:
-            saved = json.load(fh)
-    except FileNotFoundError:
-        raise DataError(f"Model file {path!r} does not exist.") from None
-    except json.JSONDecodeError as exc:
-        raise DataError(f"Model file {path!r} is not JSON ({exc.msg} at line {exc.lineno}).") from None
-    if not isinstance(saved, dict) or saved.get("format") != FORMAT:
-        raise DataError(f"{path!r} is not a learnopt model file (no \"format\": \"{FORMAT}\").")
-    version = saved.get("schema_version")
-    if not isinstance(version, int) or version > SCHEMA_VERSION:
-        raise DataError(f"{path!r} was written with model-file schema {version!r}; this learnopt reads "
-                        f"schema {SCHEMA_VERSION} and older. Upgrade learnopt to read it.")
+    saved = read_model(path)
     t = saved["task"]
+    if t["kind"] not in KINDS:
+        raise DataError(f"Model file {path!r} holds a {t['kind']!r} fit, not a regression or classification; "
+                        f"read it with lo.load_fit, which reads every kind.")
     names = tuple(t["features"])
     enc = t.get("encoding")
     encoding = None if enc is None else Encoding(

@@ -5,6 +5,8 @@
 deliveries.csv  Harbour Lane Deliveries: minutes per delivery route (learnopt.demo.make_data)
 blend.csv       Copperfield Paints: a test panel's reflectance as a blend of four base tints
 quality.csv     Northfold Ceramics: pass/fail of fired tiles from two production lines
+bike_stops.csv  Lanternfield bike couriers: drop points (km east/north of the district office) with
+                weekly refills needed (learnopt.demo.make_bike_stops)
 energy.csv      Marlow Street offices: daily electricity use (cooling, heating is on gas) by
                 outdoor temperature band
 Each file is written atomically (a temporary file renamed into place).
@@ -14,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from learnopt.interface.demo import make_data
+from learnopt.interface.demo import make_bike_stops, make_data
 
 HERE = Path(__file__).resolve().parent
 
@@ -64,5 +66,5 @@ def write(frame: pd.DataFrame, name: str) -> Path:
 
 if __name__ == "__main__":
     for frame, name in ((make_data(), "deliveries.csv"), (blend(), "blend.csv"), (quality(), "quality.csv"),
-                        (energy(), "energy.csv")):
+                        (energy(), "energy.csv"), (make_bike_stops(), "bike_stops.csv")):
         print(f"wrote {write(frame, name)}")

@@ -1,6 +1,5 @@
 """Fits checked against published values and reference libraries (source named at each check)."""
 import numpy as np
-import pandas as pd
 import pytest
 
 import learnopt as lo
