@@ -16,6 +16,7 @@ from click.testing import CliRunner  # noqa: E402
 
 from learnopt.interface.cli import main  # noqa: E402
 from learnopt.interface.recipes import load_recipe, read_recipe  # noqa: E402
+from learnopt.interface import jobs  # noqa: E402
 
 RECIPES = Path(__file__).resolve().parents[1] / "recipes"
 
@@ -344,3 +345,22 @@ def test_without_the_cli_extra_the_command_says_how_to_install_it():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert out.returncode == 6 and "pip install 'learnopt[cli]'" in out.stderr
     assert "Traceback" not in out.stderr
+
+
+def test_check_counts_the_rows_run_fits_and_names_the_recipe_folder(copied, tmp_path, monkeypatch):
+    # the demo recipe holds out 20% of its rows: check must describe the rules on the rows run fits
+    out = CliRunner().invoke(main, ["check", str(copied / "deliveries.toml"), "--json"])
+    data = json.loads(out.output)
+    floor = [fact for piece, fact in data["pieces"] if "service_floor" in piece][0]
+    job = jobs.run(read_recipe(copied / "deliveries.toml"))
+    rows = sum(r.rows for r in job.task.requirements if "service_floor" in r.text)
+    assert f"({rows} rows)" in floor and rows < 223            # 223: the retail rows before the holdout
+    assert any("held out" in d and "480 training rows" in d for d in data["data"])
+    # a missing data file: the key, the path, and that a relative path is read from the recipe's folder
+    monkeypatch.chdir(tmp_path)
+    text = (copied / "blend.toml").read_text().replace('path = "data/blend.csv"', 'path = "data/nope.csv"')
+    (copied / "nope.toml").write_text(text)
+    out = CliRunner().invoke(main, ["run", str(copied / "nope.toml")])
+    assert out.exit_code == 2
+    assert "data.path = 'data/nope.csv'" in out.output and "recipe's folder" in out.output
+    assert "working" not in out.output

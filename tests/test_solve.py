@@ -369,3 +369,19 @@ def test_a_long_fit_shows_progress_lines_and_a_quick_one_none(data, capsys, monk
     assert fit.status == "optimal" and "relative gap" in err and fit.route in err
     task.solve(progress=False)
     assert capsys.readouterr().err == ""
+
+
+@pytest.mark.parametrize("loss", ["squared", "absolute", "huber", "quantile"])
+def test_rules_with_room_to_spare_have_price_exactly_zero(loss):
+    # complementary slackness (common practice, any convex programming text): a rule that does
+    # not bind has multiplier 0, so a non-binding rule shows 0, never solver round-off
+    for seed in range(4):
+        rng = np.random.default_rng(seed)
+        X = rng.normal(size=(150, 3))
+        frame = pd.DataFrame(X, columns=list("abc")).assign(y=X @ [1.0, -0.5, 0.2] + rng.normal(size=150))
+        fit = lo.regression(frame, "y", loss=loss).require("a <= 0.5", "b >= -5", "c <= 3",
+                                                            "prediction >= -50").solve()
+        assert fit.status == "optimal"
+        assert (fit.prices[~fit.binding] == 0.0).all(), fit.prices[~fit.binding]
+        assert fit.binding["a <= 0.5"] and not fit.binding[["b >= -5", "c <= 3", "prediction >= -50"]].any()
+        assert "multipliers" in fit.extras          # the raw values stay available

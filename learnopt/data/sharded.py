@@ -49,8 +49,8 @@ def read_glob(pattern: str):
     pattern = os.fspath(pattern)
     files = sorted(_glob.glob(pattern))
     if not files:
-        raise DataError(f"No files match {pattern!r}; check the pattern (relative paths are taken "
-                        f"from the working directory {os.getcwd()!r}).")
+        hint = "" if os.path.isabs(pattern) else f" (a relative pattern is read from the working folder {os.getcwd()!r})"
+        raise DataError(f"No files match {pattern!r}; check the pattern{hint}.")
     kinds = {"parquet" if f.lower().endswith((".parquet", ".pq")) else
              "csv" if f.lower().endswith((".csv", ".txt", ".csv.gz")) else "other" for f in files}
     if kinds == {"parquet"}:

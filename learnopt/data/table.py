@@ -62,8 +62,8 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
                         f"lo.regression / lo.classification / lo.centres and a recipe's data.path; "
                         f"here give one file.")
     if not os.path.exists(path):
-        raise DataError(f"Data file {path!r} does not exist; check the path (relative paths are "
-                        f"taken from the working directory {os.getcwd()!r}).")
+        hint = "" if os.path.isabs(path) else f" (a relative path is read from the working folder {os.getcwd()!r})"
+        raise DataError(f"Data file {path!r} does not exist; check the path{hint}.")
     lower = path.lower()
     try:
         if lower.endswith((".parquet", ".pq")):

@@ -25,7 +25,7 @@ from learnopt.centres.verdict import PlacementVerdict
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
-from learnopt.interface.recipes import load_recipe, read_recipe
+from learnopt.interface.recipes import read_recipe
 from learnopt.solve.fitfile import to_dict
 from learnopt.solve.solvers import REGISTRY as SOLVERS
 
@@ -176,10 +176,12 @@ def run(recipe, as_json, report):
 @_json
 def check(recipe, as_json):
     try:
-        task = _read(load_recipe, recipe)
+        task, split = jobs.training_task(_read(read_recipe, recipe))
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)
+    if split:
+        verdict.data.insert(0, split)
     placing = isinstance(verdict, PlacementVerdict)
     if as_json:
         click.echo(json.dumps(verdict.as_dict() if placing else

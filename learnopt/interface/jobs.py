@@ -9,10 +9,9 @@ import pandas as pd
 from learnopt.core.status import Status
 from learnopt.core.errors import DataError
 from learnopt.core.files import write_atomic
-from learnopt.data.gateway import read_source
 from learnopt.interface.report import html
 from learnopt.interface.placing import csv_chunks, write_centres
-from learnopt.interface.recipes import Recipe, _frame, build_task
+from learnopt.interface.recipes import Recipe, _frame, build_task, read_from
 
 
 @dataclass
@@ -46,10 +45,25 @@ def _split(recipe: Recipe, frame):
         raise DataError("do.holdout.fraction: a random held-out split of sharded data is not available; "
                         "give do.holdout.path (a held-out file) instead.")
     if hold.path is not None:
-        return frame, read_source(recipe.resolve(hold.path))
+        return frame, read_from(recipe, hold.path, "do.holdout.path")
     rng = np.random.default_rng(hold.seed)
     test = rng.random(len(frame)) < hold.fraction
     return frame.loc[~test], frame.loc[test]
+
+
+def training_task(recipe: Recipe):
+    """The task ``run`` solves: built on the training rows (the held-out rows set aside), and a
+    note saying how the rows were split."""
+    frame = _frame(recipe)
+    train, held = _split(recipe, frame)
+    task = build_task(recipe, train)
+    if held is None:
+        return task, None
+    hold = recipe.do.holdout
+    how = (f"held-out file {hold.path!r}" if hold.path is not None
+           else f"a random {hold.fraction:g} of the rows held out (seed {hold.seed})")
+    n = len(train) if isinstance(train, pd.DataFrame) else "all"
+    return task, f"{how}; checked on the {n} training rows that run fits"
 
 
 def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n=None,

@@ -17,6 +17,7 @@ called ``weights`` before this release (still accepted, with a DeprecationWarnin
 from __future__ import annotations
 
 import difflib
+import glob
 import os
 import tomllib
 import warnings
@@ -25,7 +26,7 @@ from typing import Any, ClassVar, Literal, Mapping
 import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
-from learnopt.data.gateway import read_source
+from learnopt.data.gateway import is_sharded_source, read_source
 from learnopt.interface.placing import AreaPart, build_centres, kind_problems
 from learnopt.interface.task import classification, regression
 from learnopt.solve.routes import ROUTES
@@ -295,9 +296,21 @@ def read_recipe(path) -> Recipe:
         raise DataError(f"Recipe {path!r}: {exc}") from None
 
 
+def read_from(recipe: Recipe, relative: str, key: str):
+    """The table a recipe key names; a missing file is reported with the key and the recipe's
+    folder, which is where a relative path is read from."""
+    path = recipe.resolve(relative)
+    missing = not glob.glob(path) if is_sharded_source(path) else not os.path.exists(path)
+    if missing:
+        where = "" if os.path.isabs(relative) else f" (a relative path is read from the recipe's folder {recipe.folder!r})"
+        raise DataError(f"{key} = {relative!r}: no file {'matches' if is_sharded_source(path) else 'at'} "
+                        f"{path!r}{where}.")
+    return read_source(path)
+
+
 def _frame(recipe: Recipe):
     """The recipe's data: a pandas DataFrame, or a lazy dask DataFrame for a file pattern."""
-    frame = read_source(recipe.resolve(recipe.data.path))
+    frame = read_from(recipe, recipe.data.path, "data.path")
     for column, kind in recipe.data.types.items():
         if column not in frame.columns:
             raise DataError(f"data.types names {column!r}, which is not a column of {recipe.data.path!r}.")

@@ -47,9 +47,9 @@ def _prices(task, mults, theta, feas_tol, noise):
             value = min(value, smallest[k])       # the rate relaxing the rule actually delivers
         if r.sense == "<=" or r.sense == "norm":
             value = max(value, 0.0)
-        if abs(value) <= noise:   # solver round-off on a rule that does not bind
-            value = 0.0
         active = bool(np.min(r.slack(theta)) <= feas_tol * r.scale()) if r.sense != "==" else True
+        if abs(value) <= noise or not active:   # round-off; a rule with room to spare has price 0
+            value = 0.0                         # (complementary slackness; raw values: extras)
         for key in dict.fromkeys((r.source, r.text)):     # the rule as written, and its piece
             prices[key] = prices.get(key, 0.0) + value
             binding[key] = binding.get(key, False) or active
