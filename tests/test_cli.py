@@ -131,7 +131,7 @@ def test_run_check_compare_path_in_process(tmp_path, copied):
     cmp_ = runner.invoke(main, ["compare", recipe, "--solvers", "clarabel,scs", "--json"])
     assert set(json.loads(cmp_.output)["compare"]) == {"clarabel", "scs"}
     walk = runner.invoke(main, ["path", recipe, "--n", "4", "--json"])
-    assert len(json.loads(walk.output)["path"]) == 4
+    assert len(json.loads(walk.output)["path"]) == 4 and "decade" in json.loads(walk.output)["path_end"]
 
 
 def test_demo_command_writes_data_recipe_and_report(tmp_path):

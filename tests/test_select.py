@@ -147,9 +147,13 @@ def test_cross_validation_picks_a_strength_and_its_one_se_neighbour(diabetes):
     X, y = diabetes
     task = lo.regression(X, y, features=DIABETES).penalize(lo.penalty.l1(1.0))
     cv = task.cross_validate(folds=5, n=12, progress=False)
-    assert cv.best in cv.table["strength"].to_list() and cv.best_1se >= cv.best
+    assert cv.top in cv.table["strength"].to_list() and cv.within_one_se >= cv.top
     row = cv.table.set_index("strength")
-    assert row.loc[cv.best_1se, "mean"] <= row.loc[cv.best, "mean"] + row.loc[cv.best, "se"]
+    assert row.loc[cv.within_one_se, "mean"] <= row.loc[cv.top, "mean"] + row.loc[cv.top, "se"]
+    with pytest.warns(DeprecationWarning, match="cv.top"):
+        assert cv.best == cv.top                               # the old names still work, and warn
+    with pytest.warns(DeprecationWarning, match="cv.within_one_se"):
+        assert cv.best_1se == cv.within_one_se
     assert cv.scores.shape == (12, 5) and cv.metric == "loss"
     mae = task.cross_validate(folds=5, n=12, metric="mae", progress=False)
     assert mae.metric == "mae" and np.all(mae.table["mean"] < 100)
@@ -169,7 +173,7 @@ def test_classification_cross_validation_by_accuracy():
     cv = task.cross_validate(folds=4, n=8, metric="accuracy", progress=False)
     assert cv.higher_is_better and cv.table["mean"].max() > 0.9
     row = cv.table.set_index("strength")
-    assert row.loc[cv.best, "mean"] == cv.table["mean"].max()
+    assert row.loc[cv.top, "mean"] == cv.table["mean"].max()
 
 
 def test_path_input_errors(diabetes):
@@ -193,8 +197,16 @@ def test_plots_draw(diabetes):
     task = lo.regression(X, y, features=DIABETES).penalize(lo.penalty.l1(1.0))
     ax = task.path(n=5, progress=False).plot()
     assert len(ax.get_lines()) == 10
-    ax = task.cross_validate(folds=3, n=4, progress=False).plot()
-    assert ax.get_xlabel() == "strength"
+    cv = task.cross_validate(folds=3, n=4, progress=False)
+    ax = cv.plot()
+    # our own picture: strength increasing left to right, a shaded band, the choices labelled,
+    # the non-zero counts in a panel underneath (the main axes share its x)
+    lo_x, hi_x = ax.get_xlim()
+    assert lo_x < hi_x and ax.get_xscale() == "log"
+    assert len(ax.collections) == 1                                  # the plus/minus one se band
+    labels = [t.get_text() for t in ax.texts]
+    assert any(t.startswith("top score") for t in labels) and any(t.startswith("within one se") for t in labels)
+    assert len(ax.figure.axes) == 2 and ax.figure.axes[1].get_xlabel() == "penalty strength"
 
 
 def test_every_path_point_is_as_accurate_as_a_single_solve():
@@ -211,3 +223,20 @@ def test_every_path_point_is_as_accurate_as_a_single_solve():
         np.testing.assert_allclose(fit.coef.to_numpy(), single.coef.to_numpy(), rtol=0, atol=1e-8)
         ref = Lasso(alpha=strength / 2, tol=1e-14, max_iter=1_000_000).fit(X, y)
         np.testing.assert_allclose(fit.coef.to_numpy(), ref.coef_, rtol=0, atol=1e-5)
+
+
+def test_default_path_end_is_read_from_the_data(diabetes):
+    # scikit-learn's diabetes data: the path stops at the first decade below the zeroing
+    # strength where a further decade lowered the training loss by at most 1% of its fall so far
+    # (or where every coefficient is non-zero and the loss levelled off); checked with fits of our own
+    X, y = diabetes
+    task = lo.regression(X, y, features=DIABETES).penalize(lo.penalty.l1(1.0))
+    walk = task.path(n=8, progress=False)
+    top, end = walk.table["strength"].iloc[0], walk.table["strength"].iloc[-1]
+    k = round(-np.log10(end / top))
+    assert 1 <= k <= 6 and end / top == pytest.approx(10.0 ** -k, rel=1e-12)
+    assert walk.stopped and "decade" in walk.stopped
+    fits = {j: task.path(grid=[top * 10.0 ** -j], progress=False).table["training_loss"].iloc[0] for j in (k - 1, k)}
+    fall, step = walk.table["training_loss"].iloc[0] - fits[k], fits[k - 1] - fits[k]
+    assert step <= 0.1 * fall                   # the weaker of the two stopping tests
+    assert "as asked" in task.path(n=3, ratio=1e-2, progress=False).stopped

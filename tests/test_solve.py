@@ -385,3 +385,25 @@ def test_rules_with_room_to_spare_have_price_exactly_zero(loss):
         assert (fit.prices[~fit.binding] == 0.0).all(), fit.prices[~fit.binding]
         assert fit.binding["a <= 0.5"] and not fit.binding[["b >= -5", "c <= 3", "prediction >= -50"]].any()
         assert "multipliers" in fit.extras          # the raw values stay available
+
+
+def test_rule_standing_holds_back_then_room_in_the_order_written():
+    # room is the distance to the limit, computed here by hand from the coefficients and the
+    # rows (definition); a chained rule is one rule as written
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(200, 3))
+    frame = pd.DataFrame(X, columns=["a", "b", "c"]).assign(y=X @ [2.0, -1.0, 0.3] + rng.normal(size=200))
+    rules = ["b >= -3", "0 <= a <= 1.5", "c <= 2", "prediction >= -40", "a + c <= 10"]
+    fit = lo.regression(frame, "y").require(*rules).solve()
+    st = fit.rule_standing()
+    assert list(st.index) == ["0 <= a <= 1.5", "b >= -3", "c <= 2", "prediction >= -40", "a + c <= 10"]
+    assert st.loc["0 <= a <= 1.5", "holds_back"] and st.loc["0 <= a <= 1.5", "gain_per_unit"] > 0
+    a, b, c = fit.coef[["a", "b", "c"]]
+    assert st.loc["b >= -3", "room"] == pytest.approx(b + 3, abs=1e-7)
+    assert st.loc["c <= 2", "room"] == pytest.approx(2 - c, abs=1e-7)
+    assert st.loc["a + c <= 10", "room"] == pytest.approx(10 - a - c, abs=1e-7)
+    assert st.loc["prediction >= -40", "room"] == pytest.approx(float(np.min(fit.predict(frame))) + 40, abs=1e-6)
+    assert (st.loc[~st["holds_back"], "gain_per_unit"] == 0).all()
+    assert st["room_share"].between(0, 1).all()
+    text = fit.summary()
+    assert "rules holding the fit back" in text and "rules with room to spare" in text

@@ -27,6 +27,7 @@ from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
 from learnopt.interface.recipes import read_recipe
 from learnopt.solve.fitfile import to_dict
+from learnopt.solve.standing import gauge
 from learnopt.solve.solvers import REGISTRY as SOLVERS
 
 try:
@@ -92,6 +93,7 @@ def _show(job, as_json: bool) -> None:
             out["compare"] = json.loads(job.compare.to_json(orient="index"))
         if job.path is not None:
             out["path"] = json.loads(job.path.table.to_json(orient="records"))
+            out["path_end"] = job.path.stopped
         if job.evaluation is not None:
             out["evaluation"] = json.loads(job.evaluation.metrics.to_json())
         click.echo(json.dumps(out, default=str))
@@ -106,9 +108,14 @@ def _show(job, as_json: bool) -> None:
     con.print(fit.message)
     con.print(_frame_table(fit.coefficients(), "coefficients"))
     if len(fit.prices):
-        pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
-        pr.index.name = "rule"
-        con.print(_frame_table(pr, "rules: price per unit relaxation"))
+        standing = fit.rule_standing()
+        back, room = standing[standing["holds_back"]], standing[~standing["holds_back"]]
+        if len(back):
+            con.print(_frame_table(back[["gain_per_unit"]].rename(columns={"gain_per_unit": "gain per unit relaxed"}),
+                                   "rules holding the fit back"))
+        if len(room):
+            shown_room = pd.DataFrame({"room left": room["room"], "share of the limit": room["room_share"].map(gauge)})
+            con.print(_frame_table(shown_room, "rules with room to spare"))
     if len(fit.conflicts):
         cf = fit.conflicts.to_frame("must move by")
         cf.index.name = "rule"
@@ -122,6 +129,7 @@ def _show(job, as_json: bool) -> None:
     if job.path is not None:
         con.print(_frame_table(job.path.table.set_index("strength")[["status", "objective", "gap", "nonzero"]],
                                "path"))
+        con.print(f"the path ends here: {job.path.stopped}", markup=False)
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
     for path in job.written:

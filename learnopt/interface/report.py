@@ -17,7 +17,9 @@ from learnopt.scale.passes import argument_histogram
 STYLE = """body{font-family:system-ui,sans-serif;max-width:60rem;margin:2rem auto;color:#222}
 table{border-collapse:collapse;margin:.5rem 0}td,th{border:1px solid #ccc;padding:.2rem .5rem;text-align:right}
 th{background:#f3f3f3}tr.binding td{background:#fff3cd}.note{color:#555;font-size:.9rem}
-code{background:#f5f5f5;padding:0 .2rem}img{max-width:100%}"""
+code{background:#f5f5f5;padding:0 .2rem}img{max-width:100%}
+.gauge{display:inline-block;width:6rem;height:.6rem;background:#e4e4e4;border-radius:.3rem;vertical-align:middle}
+.gauge span{display:block;height:100%;background:#3a8f6a;border-radius:.3rem}ul.rules li{margin:.25rem 0}"""
 
 
 def _table(frame: pd.DataFrame, highlight=None) -> str:
@@ -34,6 +36,32 @@ def _fmt(v) -> str:
     if isinstance(v, (float, np.floating)):
         return f"{v:.6g}"
     return str(v)
+
+
+def _bar(share: float) -> str:
+    """A small HTML gauge of room left (share of the rule's limit)."""
+    if not np.isfinite(share):
+        return '<span class="note">unknown</span>'
+    pct = max(0.0, min(1.0, float(share))) * 100
+    return (f'<span class="gauge"><span style="width:{pct:.0f}%"></span></span> '
+            f'<span class="note">{pct:.0f}%</span>')
+
+
+def _standing(table: pd.DataFrame) -> str:
+    """Rules holding the fit back (gain per unit relaxed), then rules with room (a gauge each)."""
+    back, room = table[table["holds_back"]], table[~table["holds_back"]]
+    out = ["<h2>Where the rules stand</h2>"]
+    if len(back):
+        out.append("<h3>Holding the fit back</h3><p class=\"note\">What relaxing each rule by one unit of its own "
+                   "would gain in the objective.</p><ul class=\"rules\">" + "".join(
+                       f"<li><code>{_html.escape(rule)}</code> <b>gains {row.gain_per_unit:.4g}</b></li>"
+                       for rule, row in back.iterrows()) + "</ul>")
+    if len(room):
+        out.append("<h3>With room to spare</h3><p class=\"note\">Room left before the rule would bind, in its own "
+                   "units; the gauge shows it as a share of the rule's limit.</p><ul class=\"rules\">" + "".join(
+                       f"<li><code>{_html.escape(rule)}</code> room {_fmt(row.room)} {_bar(row.room_share)}</li>"
+                       for rule, row in room.iterrows()) + "</ul>")
+    return "".join(out)
 
 
 def _png(draw, size=(6.5, 3.2)) -> str:
@@ -168,11 +196,7 @@ def html(job) -> str:
         parts.append("<h2>Solver attempts</h2>" + _table(fit.attempt_table()))
     parts.append("<h2>Coefficients</h2>" + _table(fit.coefficients()))
     if len(fit.prices):
-        pr = pd.DataFrame({"price": fit.prices, "binding": fit.binding})
-        pr.index.name = "rule"
-        parts.append("<h2>Rules at the answer</h2><p class=\"note\">Price: fall in the objective per unit "
-                     "relaxation of the rule; binding rules are highlighted.</p>"
-                     + _table(pr, highlight=fit.binding.to_dict()))
+        parts.append(_standing(fit.rule_standing()))
     if np.all(np.isfinite(fit.coef.to_numpy())):
         counts, edges = _argument_histogram(task, fit.theta)
         label = "margin y (x'w + b)" if task.loss.argument == "margin" else "residual (prediction - target)"
@@ -181,6 +205,7 @@ def html(job) -> str:
                                       ax.set_ylabel("rows"))))
     if job.path is not None:
         parts.append("<h2>Path</h2>" + _png(lambda ax: job.path.plot(ax=ax))
+                     + f"<p class=\"note\">The path ends here: {_html.escape(job.path.stopped)}.</p>"
                      + _table(job.path.table.set_index("strength")))
     if job.compare is not None:
         parts.append("<h2>Solver comparison</h2>" + _table(job.compare))

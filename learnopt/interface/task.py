@@ -128,7 +128,7 @@ class Task(Problem):
         cluster = None if client is None and progress is None else ClusterSettings(client=client, progress=progress)
         return solve_task(self, settings, solver=solver, route=route, cluster=cluster, progress=progress)
 
-    def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
+    def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float | None = None,
              route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
              feas_tol: float = 1e-6, progress: bool | None = None):
         """Solve along a grid of strengths of one penalty; return a :class:`~learnopt.selection.paths.Path`.
@@ -139,7 +139,10 @@ class Task(Problem):
             index; default the first) or a new one (added, its own strength ignored).
         grid : strengths in the task's own scaling (any order; walked from strong to weak).
             Default: ``n`` strengths from the smallest strength that zeroes every penalised
-            coefficient down to ``ratio`` times it, evenly spaced on a log scale.
+            coefficient down, evenly spaced on a log scale, to an end read from the data (where a
+            further decade of weaker penalty lowers the training loss by under 1% of its fall so
+            far; 6 decades at most) or to ``ratio`` times the top when given. ``path.stopped``
+            says why the path ends where it does.
         progress : progress bar (rich) on a terminal; None: only when stderr is a terminal.
 
         The problem is compiled once (the strength is a cvxpy Parameter), each point starts
@@ -150,7 +153,7 @@ class Task(Problem):
                     gap_tol=gap_tol, feas_tol=feas_tol, progress=progress)
 
     def cross_validate(self, folds: int = 5, grid: Sequence[float] | None = None, metric=None, seed: int = 0,
-                       groups=None, *, ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
+                       groups=None, *, ordered: bool = False, penalty=None, n: int = 20, ratio: float | None = None,
                        route: str | None = None, solver: str | None = None, tol: float = 1e-9,
                        gap_tol: float = 1e-7, feas_tol: float = 1e-6, progress: bool | None = None):
         """k-fold cross-validation of one penalty's strength; a :class:`~learnopt.selection.crossval.CrossValidation`.
@@ -161,7 +164,8 @@ class Task(Problem):
         with every requirement. ``metric``: the task's own loss (default), "mse", "mae",
         "pinball(tau)", "accuracy", "zero_one", "hinge", "log_loss", or f(y_true, score)
         (classification targets are +1/-1, scores are X w + b). Default grid: ``n``
-        strengths from the zeroing strength on all rows down to ``ratio`` times it.
+        strengths from the zeroing strength on all rows down to the end a path reads
+        from the data (or ``ratio`` times the top when given).
         """
         self._in_memory("cross_validate()")
         return cross_validate(self, folds, grid, metric, seed, groups, ordered=ordered, penalty=penalty, n=n,

@@ -3,12 +3,15 @@
 The rows are split into folds (random with a seed, by groups, or in time order); each training
 part walks the same grid as a path (compiled once per fold, warm-started) with every
 requirement, and the held-out part is scored with a metric (default: the task's own loss).
-The two choices: ``best``, the strength with the lowest mean held-out error, and ``best_1se``,
-the largest strength within one standard error of it (the one-standard-error rule, Breiman et
-al. 1984).
+The two choices: ``top``, the strength with the best mean held-out score (the lowest error, or
+the highest accuracy), and ``within_one_se``, the largest strength whose mean is within one
+standard error of the top (the one-standard-error rule, Breiman et al. 1984: the simpler model
+the data cannot tell apart). ``best`` and ``best_1se``, the names before this release, still
+work and warn.
 """
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, replace
 from typing import Callable
 
@@ -19,7 +22,7 @@ from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import DataError, ParameterError
 from learnopt.data.table import take_rows
-from learnopt.selection.paths import _pick, _Progress, _pyplot, path
+from learnopt.selection.paths import _pick, _Progress, _pyplot, path, strengths
 
 
 # ---------------------------------------------------------------- cross-validation
@@ -98,38 +101,72 @@ class CrossValidation:
 
     Attributes
     ----------
-    table : DataFrame, one row per strength: strength, mean and standard error (std over folds
-        / sqrt(folds)) of the held-out metric, and the number of certified fold fits.
+    table : DataFrame, one row per strength (decreasing, as on a path): strength, mean and standard error (std
+        over folds / sqrt(folds)) of the held-out metric, the number of certified fold fits, and
+        the mean number of non-zero coefficients over the fold fits.
     scores : DataFrame, strengths x folds, the held-out metric of each fold fit.
-    best : the strength with the best mean. best_1se : the largest strength whose mean is
-        within one standard error of the best (the simpler model the data cannot tell apart).
+    top : the strength with the best mean held-out score.
+    within_one_se : the largest strength whose mean is within one standard error of the top.
     metric : the metric's name; higher_is_better : its direction.
     """
 
     table: pd.DataFrame
     scores: pd.DataFrame
-    best: float
-    best_1se: float
+    top: float
+    within_one_se: float
     metric: str
     higher_is_better: bool
 
+    @property
+    def best(self) -> float:
+        """The name of :attr:`top` before this release (still works, warns)."""
+        warnings.warn("cv.best is now cv.top; the old name will be removed in the next release.",
+                      DeprecationWarning, stacklevel=2)
+        return self.top
+
+    @property
+    def best_1se(self) -> float:
+        """The name of :attr:`within_one_se` before this release (still works, warns)."""
+        warnings.warn("cv.best_1se is now cv.within_one_se; the old name will be removed in the next release.",
+                      DeprecationWarning, stacklevel=2)
+        return self.within_one_se
+
     def plot(self, ax=None):
-        """Mean held-out metric against strength with one-standard-error bars (matplotlib)."""
+        """The held-out score against strength, increasing left to right (log scale): the mean as
+        a line in a shaded band of plus/minus one standard error, the two choices as labelled
+        markers and, when no ``ax`` is given, the mean non-zero count in a small panel underneath.
+        Returns the main axes (matplotlib)."""
         plt = _pyplot()
-        ax = ax or plt.subplots(figsize=(7, 4))[1]
-        ax.errorbar(self.table["strength"], self.table["mean"], yerr=self.table["se"], fmt="o-", ms=3)
-        ax.axvline(self.best, ls="--", label="best")
-        ax.axvline(self.best_1se, ls=":", label="best within 1 se")
+        counts = None
+        if ax is None:
+            fig, (ax, counts) = plt.subplots(2, 1, figsize=(7, 4.6), sharex=True,
+                                             gridspec_kw={"height_ratios": [3, 1], "hspace": 0.08})
+        t = self.table
+        ax.fill_between(t["strength"], t["mean"] - t["se"], t["mean"] + t["se"], color="#9cc9b4", alpha=0.45,
+                        lw=0, label="mean \u00b1 one standard error")
+        ax.plot(t["strength"], t["mean"], color="#1f6f50", lw=1.6)
+        for value, name, colour, dx, side in ((self.top, "top score", "#c0392b", -8, "right"),
+                                              (self.within_one_se, "within one se", "#2c3e91", 8, "left")):
+            y = float(t.loc[t["strength"] == value, "mean"].iloc[0])
+            ax.plot([value], [y], marker="D", ms=7, color=colour, zorder=3)
+            ax.annotate(f"{name}\n{value:.3g}", (value, y), xytext=(dx, 14), textcoords="offset points",
+                        ha=side, va="bottom", fontsize=8, color=colour)
         ax.set_xscale("log")
-        ax.invert_xaxis()
-        ax.set_xlabel("strength")
         ax.set_ylabel(f"held-out {self.metric}")
-        ax.legend(fontsize="small")
+        ax.legend(fontsize="small", loc="best", frameon=False)
+        ax.spines[["top", "right"]].set_visible(False)
+        if counts is not None:
+            counts.step(t["strength"], t["nonzero"], where="mid", color="#555")
+            counts.set_ylabel("non-zero", fontsize=8)
+            counts.set_xlabel("penalty strength")
+            counts.spines[["top", "right"]].set_visible(False)
+        else:
+            ax.set_xlabel("penalty strength")
         return ax
 
 
 def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, groups=None, *,
-                   ordered: bool = False, penalty=None, n: int = 20, ratio: float = 1e-3,
+                   ordered: bool = False, penalty=None, n: int = 20, ratio: float | None = None,
                    route: str | None = None, solver: str | None = None, tol: float = 1e-9,
                    gap_tol: float = 1e-7, feas_tol: float = 1e-6,
                    progress: bool | None = None) -> CrossValidation:
@@ -145,11 +182,11 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
         raise DataError(f"groups has {len(groups)} entries for {ds.n} rows.")
     splits = fold_rows(ds.n, int(folds), seed=seed, groups=groups, ordered=ordered)
     if grid is None:
-        top = path(task, index, None, 1, ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
-                   feas_tol=feas_tol, progress=False)
-        grid = top.table["strength"].iloc[0] * np.geomspace(1.0, ratio, int(n))
+        grid = strengths(task, index, int(n), ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
+                         feas_tol=feas_tol)[0]
     grid = np.sort(np.asarray(grid, float).ravel())[::-1]
     table = np.full((len(grid), len(splits)), np.nan)
+    nonzero = np.zeros(len(grid))
     certified = np.zeros(len(grid), int)
     bar = _Progress(len(splits), "cross-validation", progress)
     try:
@@ -158,6 +195,7 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
             walk = path(sub, index, grid, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
                         feas_tol=feas_tol, progress=False)
             X, y, w = ds.X[held], ds.y[held], ds.weights[held]
+            nonzero += walk.table["nonzero"].to_numpy() / len(splits)
             for j, fit in enumerate(walk.fits):
                 if not np.all(np.isfinite(fit.coef.to_numpy())):
                     continue
@@ -170,11 +208,11 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
     mean = np.nanmean(table, axis=1)
     counts = np.sum(np.isfinite(table), axis=1)
     se = np.nanstd(table, axis=1, ddof=1) / np.sqrt(np.maximum(counts, 1))
-    out = pd.DataFrame({"strength": grid, "mean": mean, "se": se, "certified_folds": certified})
+    out = pd.DataFrame({"strength": grid, "mean": mean, "se": se, "certified_folds": certified,
+                        "nonzero": nonzero})
     signed = -mean if higher else mean
     b = int(np.nanargmin(signed))
     within = np.flatnonzero(signed <= signed[b] + se[b])
-    best_1se = float(grid[within].max())
     scores = pd.DataFrame(table, index=pd.Index(grid, name="strength"),
                           columns=[f"fold {k}" for k in range(len(splits))])
-    return CrossValidation(out, scores, float(grid[b]), best_1se, name, higher)
+    return CrossValidation(out, scores, float(grid[b]), float(grid[within].max()), name, higher)

@@ -7,7 +7,8 @@ previous one, and every point is certified like any fit.
 The top of the default grid is the smallest strength at which every penalised coefficient is
 zero (for l1-type penalties: the dual norm of the gradient at the point where they are zero,
 weighted per coefficient), found from one fit at a strength far above it; the grid then falls
-geometrically to ``ratio`` times that.
+geometrically to an end read from the data (:func:`path_end`: where a further decade of
+weaker penalty no longer lowers the training loss), or to ``ratio`` times the top when given.
 
 Cross-validation splits the rows into folds (random with a seed, by groups, or in time order),
 walks the same grid on each training part with every requirement, and scores the held-out
@@ -138,12 +139,16 @@ class Path:
     coefs : DataFrame, one row per strength, one column per coefficient name.
     fits : the certified fit at each strength, in grid order.
     penalty : the varied penalty at strength 1; strengths multiply it.
+    stopped : why the path ends where it does. The default grid runs from the zeroing strength
+        down to an end read from the data (:func:`path_end`): where a further decade of weaker
+        penalty no longer lowers the training loss, 6 decades at most.
     """
 
     table: pd.DataFrame
     coefs: pd.DataFrame
     fits: list = field(repr=False)
     penalty: Penalty | None = None
+    stopped: str = ""
 
     def plot(self, ax=None):
         """Coefficients against strength (log scale), one line per coefficient (matplotlib)."""
@@ -186,14 +191,105 @@ def default_grid(task, index, top_fit, n: int, ratio: float):
     if not np.isfinite(top) or top <= 0:
         raise ParameterError("Every penalised coefficient is zero at every strength (the gradient "
                              "at zero vanishes); pass grid=[...] explicitly.")
-    return top * np.geomspace(1.0, ratio, n), duals
+    return top * np.geomspace(1.0, ratio or 1.0, n), duals
 
 
-def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float = 1e-3,
+FLAT = 0.01         # a decade that gains less than this share of the loss gained so far ends the path
+DECADES = 6         # the path never runs below 10^-6 of the zeroing strength
+
+
+def path_end(task, index, runner, top: float, base: float, settings, opts) -> tuple[float, str]:
+    """(the ratio end / top, why): from the data, not a fixed share.
+
+    Fits one point per decade below the zeroing strength ``top`` and stops at the first decade
+    whose fall in the training loss is at most ``FLAT`` (1%) of the fall from the top to it: the
+    penalty no longer holds the fit back there, so weaker strengths only repeat the same model.
+    Also stops where every coefficient the penalty acts on is non-zero and the last decade was
+    under 10% of the fall, and at 10^-DECADES (6 decades) at the latest.
+    """
+    previous = base                  # the training loss at the top (penalised coefficients at zero)
+    for k in range(1, DECADES + 1):
+        runner.set_strength(top * 10.0 ** -k)
+        fit = solve_task(task, settings, **opts)
+        if not fit.status.has_point:
+            return 10.0 ** -k, f"the fit at {k} decade(s) below the zeroing strength has no certified point"
+        runner.start = fit.theta
+        loss = _training_loss(runner.task, fit)
+        fall, step = base - loss, previous - loss
+        if fall > 0 and step <= FLAT * fall:
+            return 10.0 ** -k, (f"the training loss fell by {step / fall:.2%} of its fall so far over the last "
+                                f"decade ({k} below the zeroing strength): weaker strengths repeat the same model")
+        if _all_moved(runner.task, index, fit) and fall > 0 and step <= 10 * FLAT * fall:
+            return 10.0 ** -k, (f"every coefficient the penalty acts on is non-zero {k} decade(s) below the "
+                                f"zeroing strength and the loss has levelled off")
+        previous = loss
+    return 10.0 ** -DECADES, f"reached {DECADES} decades below the zeroing strength (the lowest the path goes)"
+
+
+def _all_moved(task, index, fit) -> bool:
+    """Is every coefficient the penalty acts on non-zero at this fit?"""
+    unit = task.penalties[index].with_strength(1.0)
+    if not isinstance(unit, Separable):
+        return False
+    acts = unit.separable(task.features)[0] > 0
+    w = fit.coef.to_numpy()[: acts.size]
+    return bool(np.all(np.abs(w[acts]) > 1e-8 * max(1.0, float(np.max(np.abs(w), initial=0.0)))))
+
+
+def _default_strengths(task, index, n: int, ratio, runner, settings, opts) -> tuple[np.ndarray, str]:
+    """The default grid (from the zeroing strength down to ``ratio`` of it, or to the end read
+    from the data when ``ratio`` is None) and why it ends there; leaves ``runner`` ready to start
+    the path at its top."""
+    # one fit far above the zeroing strength, on the same compiled problem
+    scale = _strength_scale(task, index)
+    for _ in range(3):
+        runner.set_strength(scale)
+        top_fit = solve_task(task, settings, **opts)
+        if _all_zero(runner.task, index, top_fit) or _settled(top_fit):
+            break
+        scale *= 1e3
+    else:
+        raise ParameterError("No strength tried set the penalised coefficients to zero; "
+                             "pass grid=[...] explicitly.")
+    (top,), top_duals = default_grid(runner.task, index, top_fit, 1, None)
+    if ratio is None and n > 1:
+        ratio, stopped = path_end(task, index, runner, float(top), _training_loss(runner.task, top_fit),
+                                  settings, opts)
+    else:
+        stopped = f"ends at {ratio:g} of the zeroing strength, as asked" if ratio and n > 1 else "one point"
+    runner.start = top_fit.theta
+    if top_duals is not None:
+        # the first point's optimum is the restricted one just found (exactly zero where the
+        # penalty acts): certified at the first strength with those duals, it is taken as it is
+        start = np.asarray(top_fit.theta, float).copy()
+        acts = runner.task.penalties[index].with_strength(1.0).separable(runner.task.features)[0] > 0
+        start[: acts.size][acts] = 0.0
+        runner.start = start
+        runner.start_multipliers, runner.start_dual = top_duals
+    # the solvers' last state is far from the grid's top: the next point starts cold
+    runner.cold = True
+    return top * np.geomspace(1.0, ratio or 1.0, n), stopped
+
+
+def strengths(task, penalty=None, n: int = 20, *, ratio: float | None = None, route: str | None = None,
+              solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
+              feas_tol: float = 1e-6) -> tuple[np.ndarray, str]:
+    """The default grid a path would walk for ``penalty`` (decreasing), and why it ends there."""
+    task, index = _pick(task, penalty)
+    runner = prepare(task.as_problem(), route, vary=index)
+    return _default_strengths(task, index, int(n), ratio, runner, Settings(tol=tol, gap_tol=gap_tol,
+                                                                          feas_tol=feas_tol),
+                              dict(solver=solver, route=route, runner=runner))
+
+
+def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float | None = None,
          route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
          feas_tol: float = 1e-6, progress: bool | None = None) -> Path:
-    params.check("path", n=(n, params.POSITIVE), ratio=(ratio, params.OPEN_UNIT))
+    params.check("path", n=(n, params.POSITIVE))
+    if ratio is not None:
+        params.check("path", ratio=(ratio, params.OPEN_UNIT))
     task, index = _pick(task, penalty)
+    stopped = "the grid given"
     if grid is not None:
         grid = np.asarray(grid, float).ravel()
         if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
@@ -203,28 +299,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
     settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
     opts = dict(solver=solver, route=route, runner=runner)
     if grid is None:
-        # one fit far above the zeroing strength, on the same compiled problem
-        scale = _strength_scale(task, index)
-        for _ in range(3):
-            runner.set_strength(scale)
-            top_fit = solve_task(task, settings, **opts)
-            if _all_zero(runner.task, index, top_fit) or _settled(top_fit):
-                break
-            scale *= 1e3
-        else:
-            raise ParameterError("No strength tried set the penalised coefficients to zero; "
-                                 "pass grid=[...] explicitly.")
-        grid, top_duals = default_grid(runner.task, index, top_fit, int(n), ratio)
-        if top_duals is not None:
-            # the first point's optimum is the restricted one just found (exactly zero where the
-            # penalty acts): certified at the first strength with those duals, it is taken as it is
-            start = np.asarray(top_fit.theta, float).copy()
-            acts = runner.task.penalties[index].with_strength(1.0).separable(runner.task.features)[0] > 0
-            start[: acts.size][acts] = 0.0
-            runner.start = start
-            runner.start_multipliers, runner.start_dual = top_duals
-            # the solvers' last state is the search's, far above the grid: the next point starts cold
-            runner.cold = True
+        grid, stopped = _default_strengths(task, index, int(n), ratio, runner, settings, opts)
     grid = np.sort(grid)[::-1]
     fits, rows = [], []
     bar = _Progress(len(grid), "path", progress)
@@ -248,7 +323,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
     table = pd.DataFrame(rows)
     coefs = pd.DataFrame([f.coef.to_numpy() for f in fits], index=pd.Index(grid, name="strength"),
                          columns=list(task.features))
-    return Path(table, coefs, fits, task.penalties[index].with_strength(1.0))
+    return Path(table, coefs, fits, task.penalties[index].with_strength(1.0), stopped)
 
 
 def _strength_scale(task, index) -> float:

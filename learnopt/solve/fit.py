@@ -18,6 +18,7 @@ from scipy.special import expit
 
 from learnopt.core.errors import DataError
 from learnopt.core.status import CAUTION, Status
+from learnopt.solve.standing import rule_standing, standing_lines
 from learnopt.data.gateway import is_sharded_source
 from learnopt.data.table import new_design
 from learnopt.scale.passes import partition_values
@@ -159,6 +160,12 @@ class Fit:
         and evaluation (no training data); ``task_type`` builds it (default: a plain Problem)."""
         return cls(**fitfile.read(path, task_type=task_type))
 
+    def rule_standing(self) -> pd.DataFrame:
+        """Where each rule stands: the rules holding the fit back (gain per unit relaxation), then
+        the rules with room to spare (room left, and as a share of the limit); see
+        :func:`learnopt.solve.standing.rule_standing`."""
+        return rule_standing(self)
+
     def attempt_table(self) -> pd.DataFrame:
         """Every solver tried, in order: outcome, objective, certified gap, seconds."""
         table = pd.DataFrame([{"solver": a.solver, "outcome": a.outcome, "objective": a.objective, "gap": a.gap,
@@ -181,8 +188,7 @@ class Fit:
         if self.task is not None and self.task.intercept:
             lines.append(f"intercept  {self.intercept:.6g}")
         if len(self.prices):
-            pr = pd.DataFrame({"price": self.prices, "binding": self.binding})
-            lines.append(pr.to_string(float_format=lambda v: f"{v:.6g}"))
+            lines += standing_lines(self.rule_standing())
         if len(self.conflicts):
             lines.append("conflicting rules (how far each alone must move, in its own units):")
             lines.append(self.conflicts.to_string())
