@@ -31,7 +31,7 @@ def test_saved_fit_predicts_exactly_the_same(tmp_path, demo_fit):
     assert back.task.loss == fit.task.loss and back.task.penalties == fit.task.penalties
     assert [r.text for r in back.task.rules] == [r.text for r in fit.task.rules]
     saved = json.loads(path.read_text())
-    assert saved["schema_version"] == 1 and saved["evidence"]["versions"]["cvxpy"]
+    assert saved["schema_version"] == 2 and saved["evidence"]["versions"]["cvxpy"]
     assert not list(tmp_path.glob(".learnopt-*"))          # the temporary file was renamed away
     assert back.evaluate(new)["mae"] == pytest.approx(fit.evaluate(new)["mae"], abs=0)
 
@@ -83,3 +83,33 @@ def test_pandas_in_pandas_out_and_float32(demo_fit):
     sparse = lo.regression(sp.csc_matrix(X), y).penalize(lo.penalty.l1(0.001)).solve()
     assert sparse.objective == pytest.approx(fit64.objective, rel=1e-9)
     assert isinstance(fit32.predict(X), np.ndarray)
+
+
+@pytest.mark.parametrize("edit", [
+    lambda d: d["coef"].__setitem__("stops", d["coef"]["stops"] + 0.5),          # a coefficient changed
+    lambda d: d["evidence"].__setitem__("gap", 0.0),                              # evidence touched up
+    lambda d: d.pop("digest"),                                                    # digest removed
+])
+def test_a_hand_edited_model_file_is_not_optimal(tmp_path, demo_fit, edit):
+    # common practice (content digests): evidence covers the numbers it was computed for; a file
+    # changed after it was written loads as unverified, and says why
+    df, fit = demo_fit
+    fit.save(tmp_path / "f.json")
+    data = json.loads((tmp_path / "f.json").read_text())
+    assert lo.load_fit(tmp_path / "f.json").status == "optimal"
+    edit(data)
+    (tmp_path / "f.json").write_text(json.dumps(data))
+    back = lo.load_fit(tmp_path / "f.json")
+    assert back.status == "unverified" and "digest" in back.message
+
+
+@pytest.mark.parametrize("value", ["nan", 1e400, "inf"])
+def test_non_finite_coefficients_are_refused(tmp_path, demo_fit, value):
+    _, fit = demo_fit
+    fit.save(tmp_path / "f.json")
+    text = (tmp_path / "f.json").read_text()
+    data = json.loads(text)
+    data["coef"]["stops"] = "__X__"
+    (tmp_path / "f.json").write_text(json.dumps(data).replace('"__X__"', "1e400" if value == 1e400 else f'"{value}"'))
+    with pytest.raises(lo.DataError, match="stops is not a finite number"):
+        lo.load_fit(tmp_path / "f.json")

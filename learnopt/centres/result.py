@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError
-from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, write_atomic
+from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, seal, write_atomic
 from learnopt.core.status import PLACEMENT_CAUTION
 from learnopt.data.points import assign
 from learnopt.rules.saving import to_plain
@@ -130,7 +130,7 @@ def _versions() -> dict:
 
 
 def _json_text(fit) -> str:
-    return json.dumps(fit.to_dict(), indent=1)
+    return json.dumps(seal(fit.to_dict()), indent=1)
 
 
 def _points(task, points) -> np.ndarray:

@@ -11,6 +11,7 @@ import pandas as pd
 from learnopt.centres.placement import CentresTask, Placement
 from learnopt.centres.result import LOCAL, CentresFit
 from learnopt.core.errors import DataError
+from learnopt.core.files import intact
 from learnopt.rules.saving import from_plain
 
 
@@ -27,6 +28,9 @@ def _number(value, where: str, path: str) -> float:
 
 def from_saved(saved: dict, path: str) -> CentresFit:
     """The centres fit in a model file's JSON (already checked for format and schema)."""
+    if not intact(saved):
+        raise DataError(f"Model file {path!r}: its content no longer matches the digest written with it (or it has "
+                        f"none), so its centres and evidence cannot be trusted; place the centres again.")
     t, ev = saved["task"], saved.get("evidence")
     try:
         names = tuple(str(n) for n in t["coordinates"])

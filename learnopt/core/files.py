@@ -1,6 +1,7 @@
 """Writing files so that nothing is ever half-written: a temporary file, then a rename."""
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import tempfile
@@ -40,7 +41,25 @@ def write_atomic(path, text) -> None:
 
 
 MODEL_FORMAT = "learnopt-fit"
-MODEL_SCHEMA = 1
+MODEL_SCHEMA = 2           # 2: files carry a SHA-256 digest of their content ("digest")
+
+
+def digest(content: dict) -> str:
+    """SHA-256 of a model file's content (every key but "digest"), in a canonical JSON form."""
+    body = {k: v for k, v in content.items() if k != "digest"}
+    canonical = json.dumps(json.loads(json.dumps(body)), sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+    return hashlib.sha256(canonical.encode("ascii")).hexdigest()
+
+
+def seal(content: dict) -> dict:
+    """``content`` with its digest, ready to write."""
+    return {**content, "digest": digest(content)}
+
+
+def intact(saved: dict) -> bool:
+    """Does a model file's content still match the digest written with it? (False when the
+    file has no digest: files written before schema 2 cannot be checked.)"""
+    return isinstance(saved.get("digest"), str) and saved["digest"] == digest(saved)
 
 
 def read_model(path) -> dict:

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError
-from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, read_model, write_atomic
+from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, intact, read_model, seal, write_atomic
 from learnopt.core.status import Status
 from learnopt.data.table import Dataset, Encoding
 from learnopt.problem.problem import Problem
@@ -123,7 +123,7 @@ def to_dict(fit) -> dict:
 
 def save(fit, path) -> None:
     """Write ``fit`` to ``path`` as JSON, atomically (a temporary file renamed into place)."""
-    write_atomic(path, json.dumps(to_dict(fit), indent=1))
+    write_atomic(path, json.dumps(seal(to_dict(fit)), indent=1))
 
 
 def read(path, *, task_type=None) -> dict:
@@ -154,7 +154,19 @@ def read(path, *, task_type=None) -> dict:
         raise DataError(f"Model file {path!r}: evidence.status is {ev.get('status')!r}; a fit's status is one of "
                         f"{', '.join(s.value for s in Status)}.")
     coef = pd.Series([_float(saved["coef"][n]) for n in names], index=list(names), name="coef", dtype=float)
-    return dict(status=ev["status"], message=ev["message"], objective=_float(ev["objective"]),
+    status, message = ev["status"], ev["message"]
+    if Status(status).has_point:
+        bad = [n for n, v in coef.items() if not np.isfinite(v)]
+        if bad or not np.isfinite(_float(saved["intercept"])):
+            raise DataError(f"Model file {path!r}: {', '.join(bad) or 'the intercept'} "
+                            f"{'is' if len(bad) <= 1 else 'are'} not a finite number, but the file says the fit "
+                            f"has a point ({status}); the file was damaged or edited by hand.")
+    if not intact(saved):
+        status = Status.UNVERIFIED.value
+        message = ("loaded from a model file whose content no longer matches the digest written with it (or that "
+                   "has none): the saved evidence does not cover these numbers, so the fit is not certified. "
+                   f"It said: {ev['message']}")
+    return dict(status=status, message=message, objective=_float(ev["objective"]),
                 gap=_float(ev["gap"]), rel_gap=_float(ev["rel_gap"]), violation=_float(ev["violation"]),
                 coef=coef, intercept=_float(saved["intercept"]),
                 prices=pd.Series(ev["prices"], dtype=float), binding=pd.Series(ev["binding"], dtype=bool),
