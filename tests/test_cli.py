@@ -139,7 +139,7 @@ BAD = [
     ("[data]\npath='x.csv'\n[task]\nkind='ranking'\ntarget='y'\n[task.loss]\nname='squared'\n",
      ["task.kind: Input should be 'regression' or 'classification'"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='huber'\ndelta=-1\n"
-     "[solve]\ntol=5\n", ["task.loss.delta: The 'delta' parameter of huber must be > 0", "solve.tol: Input should be less than 1"]),
+     "[solve]\ntol=5\n", ["task.loss.delta: huber(delta=-1): delta has to be above 0", "solve.tol: Input should be less than 1"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\ntau=0.5\n",
      ["the squared loss takes no parameters; remove tau"]),
     ("[data]\npath='x.csv'\n[task]\nkind='regression'\ntarget='y'\n[task.loss]\nname='squared'\n"
@@ -181,10 +181,10 @@ def test_recipe_names_and_keys_come_from_the_registries(tmp_path):
     with pytest.raises(lo.DataError) as info:
         read_recipe(path)
     assert info.value.problems == [
-        "task.penalties.0.strength: The 'strength' parameter of elastic_net must be >= 0. Got -1 instead.",
-        "task.penalties.0.mix: The 'mix' parameter of elastic_net must be >= 0 and <= 1. Got 2 instead.",
-        "task.penalties.1.order: The 'names' parameter of total_variation must be a list of at least two "
-        "coefficient names, in order. Got 'ab' instead."]
+        "task.penalties.0.strength: elastic_net(strength=-1): strength has to be at least 0",
+        "task.penalties.0.mix: elastic_net(mix=2): mix has to be between 0 and 1, both included",
+        "task.penalties.1.order: total_variation(names='ab'): names has to be a list of at least two "
+        "coefficient names, in order"]
 
 
 def test_old_penalty_key_weights_still_works_with_a_note(tmp_path, copied):

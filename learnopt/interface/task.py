@@ -12,6 +12,7 @@ from typing import Sequence
 
 import numpy as np
 
+from learnopt.core import checks as params
 from learnopt.core.errors import ParameterError
 from learnopt.data.gateway import from_data
 from learnopt.problem.formulate import build, one_row
@@ -193,7 +194,7 @@ def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
 
 def _build(kind, data, target, loss, features, weights, intercept, positive) -> Task:
     if not isinstance(intercept, (bool, np.bool_)):
-        raise ParameterError(f"The 'intercept' parameter must be True or False. Got {intercept!r} instead.")
+        raise params.refusal(kind, "intercept", intercept, "True or False")
     lossobj = _losses.by_name(loss)
     if not lossobj.convex:
         raise lossobj.refusal()
