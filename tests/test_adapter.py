@@ -69,9 +69,9 @@ def test_classifier_labels_probabilities_and_dataframe_names():
 
 def test_adapter_errors_are_clear():
     X, y = np.random.default_rng(0).normal(size=(20, 2)), np.arange(20.0)
-    with pytest.raises(lo.ParameterError, match="'l1' parameter of the estimator must be >= 0"):
+    with pytest.raises(lo.ParameterError, match=r"Regressor\(l1=-1.0\): l1 has to be at least 0"):
         lo.estimator("regression", l1=-1.0).fit(X, y)
-    with pytest.raises(lo.ParameterError, match="'kind' parameter of estimator"):
+    with pytest.raises(lo.ParameterError, match=r"estimator\(kind='ranking'\): kind has to be one of 'regression', 'classification'"):
         lo.estimator("ranking")
     with pytest.raises(lo.LearnoptError, match="infeasible"):
         lo.estimator("regression", rules=["x0 >= 1", "x0 <= 0"]).fit(X, y)

@@ -144,9 +144,9 @@ def test_fusion_keeps_the_order_in_one_dimension():
 
 
 def test_fusion_input_errors():
-    with pytest.raises(lo.ParameterError, match="'pairs' parameter of fusion"):
+    with pytest.raises(lo.ParameterError, match=r"fusion\(pairs='ring'\): pairs has to be one of 'knn', 'all'"):
         lo.fusion(np.eye(3), 0.1, pairs="ring")
-    with pytest.raises(lo.ParameterError, match="'strength' parameter of fusion must be >= 0"):
+    with pytest.raises(lo.ParameterError, match=r"fusion\(strength=-1.0\): strength has to be at least 0"):
         lo.fusion(np.eye(3), -1.0)
     with pytest.raises(lo.DataError, match="at least two points"):
         lo.fusion(np.array([[np.nan, 1.0], [0.0, 1.0]]), 0.1)

@@ -96,8 +96,8 @@ def test_edited_centres_model_files_are_refused(tmp_path, edit, match):
     saved = json.loads((tmp_path / "c.json").read_text())
     edit(saved)
     (tmp_path / "c.json").write_text(json.dumps(saved))
-    with pytest.raises(lo.DataError, match="no longer matches the digest"):   # edited by hand: refused
-        lo.load_fit(tmp_path / "c.json")
+    with pytest.raises(lo.DataError, match="no longer matches the digest|positive whole number"):
+        lo.load_fit(tmp_path / "c.json")                     # edited by hand: refused
     if saved.get("schema_version") == 2:                    # written wrong with a fresh digest: the field is named
         (tmp_path / "c.json").write_text(json.dumps(seal(saved)))
     with pytest.raises(lo.DataError, match=match):

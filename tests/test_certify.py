@@ -72,7 +72,7 @@ def test_time_limit_reaches_the_solver(monkeypatch, task):
     monkeypatch.setattr(cp.Problem, "solve", spy)
     task.solve(solver="scs", time_limit=5.0, fallback=False)
     assert seen["SCS"]["time_limit_secs"] == 5.0
-    with pytest.raises(lo.ParameterError, match="'time_limit' parameter of solve must be > 0"):
+    with pytest.raises(lo.ParameterError, match=r"solve\(time_limit=-1\): time_limit has to be above 0"):
         task.solve(time_limit=-1)
 
 

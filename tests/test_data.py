@@ -50,10 +50,12 @@ def test_labels(df):
 
 
 @pytest.mark.parametrize("make,fragment", [
-    (lambda: lo.loss.quantile(1.5), "'tau' parameter of quantile must be > 0 and < 1. Got 1.5"),
-    (lambda: lo.loss.huber(-1.0), "'delta' parameter of huber must be > 0. Got -1.0"),
-    (lambda: lo.penalty.l1(-0.1), "'strength' parameter of l1 must be >= 0"),
-    (lambda: lo.penalty.elastic_net(0.1, 2.0), "'mix' parameter"),
+    (lambda: lo.loss.quantile(1.5), "quantile(tau=1.5): tau has to be between 0 and 1"),
+    (lambda: lo.loss.huber(-1.0), "huber(delta=-1.0): delta has to be above 0"),
+    (lambda: lo.loss.huber("1"), "huber(delta='1'): delta has to be a number above 0"),
+    (lambda: lo.loss.huber(float("nan")), "huber(delta=nan): delta has to be a finite number above 0"),
+    (lambda: lo.penalty.l1(-0.1), "l1(strength=-0.1): strength has to be at least 0"),
+    (lambda: lo.penalty.elastic_net(0.1, 2.0), "elastic_net(mix=2.0): mix has to be between 0 and 1, both included"),
 ])
 def test_parameters_checked_with_one_template(make, fragment):
     with pytest.raises(lo.ParameterError) as info:

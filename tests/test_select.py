@@ -161,8 +161,11 @@ def test_cross_validation_picks_a_strength_and_its_one_se_neighbour(diabetes):
     assert len(custom.table) == 2
     with pytest.raises(lo.ParameterError, match="accuracy metric is for classification"):
         task.cross_validate(metric="accuracy")
-    with pytest.raises(lo.ParameterError, match="Unknown metric 'rmsle'"):
+    with pytest.raises(lo.ParameterError, match=r"cross_validate\(metric='rmsle'\): metric has to be one of loss, mse"):
         task.cross_validate(metric="rmsle")
+    with pytest.raises(lo.ParameterError, match=r"cross_validate\(metric='pinball\(1.5\)'\): metric has to be "
+                                                r"pinball\(tau\) with tau between 0 and 1"):
+        task.cross_validate(metric="pinball(1.5)")
 
 
 def test_classification_cross_validation_by_accuracy():

@@ -426,7 +426,7 @@ def test_the_cluster_is_found_by_address_or_as_dask_s_current_client(client, tmp
     assert fit.status == "optimal" and fit.coef["f0"] == pytest.approx(2.0, abs=1e-9)
     shards.close_local()                     # closes learnopt's own connection, not the cluster
     assert client.status == "running"
-    with pytest.raises(ParameterError, match="must be a distributed.Client, a scheduler address or None"):
+    with pytest.raises(ParameterError, match=r"solve\(client=42\): client has to be a distributed.Client, a scheduler address \(text\) or None"):
         shards.connect(42)
 
 

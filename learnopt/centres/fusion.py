@@ -83,13 +83,15 @@ def fusion(data, strength: float, pairs: str = "knn", *, neighbours: int = 5, we
         edges = {(min(a, b), max(a, b)) for a in range(n) for b in nn[a]}
         i, j = (np.array(v) for v in zip(*sorted(edges)))
     else:
-        raise ParameterError(f"The 'pairs' parameter of fusion must be 'knn' or 'all'. Got {pairs!r} instead.")
+        raise params.refusal("fusion", "pairs", pairs, params.OneOf(("knn", "all")).describe())
     if weights is None:
         w = np.ones(len(i))
-    elif isinstance(weights, tuple) and len(weights) == 2 and weights[0] == "gaussian":
+    elif isinstance(weights, tuple) and len(weights) == 2 and weights[0] == "gaussian" \
+            and params.NONNEGATIVE.demand(weights[1]) is None:
         w = np.exp(-float(weights[1]) * np.sum((X[i] - X[j]) ** 2, axis=1))
     else:
-        raise ParameterError("The 'weights' parameter of fusion must be None or ('gaussian', phi).")
+        raise params.refusal("fusion", "weights", weights, "None or ('gaussian', phi) with a finite number "
+                                                           "phi at least 0")
     return FusionTask(X, names, float(strength), np.column_stack([i, j]), w)
 
 

@@ -28,15 +28,18 @@ class DataError(LearnoptError, ValueError):
 class ParameterError(LearnoptError, ValueError):
     """A parameter of a loss, penalty, rule or solve call is out of its allowed range.
 
-    ``parameters`` names the parameters that failed (when the raiser knows them), so a recipe
-    reader can point at the right key.
+    ``parameters`` names the parameters that failed (when the raiser knows them) and
+    ``demands`` says, for each of them, what it has to be ("above 0"), so a recipe reader can
+    point at the right key in its own words.
     """
 
     exit_code = 2
 
-    def __init__(self, message: str, *, problems: list[str] | None = None, parameters=()) -> None:
+    def __init__(self, message: str, *, problems: list[str] | None = None, parameters=(),
+                 demands=()) -> None:
         super().__init__(message, problems=problems)
         self.parameters = tuple(parameters)
+        self.demands = tuple(demands)
 
 
 class NotConvexError(LearnoptError, ValueError):

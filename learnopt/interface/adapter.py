@@ -12,7 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
+from learnopt.core import checks as params
+from learnopt.core.errors import LearnoptError, MissingDependencyError
 from learnopt.interface.task import classification, regression
 from learnopt.terms import penalties as pen
 
@@ -48,10 +49,9 @@ class _Base(BaseEstimator):
         build = regression if self._kind == "regression" else classification
         task = build(X, y, loss=self.loss, features=names, weights=sample_weight, intercept=self.intercept)
         extra = []
+        params.check(type(self).__name__, l1=(self.l1, params.NONNEGATIVE), l2=(self.l2, params.NONNEGATIVE))
         for name in ("l1", "l2"):
             value = getattr(self, name)
-            if value is None or not np.isfinite(value) or value < 0:
-                raise ParameterError(f"The '{name}' parameter of the estimator must be >= 0. Got {value!r} instead.")
             if value > 0:
                 extra.append(getattr(pen, name)(float(value)))
         task = task.penalize(*extra, *tuple(self.penalties))
@@ -184,5 +184,4 @@ def estimator(kind: str = "regression", loss=None, *, l1: float = 0.0, l2: float
     if kind == "classification":
         return Classifier("hinge" if loss is None else loss, l1=l1, l2=l2, penalties=penalties, rules=rules,
                           intercept=intercept, solver=solver, tol=tol, route=route)
-    raise ParameterError(f"The 'kind' parameter of estimator must be 'regression' or 'classification'. "
-                         f"Got {kind!r} instead.")
+    raise params.refusal("estimator", "kind", kind, params.OneOf(("regression", "classification")).describe())

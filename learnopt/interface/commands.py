@@ -18,7 +18,7 @@ import warnings
 
 import pandas as pd
 
-from learnopt.core.checks import shown
+from learnopt.core.checks import refusal
 from learnopt.core.version import __version__
 from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
 from learnopt.centres.verdict import PlacementVerdict
@@ -231,8 +231,7 @@ def path(recipe, grid, count, as_json, report):
         try:
             values = [float(v) for v in grid.split(",") if v.strip()]
         except ValueError:
-            _fail(ParameterError(f"--grid must be comma-separated numbers, e.g. 1,0.1,0.01. "
-                                 f"Got {shown(grid)} instead."), as_json)
+            _fail(refusal("learnopt path", "--grid", grid, "comma-separated numbers, e.g. 1,0.1,0.01"), as_json)
     _run(recipe, as_json, report, action="path", grid=values, n=count)
 
 

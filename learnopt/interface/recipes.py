@@ -3,7 +3,8 @@
 A recipe names the data (CSV or Parquet, relative to the recipe file), the task (kind,
 target, features, weights, loss, penalties, rules, intercept), how to solve, what to do
 (solve, compare solvers, walk a path, evaluate on held-out data) and where to write the
-outputs. Every problem in a recipe is reported at once, each with its place in the file.
+outputs. Every problem in a recipe is reported at once, each with its place in the file, in the
+words of ``recipe_errors`` (the key as written, what was found, what to write instead).
 ``load_recipe(path)`` returns the same task the Python API builds (tested for every recipe
 in ``recipes/``). Needs the ``cli`` extra (pydantic).
 
@@ -16,7 +17,6 @@ called ``weights`` before this release (still accepted, with a DeprecationWarnin
 """
 from __future__ import annotations
 
-import difflib
 import glob
 import os
 import tomllib
@@ -28,10 +28,11 @@ import pandas as pd
 from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
 from learnopt.data.gateway import is_sharded_source, read_source
 from learnopt.interface.placing import AreaPart, build_centres, kind_problems
+from learnopt.interface.recipe_errors import BlockProblem, KindProblems, problems, place
 from learnopt.interface.task import classification, regression
 from learnopt.solve.routes import ROUTES
 from learnopt.solve.solvers import REGISTRY as SOLVERS
-from learnopt.terms.losses import KINDS, LOSSES, by_name, for_kind
+from learnopt.terms.losses import KINDS, LOSSES, for_kind
 from learnopt.terms.penalties import PENALTIES
 
 try:
@@ -63,23 +64,6 @@ def _keyword(key: str) -> str:
     return {v: k for k, v in KEYS.items()}.get(key, key)
 
 
-class BlockProblem(ValueError):
-    """A building block refused its values: its own message, with the recipe keys it is about."""
-
-    def __init__(self, exc: LearnoptError):
-        keys = [_key(p) for p in getattr(exc, "parameters", ())]
-        self.pairs = list(zip(keys, exc.problems)) if len(keys) == len(exc.problems) else [(None, str(exc))]
-        super().__init__(str(exc))
-
-
-class KindProblems(ValueError):
-    """Keys that belong to the other kind of recipe, each with its own ``section.key: ...`` text."""
-
-    def __init__(self, problems: list[str]):
-        self.problems = problems
-        super().__init__("; ".join(problems))
-
-
 class _Block(_Strict):
     """A named loss or penalty: ``name`` plus the keys its registry row lists."""
 
@@ -104,7 +88,7 @@ class _Block(_Strict):
         try:
             self.build()
         except LearnoptError as exc:
-            raise BlockProblem(exc) from None
+            raise BlockProblem(exc, KEYS, given, f"{self.name} {self.what}") from None
         return self
 
     def build(self):
@@ -247,32 +231,6 @@ def _known_keys() -> set[str]:
     return keys
 
 
-def _problems(exc: ValidationError) -> list[str]:
-    out = []
-    for err in exc.errors():
-        where = ".".join(str(p) for p in err["loc"]) or "(top level)"
-        block = (err.get("ctx") or {}).get("error")
-        if isinstance(block, KindProblems):
-            out += block.problems
-            continue
-        if isinstance(block, BlockProblem):
-            out += [f"{where}.{key}: {text}" if key else f"{where}: {text}" for key, text in block.pairs]
-            continue
-        msg = err["msg"].replace("Value error, ", "")
-        loc = tuple(str(p) for p in err["loc"])
-        if err["type"] == "extra_forbidden":
-            close = difflib.get_close_matches(loc[-1], sorted(_known_keys()), n=1, cutoff=0.75)
-            hint = f"did you mean {close[0]!r}? " if close else ""
-            msg = f"unknown key ({hint}check the spelling; see the recipe reference in the README)"
-        elif err["type"] == "literal_error" and loc[-2:] == ("loss", "name") and err.get("input") in LOSSES \
-                and not by_name(err.get("input")).convex:
-            msg = str(by_name(err.get("input")).refusal())      # the same explanation Python gives
-        elif err["type"] == "literal_error":
-            msg = f"{msg}; got {err.get('input')!r}"
-        out.append(f"{where}: {msg}")
-    return out
-
-
 def read_recipe(path) -> Recipe:
     """Parse and validate a recipe file; every problem is listed in one DataError."""
     path = os.fspath(path)
@@ -285,15 +243,23 @@ def read_recipe(path) -> Recipe:
         raise DataError(f"Recipe {path!r} is not valid TOML: {exc}.") from None
     except UnicodeDecodeError:
         raise DataError(f"Recipe {path!r} is not UTF-8 text.") from None
+    return recipe_from(raw, folder=os.path.dirname(os.path.abspath(path)), label=f"Recipe {path!r}")
+
+
+def recipe_from(raw: Mapping, *, folder: str = ".", label: str = "The recipe") -> Recipe:
+    """Validate a recipe already read into a mapping (as ``tomllib`` returns it); paths inside
+    are relative to ``folder``. Every problem is listed in one DataError, one line each."""
+    found = []
+    if "folder" in raw:        # not a recipe key: the folder is always the recipe file's own
+        found.append("folder: unknown key; remove it (paths in a recipe are read relative to the recipe file)")
     try:
-        return Recipe(**raw, folder=os.path.dirname(os.path.abspath(path)))
+        recipe = Recipe(**{k: v for k, v in raw.items() if k != "folder"}, folder=folder)
     except ValidationError as exc:
-        problems = _problems(exc)
-        head = f"Recipe {path!r} has {len(problems)} problems" if len(problems) > 1 else \
-            f"Recipe {path!r}: {problems[0]}"
-        raise DataError(head, problems=problems) from None
-    except TypeError as exc:
-        raise DataError(f"Recipe {path!r}: {exc}") from None
+        found += problems(exc, Recipe, _known_keys())
+    if found:
+        head = f"{label} has {len(found)} problems" if len(found) > 1 else f"{label}: {found[0]}"
+        raise DataError(head, problems=found) from None
+    return recipe
 
 
 def read_from(recipe: Recipe, relative: str, key: str):
@@ -328,18 +294,18 @@ def build_task(recipe: Recipe, frame=None):
     frame = _frame(recipe) if frame is None else frame
     if t.kind == "centres":
         return build_centres(t, frame)
-    problems, loss, pens = [], None, []
+    wrong, loss, pens = [], None, []
     try:
         loss = t.loss.build() if t.loss is not None else ("squared" if t.kind == "regression" else "logistic")
     except LearnoptError as exc:
-        problems.append(f"task.loss: {exc}")
+        wrong.append(f"task.loss: {exc}")
     for k, part in enumerate(t.penalties):
         try:
             pens.append(part.build())
         except LearnoptError as exc:
-            problems.append(f"task.penalties.{k}: {exc}")
-    if problems:
-        raise DataError("The recipe's task cannot be built", problems=problems)
+            wrong.append(f"{place(['task', 'penalties', k])}: {exc}")
+    if wrong:
+        raise DataError("The recipe's task cannot be built", problems=wrong)
     if t.kind == "regression":
         task = regression(frame, t.target, loss, features=t.features, weights=t.weights, intercept=t.intercept)
     else:

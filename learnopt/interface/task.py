@@ -16,6 +16,7 @@ import numpy as np
 
 from learnopt.centres.result import CentresFit
 from learnopt.centres.saved import from_saved
+from learnopt.core import checks as params
 from learnopt.core.errors import ParameterError
 from learnopt.core.files import read_model
 from learnopt.data.gateway import from_data
@@ -202,7 +203,7 @@ def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
 
 def _build(kind, data, target, loss, features, weights, intercept, positive) -> Task:
     if not isinstance(intercept, (bool, np.bool_)):
-        raise ParameterError(f"The 'intercept' parameter must be True or False. Got {intercept!r} instead.")
+        raise params.refusal(kind, "intercept", intercept, "True or False")
     lossobj = _losses.by_name(loss)
     if not lossobj.convex:
         raise lossobj.refusal()

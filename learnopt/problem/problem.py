@@ -18,6 +18,7 @@ from dataclasses import dataclass, field, replace
 
 import cvxpy as cp
 
+from learnopt.core.checks import shown
 from learnopt.core.errors import ParameterError
 from learnopt.data.table import design_with_ones
 from learnopt.rules.requirements import Context, Requirement, RuleSpec
@@ -91,7 +92,9 @@ class Problem:
         """A new value with these penalties added (see :mod:`learnopt.terms.penalties`)."""
         bad = [p for p in penalties if not isinstance(p, Penalty)]
         if bad:
-            raise ParameterError(f"penalize() takes penalties such as lo.penalty.l1(0.1); got {bad!r}.")
+            raise ParameterError(f"penalize({', '.join(shown(p) for p in penalties)}): each argument has to be "
+                                 f"a penalty object such as lo.penalty.l1(0.1); {', '.join(map(shown, bad))} "
+                                 f"{'is' if len(bad) == 1 else 'are'} not")
         for p in penalties:
             self._check_penalty(p)
         return replace(self, penalties=self.penalties + tuple(penalties))

@@ -5,11 +5,13 @@ reports every problem at once. Region rules (polygon, ball, segment) are in
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
+from numbers import Real
 from typing import Sequence
 
-import numpy as np
 
+from learnopt.core import checks as params
 from learnopt.core.errors import DataError, NotConvexError
 from learnopt.rules.language import parse
 from learnopt.rules.requirements import Context, Requirement, RuleSpec
@@ -59,20 +61,29 @@ def bounds(**limits: tuple[float | None, float | None]) -> Bounds:
 
     Each value is ``(low, high)``; ``None`` leaves that side open.
     """
-    items = []
+    items, problems = [], []
     for name, pair in limits.items():
         try:
             low, high = pair
         except (TypeError, ValueError):
-            raise DataError(f"bounds: the limits for {name!r} must be a pair (low, high); "
-                            f"got {pair!r}. Use None for an open side.") from None
-        for v in (low, high):
-            if v is not None and not np.isfinite(float(v)):
-                raise DataError(f"bounds: the limits for {name!r} must be finite numbers or None; got {pair!r}.")
-        if low is not None and high is not None and low > high:
-            raise DataError(f"bounds: the low limit of {name!r} ({low}) is above its high limit ({high}).")
-        items.append((name, None if low is None else float(low), None if high is None else float(high)))
+            problems.append(params.complaint("bounds", name, pair, "a pair (low, high); use None for an open side"))
+            continue
+        if not (_limit(low) and _limit(high)):
+            problems.append(params.complaint("bounds", name, pair, "a pair of finite numbers or None "
+                                                                   "(None leaves that side open)"))
+        elif low is not None and high is not None and low > high:
+            problems.append(params.complaint("bounds", name, pair, f"a pair (low, high) with low at most high; "
+                                                                   f"swap them: ({high!r}, {low!r})"))
+        else:
+            items.append((name, None if low is None else float(low), None if high is None else float(high)))
+    if problems:
+        raise DataError(problems[0] if len(problems) == 1 else f"bounds: {len(problems)} limits have to change",
+                        problems=problems)
     return Bounds(tuple(items))
+
+
+def _limit(value) -> bool:
+    return value is None or (isinstance(value, Real) and not isinstance(value, bool) and math.isfinite(value))
 
 
 def as_spec(rule: str | RuleSpec) -> RuleSpec:

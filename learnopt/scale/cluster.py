@@ -10,6 +10,7 @@ import atexit
 from dataclasses import dataclass
 import os
 
+from learnopt.core.checks import refusal
 from learnopt.core.errors import MissingDependencyError, ParameterError
 from learnopt.data.sharded import need_dask
 
@@ -36,8 +37,7 @@ def connect(client=None):
                                      f"address, or leave client=None for a local cluster.") from None
         return _LOCAL[key]
     if client is not None:
-        raise ParameterError(f"The 'client' parameter must be a distributed.Client, a scheduler address "
-                             f"or None. Got {type(client).__name__} instead.")
+        raise refusal("solve", "client", client, "a distributed.Client, a scheduler address (text) or None")
     try:
         return default_client()
     except ValueError:

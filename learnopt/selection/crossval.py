@@ -83,12 +83,13 @@ def metric_function(task, metric) -> tuple[str, Callable, bool]:
     if m:
         tau = float(m.group(1))
         if not 0.0 < tau < 1.0:
-            raise ParameterError(f"pinball(tau) needs 0 < tau < 1. Got {tau} instead.")
+            raise params.refusal("cross_validate", "metric", metric, "pinball(tau) with tau between 0 and 1")
         return (f"pinball({tau:g})", lambda y, s, w: float(np.average(
             np.maximum(tau * (y - s), (tau - 1.0) * (y - s)), weights=w)), False)
     if text not in simple:
-        raise ParameterError(f"Unknown metric {metric!r}; use one of loss, mse, mae, pinball(tau), accuracy, "
-                             f"zero_one, hinge, log_loss, or a callable f(y_true, score).")
+        raise params.refusal("cross_validate", "metric", metric, "one of loss, mse, mae, pinball(tau), accuracy, "
+                                                                 "zero_one, hinge, log_loss, or a callable "
+                                                                 "f(y_true, score)")
     if (text in needs_classes) != classify:
         kind = "classification" if text in needs_classes else "regression"
         raise ParameterError(f"The {text} metric is for {kind} tasks; this task is a {task.kind}.")

@@ -70,8 +70,10 @@ def _pick(task, penalty) -> tuple[Any, int]:
         index = 0
     elif isinstance(penalty, int):
         if not 0 <= penalty < len(task.penalties):
-            raise ParameterError(f"The 'penalty' parameter of path must index one of the task's "
-                                 f"{len(task.penalties)} penalties. Got {penalty} instead.")
+            count = len(task.penalties)
+            raise params.refusal("path", "penalty", penalty,
+                                 f"an index from 0 to {count - 1} (the task has {count} penalties)" if count else
+                                 "a penalty object such as lo.penalty.l1(1.0) (the task has no penalty to index)")
         index = penalty
     elif isinstance(penalty, Penalty):
         matches = [k for k, p in enumerate(task.penalties) if p == penalty]
@@ -81,8 +83,8 @@ def _pick(task, penalty) -> tuple[Any, int]:
             task = task.penalize(penalty)
             index = len(task.penalties) - 1
     else:
-        raise ParameterError(f"The 'penalty' parameter of path must be a penalty object or an index. "
-                             f"Got {penalty!r} instead.")
+        raise params.refusal("path", "penalty", penalty, "a penalty object such as lo.penalty.l1(1.0), or the "
+                                                         "index of one of the task's penalties")
     if isinstance(task.penalties[index], CustomPenalty):
         raise ParameterError("A custom penalty has no strength to vary; give it its own strength "
                              "in the expression and fit each value, or vary a built-in penalty.")
@@ -293,8 +295,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
     if grid is not None:
         grid = np.asarray(grid, float).ravel()
         if grid.size == 0 or not np.all(np.isfinite(grid)) or np.any(grid < 0):
-            raise ParameterError("The 'grid' parameter of path must be non-negative finite strengths. "
-                                 f"Got {params.shown(grid)} instead.")
+            raise params.refusal("path", "grid", grid, "a non-empty list of finite strengths, each at least 0")
     runner = prepare(task.as_problem(), route, vary=index)
     settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
     opts = dict(solver=solver, route=route, runner=runner)

@@ -1,10 +1,9 @@
-"""Argument handling shared by the building blocks: parameter checks that remember which
-parameter failed, and old keyword names kept working for one release.
+"""Old keyword names kept working for one release.
 
-:func:`check` runs the range check of :mod:`learnopt.core.checks` unchanged and records, on the
-error it raises, the names of the parameters that failed (``error.parameters``, a tuple), so a
-caller that knows where the values came from (the recipe reader) can point at them.
-:func:`refuse` makes such an error for the checks a block writes by hand. :func:`renamed` is a
+The building blocks check their values with :func:`learnopt.core.checks.check` (ranges and
+choices declared as data) and :func:`learnopt.core.checks.refusal` (checks written by hand);
+both record, on the error, which parameters failed and what each has to be, so a caller that
+knows where the values came from (the recipe reader) can point at them. :func:`renamed` is a
 decorator that keeps old keyword names working with a DeprecationWarning.
 """
 from __future__ import annotations
@@ -13,32 +12,7 @@ import functools
 import inspect
 import warnings
 
-from learnopt.core import checks as params
 from learnopt.core.errors import ParameterError
-
-
-def check(owner: str, **values_and_rules: tuple[object, params.Interval]) -> None:
-    """:func:`learnopt.core.checks.check`, with the failing parameters' names on the error."""
-    try:
-        params.check(owner, **values_and_rules)
-    except ParameterError as exc:
-        exc.parameters = tuple(name for name, rule in values_and_rules.items() if not _passes(owner, name, rule))
-        raise
-
-
-def _passes(owner: str, name: str, rule) -> bool:
-    try:
-        params.check(owner, **{name: rule})
-    except ParameterError:
-        return False
-    return True
-
-
-def refuse(parameter: str, message: str) -> ParameterError:
-    """A ParameterError about one parameter (named in ``error.parameters``)."""
-    exc = ParameterError(message)
-    exc.parameters = (parameter,)
-    return exc
 
 
 def renamed(**old_to_new: str):
@@ -62,8 +36,8 @@ def renamed(**old_to_new: str):
                     continue
                 value = kwargs.pop(old)
                 if new in kwargs or (new in order and order.index(new) < len(args)):
-                    raise refuse(new, f"{owner} was given both '{new}' and its old name '{old}'; "
-                                      f"give '{new}' only.")
+                    raise ParameterError(f"{owner} was given both '{new}' and its old name '{old}'; "
+                                         f"give '{new}' only.", parameters=(new,))
                 warnings.warn(f"{owner}: the keyword '{old}' is now called '{new}'. '{old}' is still "
                               f"accepted in this release and will be removed in the next one.",
                               DeprecationWarning, stacklevel=2)

@@ -11,7 +11,6 @@ import cvxpy as cp
 import numpy as np
 
 from learnopt.core import checks as params
-from learnopt.terms.arguments import check
 from learnopt.terms.loss_base import Loss
 
 
@@ -52,7 +51,7 @@ class Quantile(Loss):
     name: ClassVar[str] = "quantile"
 
     def __post_init__(self):
-        check("quantile", tau=(self.tau, params.OPEN_UNIT))
+        params.check("quantile", tau=(self.tau, params.OPEN_UNIT))
 
     def expr(self, z):
         return 0.5 * cp.abs(z) + (0.5 - self.tau) * z
@@ -84,7 +83,7 @@ class EpsilonInsensitive(Loss):
     name: ClassVar[str] = "epsilon_insensitive"
 
     def __post_init__(self):
-        check("epsilon_insensitive", eps=(self.eps, params.NONNEGATIVE))
+        params.check("epsilon_insensitive", eps=(self.eps, params.NONNEGATIVE))
 
     def expr(self, z):
         return 0.5 * (cp.abs(z - self.eps) + cp.abs(z + self.eps)) - self.eps

@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import difflib
 
+from learnopt.core import checks as params
 from learnopt.core.errors import NotConvexError, ParameterError
 from learnopt.terms.cones import CLASSES as CONES
 from learnopt.terms.linear_losses import (Absolute, EpsilonInsensitive, Hinge, Quantile, absolute,
@@ -77,9 +78,7 @@ def for_kind(kind: str) -> tuple[str, ...]:
     The 0-1 loss is registered (so that ``by_name`` knows it and fitting with it is refused with
     the reason) but is not listed: no task is fitted with it.
     """
-    if kind not in KINDS:
-        raise ParameterError(f"The 'kind' parameter of for_kind must be one of {', '.join(KINDS)}. "
-                             f"Got {kind!r} instead.")
+    params.check("for_kind", kind=(kind, params.OneOf(KINDS)))
     return tuple(name for name, spec in LOSSES.items() if kind in spec.kinds and spec.convex)
 
 

@@ -28,8 +28,9 @@ from __future__ import annotations
 
 from typing import Callable, Mapping, Sequence
 
+from learnopt.core import checks as params
 from learnopt.core.errors import DataError, ParameterError
-from learnopt.terms.arguments import refuse, renamed
+from learnopt.terms.arguments import renamed
 from learnopt.terms.penalty_base import (CustomPenalty, Factors, Penalty, freeze_counted, freeze_factors,
                                          name_list, name_lists)
 from learnopt.terms.registry import EXAMPLE_NAMES, PenaltySpec
@@ -89,7 +90,8 @@ def custom(fn: Callable, *, name: str = "custom") -> Penalty:
     exact solve, so a fit with a custom penalty is certified like any other.
     """
     if not callable(fn):
-        raise refuse("fn", f"The 'fn' parameter of custom penalty {name!r} must be callable. Got {fn!r} instead.")
+        raise params.refusal("custom", "fn", fn, "callable: a function of the coefficient vector w "
+                                                "returning a cvxpy expression")
     return CustomPenalty(fn=fn, label=name)
 
 

@@ -16,8 +16,8 @@ from typing import Callable, ClassVar, Mapping, Sequence
 import cvxpy as cp
 import numpy as np
 
+from learnopt.core import checks as params
 from learnopt.core.errors import DataError
-from learnopt.terms.arguments import refuse
 from learnopt.terms.convexity import cone_of
 
 Factors = Mapping[str, float] | Sequence[float] | None
@@ -98,8 +98,8 @@ def freeze_factors(factors: Factors, owner: str):
     (ParameterError otherwise)."""
     if factors is None:
         return None
-    bad = refuse("factors", f"The 'factors' parameter of {owner} must be a mapping coefficient name -> "
-                            f"factor or a list of factors, each a finite number >= 0. Got {factors!r} instead.")
+    bad = params.refusal(owner, "factors", factors, "a mapping coefficient name -> factor, or a list of "
+                                                    "factors, each a finite number at least 0")
     if isinstance(factors, Mapping):
         if not all(_factor(v) for v in factors.values()):
             raise bad
@@ -120,8 +120,8 @@ def freeze_counted(factors, owner: str, count: int, unit: str):
     if factors is None:
         return None
     if isinstance(factors, Mapping) or len(frozen := freeze_factors(factors, owner)) != count:
-        raise refuse("factors", f"The 'factors' parameter of {owner} must be a list with one finite number "
-                                f">= 0 per {unit} ({count} in all). Got {factors!r} instead.")
+        raise params.refusal(owner, "factors", factors, f"a list of {count} finite numbers at least 0, "
+                                                        f"one per {unit}")
     return frozen
 
 
@@ -165,7 +165,7 @@ def name_list(value, owner: str, parameter: str, what: str, least: int = 1) -> t
     """A list of at least ``least`` coefficient names (strings or numbers), as a tuple of strings."""
     items = _items(value)
     if len(items) < least or not all(_name(n) for n in items):
-        raise refuse(parameter, f"The '{parameter}' parameter of {owner} must be {what}. Got {value!r} instead.")
+        raise params.refusal(owner, parameter, value, what)
     return tuple(str(n) for n in items)
 
 
@@ -173,7 +173,7 @@ def name_lists(value, owner: str, parameter: str, what: str) -> tuple[tuple[str,
     """A non-empty list of non-empty lists of coefficient names (or a mapping label -> list)."""
     lists = _items(value.values() if isinstance(value, Mapping) else value)
     if not lists or not all((items := _items(g)) and all(_name(n) for n in items) for g in lists):
-        raise refuse(parameter, f"The '{parameter}' parameter of {owner} must be {what}. Got {value!r} instead.")
+        raise params.refusal(owner, parameter, value, what)
     return tuple(tuple(str(n) for n in g) for g in lists)
 
 

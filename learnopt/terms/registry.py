@@ -12,7 +12,7 @@ import inspect
 from dataclasses import dataclass, field
 from typing import Callable
 
-from learnopt.core.errors import ParameterError
+from learnopt.core import checks as params
 
 KINDS = ("regression", "classification")
 
@@ -54,8 +54,8 @@ class LossSpec(TermSpec):
     def __post_init__(self):
         unknown = [k for k in self.kinds if k not in KINDS]
         if not self.kinds or unknown:
-            raise ParameterError(f"The 'kinds' of the {self.name} loss row must be taken from "
-                                 f"{', '.join(KINDS)}. Got {self.kinds!r} instead.")
+            raise params.refusal(f"LossSpec {self.name!r}", "kinds", self.kinds,
+                                 f"a non-empty tuple of task kinds taken from {', '.join(map(repr, KINDS))}")
 
     @property
     def convex(self) -> bool:

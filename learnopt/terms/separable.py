@@ -13,7 +13,7 @@ import cvxpy as cp
 import numpy as np
 
 from learnopt.core import checks as params
-from learnopt.terms.arguments import check, old_field_names
+from learnopt.terms.arguments import old_field_names
 from learnopt.terms.penalty_base import Penalty, factor_array
 
 
@@ -27,7 +27,7 @@ class Separable(Penalty):
     factors: tuple | None = None
 
     def __post_init__(self):
-        check(self.describe_name(), strength=(self.strength, params.NONNEGATIVE), mix=(self.mix, params.UNIT))
+        params.check(self.describe_name(), strength=(self.strength, params.NONNEGATIVE), mix=(self.mix, params.UNIT))
 
     def describe_name(self) -> str:
         if isinstance(self.mix, Real) and not isinstance(self.mix, bool) and self.mix in (0.0, 1.0):

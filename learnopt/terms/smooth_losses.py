@@ -12,7 +12,6 @@ import numpy as np
 from scipy.special import expit, xlogy
 
 from learnopt.core import checks as params
-from learnopt.terms.arguments import check
 from learnopt.terms.loss_base import Loss
 
 
@@ -53,7 +52,7 @@ class Huber(Loss):
     smooth: ClassVar[bool] = True
 
     def __post_init__(self):
-        check("huber", delta=(self.delta, params.POSITIVE))
+        params.check("huber", delta=(self.delta, params.POSITIVE))
 
     def expr(self, z):
         return cp.huber(z, self.delta)

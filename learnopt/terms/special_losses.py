@@ -10,7 +10,8 @@ from typing import Callable, ClassVar
 import cvxpy as cp
 import numpy as np
 
-from learnopt.core.errors import NotConvexError, ParameterError
+from learnopt.core import checks as params
+from learnopt.core.errors import NotConvexError
 from learnopt.terms.convexity import cone_of
 from learnopt.terms.loss_base import Loss
 
@@ -92,10 +93,7 @@ def custom(fn: Callable, *, name: str = "custom", argument: str = "residual",
     Accepted only when cvxpy can prove it convex (checked when the task is built).
     Give ``conjugate`` (numpy, per row) and its ``domain`` to let the certificate run.
     """
-    if not callable(fn):
-        raise ParameterError(f"The 'fn' parameter of custom loss {name!r} must be callable. "
-                             f"Got {fn!r} instead.")
-    if argument not in ("residual", "margin"):
-        raise ParameterError(f"The 'argument' parameter of custom loss {name!r} must be "
-                             f"'residual' or 'margin'. Got {argument!r} instead.")
+    params.check("custom", fn=(fn, params.Condition("callable: a function of one row's residual or margin "
+                                                    "returning a cvxpy expression", callable)),
+                 argument=(argument, params.OneOf(("residual", "margin"))))
     return Custom(fn=fn, label=name, argument_of=argument, conjugate_fn=conjugate, domain=tuple(domain))

@@ -13,7 +13,7 @@ import numpy as np
 
 from learnopt.core import checks as params
 from learnopt.core.errors import DataError
-from learnopt.terms.arguments import check, old_field_names, refuse
+from learnopt.terms.arguments import old_field_names
 from learnopt.terms.penalty_base import Penalty, indicator_conjugate
 
 
@@ -32,7 +32,7 @@ class Group(Penalty):
     cone: ClassVar[str] = "second_order"
 
     def __post_init__(self):
-        check("group", strength=(self.strength, params.NONNEGATIVE))
+        params.check("group", strength=(self.strength, params.NONNEGATIVE))
 
     def describe(self):
         return f"group(strength={self.strength:g}, {len(self.groups)} groups)"
@@ -102,10 +102,10 @@ class TotalVariation(Penalty):
     name: ClassVar[str] = "total_variation"
 
     def __post_init__(self):
-        check("total_variation", strength=(self.strength, params.NONNEGATIVE))
+        params.check("total_variation", strength=(self.strength, params.NONNEGATIVE))
         if len(self.order) < 2:
-            raise refuse("names", "The 'names' parameter of total_variation must list at least two "
-                                  f"coefficient names in order. Got {list(self.order)!r} instead.")
+            raise params.refusal("total_variation", "names", list(self.order),
+                                 "a list of at least two coefficient names, in order")
 
     def describe(self):
         return f"total_variation(strength={self.strength:g}, {len(self.order)} names)"

@@ -14,6 +14,7 @@ is made of those rows, in the planner's order of preference.
 """
 from __future__ import annotations
 
+from learnopt.core import checks as params
 from learnopt.core.errors import ParameterError, TooLargeError
 from learnopt.solve.routes import compressed, direct, newton, sharded, working_set
 from learnopt.solve.routes.base import RouteSpec, RunnerBase
@@ -26,9 +27,7 @@ DENSE_LIMIT = 2000   # largest p for routes that form dense p x p matrices (Gram
 
 def lookup(name: str) -> RouteSpec:
     """The registry row of a route, or a ParameterError listing the routes."""
-    if name not in REGISTRY:
-        raise ParameterError(f"The 'route' parameter of solve must be one of {', '.join(ROUTES)}. "
-                             f"Got {name!r} instead.")
+    params.check("solve", route=(name, params.OneOf(ROUTES)))
     return REGISTRY[name]
 
 

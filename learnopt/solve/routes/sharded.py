@@ -37,6 +37,7 @@ import cvxpy as cp
 import numpy as np
 import pandas as pd
 
+from learnopt.core import checks as params
 from learnopt.core.errors import DataError, ParameterError
 from learnopt.problem.algebra import requirement_constraint, penalty_value
 from learnopt.scale.blocks import Blocks, add_up
@@ -74,8 +75,7 @@ def Runner(task, vary: int | None = None, cluster: ClusterSettings = ClusterSett
         raise ParameterError("Paths and cross-validation are not available for sharded data; solve one "
                              "strength at a time with task.solve().")
     method = method or method_for(task)
-    if method not in METHODS:
-        raise ParameterError(f"The sharded method must be one of {', '.join(METHODS)}. Got {method!r} instead.")
+    params.check("ClusterSettings", method=(method, params.OneOf(METHODS)))
     if method != "admm" and task.row_rules:
         raise ParameterError(f"The {method} method cannot apply rules row by row ({task.row_rules[0]!r}); "
                              f"leave the method to learnopt (consensus ADMM applies them in each partition).")
