@@ -113,14 +113,34 @@ def inf_penalty(g_w, penalties, names) -> tuple[float, float]:
         conj = conj + expr
     s = cp.Variable()
     feas = cp.Problem(cp.Maximize(s), cons + [sum(vs) == -s * g_w, s <= 1, s >= 0])
-    if not _exact_small(feas) or s.value is None or s.value <= 0:
+    # the solver only proposes s and a split; validity is checked here on the numbers themselves
+    if not solve_small(feas, 1e-10) or s.value is None or s.value <= 0:
         return 1.0, -np.inf
     s_val = float(min(1.0, s.value * (1 - 1e-7)))
     split = cp.Problem(cp.Minimize(conj), cons + [sum(vs) == -s_val * g_w])
-    if not _exact_small(split):
+    if not solve_small(split, 1e-10) or any(v.value is None for v in vs):
         return s_val, -np.inf
-    # any feasible split gives a valid (possibly weaker) bound
-    return s_val, -float(split.value)
+    return _checked_split(vs, cons, conj, g_w, s_val)
+
+
+def _checked_split(vs, cons, conj, g_w, s_val):
+    """(s, -R*(-s g)) from a split the solver proposed, made exact: the sum is restored exactly
+    (the residual moved into the first part), then the whole split and s are scaled down by
+    1e-6 steps until every part's conjugate constraint holds with no violation at all. Any
+    split that holds gives a valid (possibly weaker) bound."""
+    values = [np.asarray(v.value, float).copy() for v in vs]
+    values[0] = -s_val * g_w - sum(values[1:])
+    # round-off left in a part's own equalities (coordinates a part does not act on) is kept
+    # below 1e-11 of the gradient's size: its effect on the bound is of that order times |w|
+    slack = 1e-11 * (1.0 + float(np.max(np.abs(g_w), initial=0.0)))
+    for factor in (1.0, 1 - 1e-6, 1 - 1e-5, 1 - 1e-4):
+        for v, value in zip(vs, values):
+            v.value = factor * value
+        if all(float(np.max(np.atleast_1d(c.violation()), initial=0.0)) <= slack for c in cons):
+            inner = conj.value if not isinstance(conj, (int, float)) else conj
+            if inner is not None and np.isfinite(float(inner)):
+                return factor * s_val, -float(inner)
+    return s_val, -np.inf
 
 
 def _inf_by_primal_solve(g_w, penalties, names):
@@ -364,11 +384,45 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
 
 
 def certify_point(task, theta, u, mults, enough: float = 0.0):
-    """learnopt's certificate for a point of the task (whatever route produced it)."""
+    """learnopt's certificate for a point of the task (whatever route produced it).
+
+    When the route's multipliers put weight on rule rows with room to spare, the certificate is
+    also read with those multipliers at zero (any non-negative multipliers give a valid bound;
+    at an optimum a row with room has multiplier zero) and the better bound is kept."""
     M, q, a = loss_argument(task)
-    return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
-                   requirements=list(task.requirements), theta=theta, u=u, multipliers=mults,
-                   intercept=task.intercept, enough=enough)
+    reqs = list(task.requirements)
+
+    def read(m):
+        return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
+                       requirements=reqs, theta=theta, u=u, multipliers=m, intercept=task.intercept, enough=enough)
+
+    cert = read(mults)
+    cleaned = _without_room(reqs, mults, np.asarray(theta, float))
+    if cleaned is None or cert.rel_gap <= enough:
+        return cert
+    other = read(cleaned)
+    return other if other.gap < cert.gap else cert
+
+
+def _without_room(reqs, mults, theta):
+    """The multipliers with rows that have room (slack above 1e-9 of the rule's scale) set to
+    zero; None when nothing changes."""
+    if mults is None or not reqs:
+        return None
+    out, changed = [], False
+    for r, m in zip(reqs, mults):
+        if r.sense == "==" or m is None:
+            out.append(m)
+            continue
+        roomy = np.asarray(r.slack(theta)) > 1e-9 * r.scale()
+        mm = np.array(m, dtype=float, copy=True).reshape(np.shape(m))
+        if r.sense == "norm":
+            if bool(np.all(roomy)) and float(np.sum(np.abs(mm))) > 0:
+                mm, changed = np.zeros_like(mm), True
+        elif np.any(mm[roomy] != 0):
+            mm[roomy], changed = 0.0, True
+        out.append(mm)
+    return out if changed else None
 
 
 def _exact_small(prob) -> bool:
