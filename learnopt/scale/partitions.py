@@ -12,7 +12,8 @@ import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError
 from learnopt.data.sharded import BlockSpec, compute, encode_block
-from learnopt.data.table import design, design_with_ones
+from learnopt.data.encoding import design
+from learnopt.data.table import design_with_ones
 from learnopt.rules.language import parse
 from learnopt.rules.objects import TextRule, compile_all
 from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows

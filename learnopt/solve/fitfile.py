@@ -21,7 +21,8 @@ import pandas as pd
 from learnopt.core.errors import DataError, LearnoptError
 from learnopt.core.files import write_atomic
 from learnopt.core.status import Status
-from learnopt.data.table import Dataset, Encoding
+from learnopt.data.encoding import Encoding
+from learnopt.data.table import Dataset
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import TextRule
 from learnopt.solve.solvers import REGISTRY
