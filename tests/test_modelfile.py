@@ -16,7 +16,7 @@ def demo_fit():
     task = (lo.regression(df, target="minutes", loss=lo.loss.huber(4.0),
                           features=["distance_km", "stops", "size", "region"])
             .penalize(lo.penalty.l1(0.01), lo.penalty.group(0.02, [["stops", "distance_km"]]))
-            .require("distance_km >= 0", "increasing(`size=small`, `size=medium`, `size=large`)"))
+            .require("distance_km >= 0", "increasing(size.small, size.medium, size.large)"))
     return df, task.solve()
 
 
@@ -31,7 +31,7 @@ def test_saved_fit_predicts_exactly_the_same(tmp_path, demo_fit):
     assert back.task.loss == fit.task.loss and back.task.penalties == fit.task.penalties
     assert [r.text for r in back.task.rules] == [r.text for r in fit.task.rules]
     saved = json.loads(path.read_text())
-    assert saved["schema_version"] == 1 and saved["evidence"]["versions"]["cvxpy"]
+    assert saved["schema_version"] == 2 and saved["evidence"]["versions"]["cvxpy"]
     assert not list(tmp_path.glob(".learnopt-*"))          # the temporary file was renamed away
     assert back.evaluate(new)["mae"] == pytest.approx(fit.evaluate(new)["mae"], abs=0)
 

@@ -1,8 +1,11 @@
 """Encoding: how a frame's columns become the float64 design matrix, decided once and reused
 for new data (in memory and, partition by partition, for sharded data).
 
-Text and categorical columns are one-hot encoded, one coefficient per level; when the task has
-an intercept the first level (in sorted order) is the reference level and gets no column.
+Text and categorical columns are one-hot encoded, one coefficient per level named
+``column.level`` (``region.north``; :func:`level_name` is the one place that decides the form);
+when the task has an intercept the first level (in sorted order) is the reference level and
+gets no column. A name that would stand for two things (a column literally called
+``region.north`` beside the level ``north`` of ``region``) is refused, never aliased.
 Booleans become 0/1; numbers pass through.
 """
 from __future__ import annotations
@@ -24,6 +27,23 @@ class Encoding:
     levels: dict[str, tuple[str, ...]]               # categorical column -> kept levels
     reference: dict[str, str]                        # categorical column -> dropped level
     names: tuple[str, ...]                           # coefficient names
+
+    @property
+    def reference_names(self) -> tuple[str, ...]:
+        """Names of the reference levels (no coefficient of their own: 0 by construction)."""
+        return tuple(level_name(c, v) for c, v in self.reference.items())
+
+    @property
+    def former_names(self) -> dict[str, str]:
+        """Every level's name in the replaced ``column=level`` form -> its name now."""
+        pairs = [(c, v) for c, kept in self.levels.items() for v in kept] + list(self.reference.items())
+        return {f"{c}={v}": level_name(c, v) for c, v in pairs}
+
+
+def level_name(column, level) -> str:
+    """The coefficient name of one level of an encoded column: ``column.level``, e.g.
+    ``region.north`` (the one place the form is decided)."""
+    return f"{column}.{level}"
 
 
 def finite(values: np.ndarray, what: str) -> None:
@@ -64,6 +84,7 @@ def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
     """
     seen = levels or {}
     names, levels, reference = [], {}, {}
+    claims = {str(c): [f"data column {c!r}"] for c in frame.columns}   # what each name stands for
     for c in columns:
         col = frame[c]
         kind = column_type(col)
@@ -76,13 +97,19 @@ def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
             if intercept and len(lv) > 1:
                 reference[c] = lv[0]
             levels[c] = tuple(kept)
-            names.extend(f"{c}={v}" for v in kept)
+            names.extend(level_name(c, v) for v in kept)
+            for v in lv:
+                claims.setdefault(level_name(c, v), []).append(f"level {v!r} of column {c!r}")
         else:
             names.append(str(c))
-    dup = sorted({n for n in names if names.count(n) > 1})
-    if dup:
-        raise DataError(f"Coefficient names {dup} occur more than once (a column name clashes with "
-                        f"an encoded level name); rename the columns.")
+    clashes = [f"the name {n!r} would stand for both {' and '.join(who)}" for n, who in claims.items()
+               if len(who) > 1]
+    if clashes:
+        fix = ("encoded levels are named column.level; rename the column or the level (e.g. with "
+               "frame.rename(columns=...)) so that each name means one thing.")
+        if len(clashes) == 1:
+            raise DataError(f"{clashes[0][0].upper()}{clashes[0][1:]}: {fix}")
+        raise DataError(f"{len(clashes)} names would each stand for two things: {fix}", problems=clashes)
     return Encoding(tuple(columns), levels, reference, tuple(names))
 
 

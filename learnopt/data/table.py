@@ -2,10 +2,11 @@
 
 Accepted data: a pandas DataFrame (``target`` and ``weights`` are column names), a path to a
 CSV or Parquet file, or a numpy / scipy.sparse matrix (then ``target`` is the y array and the
-coefficient names are x0, x1, ...). Text and categorical columns are one-hot encoded with
-names like ``region=north``; when the task has an intercept the first level (in sorted order)
-is the reference level and gets no column, so the coefficients are differences from it.
-A rule may name the reference level (its coefficient is 0 by construction). Booleans become 0/1. Anything unusable raises :class:`DataError` naming the column and the fix.
+coefficient names are x0, x1, ...). Text and categorical columns are one-hot encoded, one
+coefficient per level named ``column.level`` (:mod:`learnopt.data.encoding`); the coefficients
+of a column's levels are differences from its reference level, which a rule may name (its
+coefficient is 0 by construction). Anything unusable raises :class:`DataError` naming the
+column and the fix.
 """
 from __future__ import annotations
 
