@@ -9,7 +9,7 @@ from learnopt import rules as rule
 from learnopt.centres.fusion import FusionFit, FusionTask, fusion
 from learnopt.centres.placement import CentresFit, CentresTask, centres
 from learnopt.core.errors import (AccuracyWarning, DataError, LearnoptError, MissingDependencyError, NotConvexError,
-                                  ParameterError, SolverError, TooLargeError)
+                                  OldSpellingWarning, ParameterError, SolverError, TooLargeError)
 from learnopt.core.status import Status
 from learnopt.interface.task import Task, classification, load_fit, regression
 from learnopt.problem.problem import Problem
@@ -47,5 +47,6 @@ def estimator(kind: str = "regression", loss=None, **options):
 __all__ = [
     "regression", "classification", "centres", "CentresTask", "CentresFit", "fusion", "FusionTask", "FusionFit", "estimator", "load_fit", "load_recipe", "loss", "penalty", "rule", "Task", "Problem", "Status", "Fit", "Attempt", "Timings",
     "Verdict", "Evaluation", "LearnoptError", "DataError", "ParameterError", "NotConvexError",
-    "SolverError", "TooLargeError", "MissingDependencyError", "AccuracyWarning", "installed_solvers",
+    "SolverError", "TooLargeError", "MissingDependencyError", "AccuracyWarning", "OldSpellingWarning",
+    "installed_solvers",
 ]

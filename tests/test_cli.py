@@ -27,7 +27,7 @@ def _python_deliveries():
                           features=["distance_km", "stops", "size", "region"])
             .penalize(lo.penalty.l1(0.01))
             .require("distance_km >= 0", "0 <= stops <= 3",
-                     "increasing(`size=small`, `size=medium`, `size=large`)",
+                     "increasing(size.small, size.medium, size.large)",
                      "prediction >= service_floor where segment == 'retail'",
                      "mean(prediction where region == 'south') - mean(prediction where region == 'north') <= 1"))
 
@@ -50,7 +50,7 @@ def _python_energy():
     df = pd.read_csv(RECIPES / "data" / "energy.csv")
     return (lo.regression(df, "kwh", loss=lo.loss.quantile(0.9), features=["band", "occupancy", "weekday"])
             .penalize(lo.penalty.l1(0.01))
-            .require("increasing(`band=b1_cold`, `band=b2_mild`, `band=b3_warm`, `band=b4_hot`)", "occupancy >= 0"))
+            .require("increasing(band.b1_cold, band.b2_mild, band.b3_warm, band.b4_hot)", "occupancy >= 0"))
 
 
 def _python_depots():
@@ -221,6 +221,19 @@ def test_old_penalty_key_weights_still_works_with_a_note(tmp_path, copied):
     recipe.write_text(both)
     with pytest.raises(lo.DataError, match="give 'factors' only"):
         read_recipe(recipe)
+
+
+def test_rules_in_the_replaced_forms_still_run_with_a_note(copied):
+    recipe = copied / "deliveries.toml"
+    text = recipe.read_text()
+    new = '"increasing(size.small, size.medium, size.large)"'
+    assert new in text
+    recipe.write_text(text.replace(new, '"increasing(`size=small`, {size=medium}, size.large)"'))
+    out = CliRunner().invoke(main, ["check", str(recipe)])
+    assert out.exit_code == 0, out.output
+    assert "note: Rule 'increasing(`size=small`, {size=medium}, size.large)': names are now quoted in braces" in out.output
+    assert "write size.small for {size=small}" in out.output and "write size.medium for {size=medium}" in out.output
+    assert out.output.count("write size.medium") == 1                      # each note once
 
 
 def test_compare_refuses_unknown_solver_names_with_the_known_ones(copied):

@@ -16,7 +16,7 @@ def demo_fit():
     task = (lo.regression(df, target="minutes", loss=lo.loss.huber(4.0),
                           features=["distance_km", "stops", "size", "region"])
             .penalize(lo.penalty.l1(0.01), lo.penalty.group(0.02, [["stops", "distance_km"]]))
-            .require("distance_km >= 0", "increasing(`size=small`, `size=medium`, `size=large`)"))
+            .require("distance_km >= 0", "increasing(size.small, size.medium, size.large)"))
     return df, task.solve()
 
 

@@ -119,7 +119,7 @@ def test_csv_glob_and_text_levels_spread_over_files(client, tmp_path):
     pattern = write_parts(frame, tmp_path, 3, kind="csv")
     task = lo.regression(pattern, target="price")
     ref = lo.regression(frame, target="price").solve()
-    assert task.features == ref.task.features == ("size", "area=north", "area=west")
+    assert task.features == ref.task.features == ("size", "area.north", "area.west")
     fit = task.solve(client=client)
     assert rel(fit.objective, ref.objective) <= 1e-10
     # predictions on new pandas data use the same encoding
@@ -225,7 +225,7 @@ def test_logistic_with_penalty_and_rule_equals_in_memory(client, tmp_path):
     frame = make_classes()
     pattern = write_parts(frame, tmp_path, 4)
     build = lambda d: (lo.classification(d, target="label", loss="logistic")  # noqa: E731
-                       .penalize(lo.penalty.l1(0.01)).require("f0 >= 0.8", "`site=mill` <= 0"))
+                       .penalize(lo.penalty.l1(0.01)).require("f0 >= 0.8", "site.mill <= 0"))
     fit = build(pattern).solve(client=client)
     ref = build(frame).solve()
     assert fit.status == ref.status == "optimal"

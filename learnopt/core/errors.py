@@ -6,6 +6,10 @@ the exit code the command line uses for it.
 """
 from __future__ import annotations
 
+import os
+import sys
+import warnings
+
 
 class LearnoptError(Exception):
     """Base class of every error learnopt raises on purpose."""
@@ -68,3 +72,19 @@ class MissingDependencyError(LearnoptError, ImportError):
 
 class AccuracyWarning(UserWarning):
     """The answer's accuracy is limited by the data (an ill-conditioned design), not the solver."""
+
+
+class OldSpellingWarning(DeprecationWarning):
+    """Something was written in a form learnopt has replaced (a rule quoted in backticks, an
+    encoded level named ``column=level``); it is still read in this release, and the message
+    gives the new form."""
+
+
+def warn_old_spelling(message: str) -> None:
+    """Issue an :class:`OldSpellingWarning` that points at the first line outside learnopt (the
+    user's own call), so that a script run directly shows it."""
+    package = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    frame, level = sys._getframe(0), 1
+    while frame is not None and os.path.abspath(frame.f_code.co_filename).startswith(package + os.sep):
+        frame, level = frame.f_back, level + 1
+    warnings.warn(message, OldSpellingWarning, stacklevel=level)

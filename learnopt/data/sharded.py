@@ -26,8 +26,8 @@ import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
 from learnopt.data.points import coordinate_columns
-from learnopt.data.table import (Encoding, _close, _column, _column_type, choose_features, design, encode, labels_of,
-                                 unique_columns)
+from learnopt.data.encoding import Encoding, column_type, design, encode
+from learnopt.data.table import _close, _column, choose_features, labels_of, unique_columns
 
 
 GLOB_CHARS = "*?["
@@ -146,7 +146,7 @@ def open_source(data, target, *, kind: str, features: Sequence[str] | None, weig
         if not pd.api.types.is_numeric_dtype(tcol) or pd.api.types.is_bool_dtype(tcol):
             raise DataError(f"The target {target!r} must be numeric for regression (it is {tcol.dtype}); "
                             f"for labels use lo.classification.")
-    text = [c for c in features if _column_type(meta[c]) == "category"]
+    text = [c for c in features if column_type(meta[c]) == "category"]
     wanted = text + ([target] if kind == "classification" else [])
     found = compute(label, *[ddf[c].drop_duplicates() for c in wanted], ddf.map_partitions(len))
     uniques, sizes = found[:-1], np.asarray(found[-1], dtype=np.int64)

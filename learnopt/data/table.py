@@ -2,10 +2,11 @@
 
 Accepted data: a pandas DataFrame (``target`` and ``weights`` are column names), a path to a
 CSV or Parquet file, or a numpy / scipy.sparse matrix (then ``target`` is the y array and the
-coefficient names are x0, x1, ...). Text and categorical columns are one-hot encoded with
-names like ``region=north``; when the task has an intercept the first level (in sorted order)
-is the reference level and gets no column, so the coefficients are differences from it.
-A rule may name the reference level (its coefficient is 0 by construction). Booleans become 0/1. Anything unusable raises :class:`DataError` naming the column and the fix.
+coefficient names are x0, x1, ...). Text and categorical columns are one-hot encoded, one
+coefficient per level named ``column.level`` (:mod:`learnopt.data.encoding`); the coefficients
+of a column's levels are differences from its reference level, which a rule may name (its
+coefficient is 0 by construction). Anything unusable raises :class:`DataError` naming the
+column and the fix.
 """
 from __future__ import annotations
 
@@ -19,16 +20,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from learnopt.core.errors import DataError
-
-
-@dataclass(frozen=True)
-class Encoding:
-    """How a frame's columns become the design matrix; reused for new data."""
-
-    columns: tuple[str, ...]                          # input columns, in order
-    levels: dict[str, tuple[str, ...]]               # categorical column -> kept levels
-    reference: dict[str, str]                        # categorical column -> dropped level
-    names: tuple[str, ...]                           # coefficient names
+from learnopt.data.encoding import Encoding, column_type, design, encode, finite
 
 
 @dataclass(eq=False)
@@ -89,14 +81,6 @@ def _column(frame: pd.DataFrame, name, role: str) -> pd.Series:
     return frame[name]
 
 
-def _finite(values: np.ndarray, what: str) -> None:
-    bad = ~np.isfinite(values)
-    if bad.any():
-        rows = np.flatnonzero(bad)
-        raise DataError(f"{what} has {bad.sum()} missing or infinite value(s) (first at row "
-                        f"{rows[0]}); drop or fill those rows before fitting.")
-
-
 def _weights(weights, frame, n) -> tuple[np.ndarray, str | None]:
     if weights is None:
         return np.ones(n), None
@@ -111,101 +95,13 @@ def _weights(weights, frame, n) -> tuple[np.ndarray, str | None]:
         w, label = np.asarray(weights, dtype=float).ravel(), "weights"
         if w.size != n:
             raise DataError(f"{w.size} weights given for {n} rows; give one weight per row.")
-    _finite(w, label.capitalize())
+    finite(w, label.capitalize())
     if np.any(w < 0):
         raise DataError(f"{label.capitalize()} has negative values (first at row {np.flatnonzero(w < 0)[0]}); "
                         f"weights must be >= 0.")
     if w.sum() <= 0:
         raise DataError(f"{label.capitalize()} sums to zero; at least one row needs a positive weight.")
     return w, (weights if isinstance(weights, str) else None)
-
-
-def _column_type(col: pd.Series) -> str:
-    if pd.api.types.is_bool_dtype(col):
-        return "bool"
-    if pd.api.types.is_datetime64_any_dtype(col) or pd.api.types.is_timedelta64_dtype(col):
-        return "datetime"
-    if pd.api.types.is_numeric_dtype(col):
-        return "numeric"
-    return "category"
-
-
-def _levels(col: pd.Series, name: str) -> list[str]:
-    if col.isna().any():
-        raise DataError(f"Column {name!r} has {int(col.isna().sum())} missing value(s); fill them "
-                        f"(e.g. with a level 'unknown') or drop those rows.")
-    types = {type(v) for v in col.tolist()}
-    if len(types) > 1 and str in types:
-        raise DataError(f"Column {name!r} mixes text and numbers ({', '.join(sorted(t.__name__ for t in types))}); "
-                        f"make it all text (a category) or all numbers.")
-    return sorted({str(v) for v in col.tolist()})
-
-
-def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
-           levels: dict[str, list] | None = None) -> Encoding:
-    """Decide the encoding of ``columns`` of ``frame`` (levels, names).
-
-    ``levels``: the distinct values of text columns when ``frame`` holds only the column types
-    (sharded data, where they come from a pass over the partitions).
-    """
-    seen = levels or {}
-    names, levels, reference = [], {}, {}
-    for c in columns:
-        col = frame[c]
-        kind = _column_type(col)
-        if kind == "datetime":
-            raise DataError(f"Column {c!r} holds dates/times; convert it to a number (e.g. days "
-                            f"since a start date) or to text categories before fitting.")
-        if kind == "category":
-            lv = _levels(pd.Series(seen[c], dtype=object) if c in seen else col, c)
-            kept = lv[1:] if intercept and len(lv) > 1 else lv
-            if intercept and len(lv) > 1:
-                reference[c] = lv[0]
-            levels[c] = tuple(kept)
-            names.extend(f"{c}={v}" for v in kept)
-        else:
-            names.append(str(c))
-    dup = sorted({n for n in names if names.count(n) > 1})
-    if dup:
-        raise DataError(f"Coefficient names {dup} occur more than once (a column name clashes with "
-                        f"an encoded level name); rename the columns.")
-    return Encoding(tuple(columns), levels, reference, tuple(names))
-
-
-def design(encoding: Encoding, frame: pd.DataFrame) -> np.ndarray:
-    """Apply an encoding to a frame: the float64 design matrix, columns in ``encoding.names``."""
-    missing = [c for c in encoding.columns if c not in frame.columns]
-    if missing:
-        raise DataError(f"The data lacks the feature column(s) {missing}; it needs "
-                        f"{', '.join(encoding.columns)}.")
-    if len(frame) == 0:
-        raise DataError("The data has no rows.")
-    blocks = []
-    for c in encoding.columns:
-        col = frame[c]
-        if c in encoding.levels:
-            text = col.astype(object)
-            lv = _levels(text, c)
-            known = set(encoding.levels[c]) | ({encoding.reference[c]} if c in encoding.reference else set())
-            unseen = [v for v in lv if v not in known]
-            if unseen:
-                raise DataError(f"Column {c!r} has level(s) {unseen} that the training data did not "
-                                f"have; known levels: {sorted(known)}. Map them to a known level first.")
-            s = text.map(str).to_numpy()
-            blocks.append(np.column_stack([(s == v).astype(float) for v in encoding.levels[c]])
-                          if encoding.levels[c] else np.zeros((len(frame), 0)))
-        else:
-            kind = _column_type(col)
-            if kind not in ("numeric", "bool"):
-                raise DataError(f"Column {c!r} was numeric in the training data but is {col.dtype} here; "
-                                f"convert it to numbers.")
-            v = col.to_numpy(dtype=float)
-            _finite(v, f"Column {c!r}")
-            if np.any(np.abs(v) > 1e150):
-                raise DataError(f"Column {c!r} has values beyond 1e150 in size; rescale it (e.g. to "
-                                f"thousands or millions) before fitting.")
-            blocks.append(v[:, None])
-    return np.hstack(blocks) if blocks else np.zeros((len(frame), 0))
 
 
 def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
@@ -215,7 +111,7 @@ def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
             raise DataError(f"The target {name} must be numeric for regression (it is {s.dtype}); "
                             f"for labels use lo.classification.")
         y = s.to_numpy(dtype=float)
-        _finite(y, f"The target {name}")
+        finite(y, f"The target {name}")
         return y, None
     s = pd.Series(values)
     if s.isna().any():
@@ -308,7 +204,7 @@ def choose_features(columns, target: str | None, weights: str | None, features, 
 def _from_array(X, target, kind, features, weights, positive) -> Dataset:
     if sp.issparse(X):
         X = sp.csr_matrix(X, dtype=float)
-        _finite(X.data, "The data matrix")
+        finite(X.data, "The data matrix")
     else:
         X = np.asarray(X)
         if X.dtype.kind not in "biuf":
@@ -319,7 +215,7 @@ def _from_array(X, target, kind, features, weights, positive) -> Dataset:
             X = X[:, None]
         if X.ndim != 2:
             raise DataError(f"The data matrix must be 2-D (rows x features); got shape {X.shape}.")
-        _finite(X, "The data matrix")
+        finite(X, "The data matrix")
     if X.shape[0] == 0:
         raise DataError("The data has no rows.")
     if target is None or isinstance(target, str):
@@ -360,7 +256,7 @@ def _id_like(frame: pd.DataFrame, columns) -> list[str]:
     n = len(frame)
     for c in columns:
         col = frame[c]
-        if _column_type(col) == "category" and n >= 10:
+        if column_type(col) == "category" and n >= 10:
             levels = col.nunique(dropna=True)
             if levels >= 0.5 * n:
                 out.append(f"column {c!r} has {levels} distinct values in {n} rows: it looks like an "
@@ -408,7 +304,7 @@ def new_design(ds: Dataset, data) -> np.ndarray | sp.csr_matrix:
         X = np.asarray(data, dtype=float)
         if X.ndim == 1:
             X = X[None, :] if ds.d > 1 else X[:, None]
-        _finite(X, "The new data matrix")
+        finite(X, "The new data matrix")
     if X.shape[1] != ds.d:
         raise DataError(f"The new data has {X.shape[1]} columns; the task has {ds.d} features.")
     return X

@@ -5,8 +5,8 @@ Exit codes: 0 the fit is certified optimal, a placement keeps its rules, or the 
 (unverified, infeasible, unbounded, failed); 2 invalid input (recipe, data, parameters);
 3 a piece is not convex; 4 no usable solver; 5 too large for the route; 6 a package is missing.
 Every command takes ``--json`` for machine-readable output. Lists of names (solvers, actions)
-come from their registries. A recipe that uses a key renamed in this release still runs; the
-renaming is noted on stderr.
+come from their registries. A recipe that uses a key renamed in this release, or a rule written
+in a replaced form (backtick quotes, ``column=level``), still runs; the new form is noted on stderr.
 """
 from __future__ import annotations
 
@@ -20,8 +20,8 @@ import pandas as pd
 
 from learnopt.core.checks import refusal
 from learnopt.core.version import __version__
-from learnopt.core.errors import LearnoptError, MissingDependencyError, ParameterError
 from learnopt.centres.verdict import PlacementVerdict
+from learnopt.core.errors import LearnoptError, MissingDependencyError, OldSpellingWarning, ParameterError
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
@@ -137,14 +137,21 @@ def _show(job, as_json: bool) -> None:
     con.print(CAUTION)
 
 
-def _read(reader, recipe_path):
-    """``reader(recipe_path)``; learnopt's deprecation notes (renamed recipe keys) go to stderr."""
+def _read(reader, *args, **options):
+    """``reader(*args, **options)``; learnopt's deprecation notes (renamed recipe keys, rules in a
+    replaced form) go to stderr, each once."""
     home = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        out = reader(recipe_path)
+        out = reader(*args, **options)
+    seen = set()
     for w in caught:
-        if issubclass(w.category, DeprecationWarning) and os.path.abspath(w.filename).startswith(home):
+        key = (w.category, str(w.message), w.filename, w.lineno)
+        if key in seen:
+            continue
+        seen.add(key)
+        if issubclass(w.category, OldSpellingWarning) or (
+                issubclass(w.category, DeprecationWarning) and os.path.abspath(w.filename).startswith(home)):
             click.echo(f"note: {w.message}", err=True)
         else:
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
@@ -153,7 +160,7 @@ def _read(reader, recipe_path):
 
 def _run(recipe_path, as_json, report, **overrides):
     try:
-        job = jobs.run(_read(read_recipe, recipe_path), report=report, **overrides)
+        job = _read(jobs.run, _read(read_recipe, recipe_path), report=report, **overrides)
     except LearnoptError as exc:
         _fail(exc, as_json)
     _show(job, as_json)
@@ -184,7 +191,7 @@ def run(recipe, as_json, report):
 @_json
 def check(recipe, as_json):
     try:
-        task, split = jobs.training_task(_read(read_recipe, recipe))
+        task, split = _read(jobs.training_task, _read(read_recipe, recipe))
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)

@@ -81,11 +81,11 @@ class Problem:
     def context(self) -> Context:
         """What rules compile against: the names, and (in memory) the design rows and data columns."""
         enc = self.dataset.encoding
-        reference = tuple(f"{c}={v}" for c, v in enc.reference.items()) if enc is not None else ()
+        reference, former = (enc.reference_names, enc.former_names) if enc is not None else ((), {})
         if self.sharded:
-            return Context(self.coefficient_names, None, None, reference, no_rows=SHARDED_ROWS)
+            return Context(self.coefficient_names, None, None, reference, former, no_rows=SHARDED_ROWS)
         Xt = design_with_ones(self.dataset.X, self.intercept)   # sparse stays sparse: rules take rows of it
-        return Context(self.coefficient_names, Xt, self.dataset.frame, reference)
+        return Context(self.coefficient_names, Xt, self.dataset.frame, reference, former)
 
     # ---- varying
     def penalize(self, *penalties: Penalty) -> "Problem":

@@ -7,9 +7,9 @@ A rule is text over coefficient names, ``intercept``, ``prediction`` and data co
     "prediction >= cost where segment == 'retail'"
     "mean(prediction where region == 'north') - mean(prediction where region == 'south') <= 0.5"
 
-Names that are not Python identifiers (``region=north``) are written in backticks:
-```` `region=north` >= 0 ````. A name in a rule body means the coefficient when a feature
-has that name, otherwise the data column; in a ``where`` condition it is always the data
+How names are written (``region.north``, ``{unit price}``) is set out in one place, the
+docstring of :mod:`learnopt.rules.reading`. A name in a rule body means the coefficient when a
+feature has that name, otherwise the data column; in a ``where`` condition it is always the data
 column. Prediction rules hold on the training rows they select.
 
 Text is parsed with Python's :mod:`ast` and walked with a whitelist; nothing is evaluated.
@@ -26,8 +26,8 @@ import difflib
 import numpy as np
 import pandas as pd
 
-from learnopt.core.errors import DataError, NotConvexError
-from learnopt.rules.reading import Quoted, read, shown
+from learnopt.core.errors import DataError, NotConvexError, warn_old_spelling
+from learnopt.rules.reading import Quoted, read, shown, written
 from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows, Requirement
 
 FUNCTIONS = ("increasing", "decreasing", "nonneg", "nonpos", "norm1", "norm2", "abs", "mean", "sum")
@@ -61,17 +61,44 @@ class _Compiler:
     def not_convex(self, why: str) -> NotConvexError:
         return NotConvexError(f"Rule {self.text!r} is not convex: {why}")
 
-    def _name(self, node: ast.Name) -> str:
-        return self.quoted.names.get(node.id, node.id)
+    def _name(self, node: ast.AST) -> str | None:
+        """The name a Name node, or a dotted chain of them (``region.north``), stands for."""
+        if isinstance(node, ast.Name):
+            return self.quoted.names.get(node.id, node.id)
+        if isinstance(node, ast.Attribute):
+            head = self._name(node.value)
+            return None if head is None else f"{head}.{node.attr}"
+        return None
 
-    def unknown(self, name: str) -> DataError:
+    def unknown(self, name: str, condition: bool = False) -> DataError:
         names = [n for n in self.ctx.names if not n.startswith("\x00")]   # not internal term slots
+        if condition and (name in self.index or name in self.ctx.reference):
+            column = max((str(c) for c in self.columns if name.startswith(f"{c}.")), key=len, default=None)
+            example = "" if column is None else \
+                f", e.g. {_written(column)} == {name[len(column) + 1:]!r}"
+            return self.fail(f"{_written(name)} is a coefficient, and a 'where' condition reads data "
+                             f"columns: compare the column itself{example}.")
         known = names + ["prediction"] + sorted(map(str, self.columns))
         close = difflib.get_close_matches(name, list(dict.fromkeys(known)), n=3, cutoff=0.6)
-        hint = f" Close matches: {', '.join(close)}." if close else ""
-        return self.fail(f"unknown name {name!r}.{hint} Coefficients: {', '.join(names)}"
-                         + (f"; data columns: {', '.join(sorted(map(str, self.columns)))}" if self.columns else "")
-                         + ". Quote names with symbols in backticks, e.g. `region=north`.")
+        hint = f" Close matches: {', '.join(map(_written, close))}." if close else ""
+        return self.fail(f"unknown name {name!r}.{hint} Coefficients: {', '.join(map(_written, names))}"
+                         + (f"; data columns: {', '.join(_written(str(c)) for c in sorted(map(str, self.columns)))}"
+                            if self.columns else "")
+                         + ". Names with spaces or symbols are written in braces, e.g. {unit price}; "
+                           "encoded levels as column.level, e.g. region.north.")
+
+    def former(self, name: str) -> str:
+        """A level written in the replaced ``column=level`` form: its name now, with a warning;
+        refused when the old spelling is also the name of a coefficient or data column."""
+        new = self.ctx.former[name]
+        if name in self.index or name in self.columns:
+            what = "coefficient" if name in self.index else "data column"
+            raise self.fail(f"{_written(name)} is both a {what} and the old spelling of level "
+                            f"{_written(new)}; write {_written(new)} for the level, and rename the "
+                            f"column {name!r} to use it in a rule.")
+        warn_old_spelling(f"Rule {self.text!r}: encoded levels are now named column.level; write "
+                          f"{_written(new)} for {_written(name)}. The old form is still read in this release.")
+        return new
 
     # ---- top level: a comparison or a shape function, optionally with a where
     def top(self, node: ast.AST, mask: np.ndarray | None = None) -> list[Requirement]:
@@ -197,11 +224,11 @@ class _Compiler:
             if isinstance(v, str):
                 raise self.fail("a minus sign cannot apply to text.")
             return -v
-        if isinstance(node, ast.Name):
-            name = self._name(node)
+        name = self._name(node)
+        if name is not None:
             if name in self.columns:
                 return self.ctx.frame[name].to_numpy()
-            raise self.unknown(name)
+            raise self.unknown(name, condition=True)
         raise self.fail(f"{shown(node, self.quoted)!r} is not allowed in a condition; use data "
                         f"column names, numbers and quoted text.")
 
@@ -213,7 +240,7 @@ class _Compiler:
             if not np.isfinite(float(node.value)) or abs(float(node.value)) > 1e15:
                 raise self.fail(f"the number {node.value!r} is too large to use; rescale the data.")
             return _scalar(self.ctx, c=float(node.value))
-        if isinstance(node, ast.Name):
+        if isinstance(node, (ast.Name, ast.Attribute)) and self._name(node) is not None:
             return self.name_value(self._name(node), mask)
         if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
             v = self.value(node.operand, mask)
@@ -230,12 +257,15 @@ class _Compiler:
         if isinstance(node, ast.Compare):
             raise self.fail("comparisons cannot be nested inside an expression.")
         if isinstance(node, ast.Attribute):
-            raise self.fail("attribute access (a.b) is not part of the rule language.")
+            raise self.fail(f"{shown(node, self.quoted)!r}: a dot joins an encoded column and its "
+                            f"level (region.north); it cannot follow an expression.")
         raise self.fail(f"{shown(node, self.quoted)!r} is not part of the rule language.")
 
     def name_value(self, name: str, mask):
         if name == "__rest__":
             raise self.fail("'where' must follow an expression.")
+        if name in self.ctx.former:
+            name = self.former(name)
         if name in self.index:
             A = np.zeros((1, self.ctx.p))
             A[0, self.index[name]] = 1.0
@@ -352,6 +382,11 @@ class _Compiler:
         if fn == "abs" and len(A) != 1:
             raise self.fail("abs(...) takes one scalar; use norm1(...) for several.")
         return NormTerm(1.0, A, c, order, _scalar(self.ctx), shown(node, self.quoted))
+
+
+def _written(name: str) -> str:
+    """A name as a rule writes it, for messages (a name with a brace is shown quoted)."""
+    return repr(name) if "{" in name or "}" in name else written(name)
 
 
 def _add(a, b, comp: _Compiler) -> Affine:

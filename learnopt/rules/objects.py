@@ -14,6 +14,7 @@ from typing import Sequence
 from learnopt.core import checks as params
 from learnopt.core.errors import DataError, NotConvexError
 from learnopt.rules.language import parse
+from learnopt.rules.reading import written
 from learnopt.rules.requirements import Context, Requirement, RuleSpec
 
 
@@ -40,7 +41,7 @@ class Bounds(RuleSpec):
     def _texts(self) -> list[str]:
         out = []
         for name, low, high in self.limits:
-            shown = name if name.isidentifier() else f"`{name}`"
+            shown = written(name)
             if low is not None and high is not None:
                 out.append(f"{low:g} <= {shown} <= {high:g}")
             elif low is not None:

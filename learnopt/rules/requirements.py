@@ -8,7 +8,8 @@ Every rule compiles to :class:`Requirement` objects:
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from typing import Mapping
 
 import numpy as np
 import pandas as pd
@@ -78,6 +79,7 @@ class Context:
     design: object | None           # n x p design (dense or CSR, with the column of ones), or None
     frame: pd.DataFrame | None      # raw data columns, row-aligned with design
     reference: tuple[str, ...] = () # reference levels of encoded columns: coefficients fixed at 0
+    former: Mapping[str, str] = field(default_factory=dict)  # replaced level names -> names now
     no_rows: str = ""               # why rules cannot refer to data rows here (sharded data)
     aggregates: object | None = None  # sharded data: hook(compiler, fn, node, mask) for mean/sum
 

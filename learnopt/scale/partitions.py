@@ -12,7 +12,8 @@ import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError
 from learnopt.data.sharded import BlockSpec, compute, encode_block
-from learnopt.data.table import design, design_with_ones
+from learnopt.data.encoding import design
+from learnopt.data.table import design_with_ones
 from learnopt.rules.language import parse
 from learnopt.rules.objects import TextRule, compile_all
 from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows
@@ -74,14 +75,15 @@ class _Partials:
         return Affine(part[0][None, :], np.array([part[1]]))
 
 
-def _rule_partials(part: pd.DataFrame, spec: BlockSpec, texts, names, reference, intercept: bool, index: int):
+def _rule_partials(part: pd.DataFrame, spec: BlockSpec, texts, names, intercept: bool, index: int):
     """For each rule text, the partial sums of its mean/sum terms on one partition."""
     X, _, _ = encode_block(part, spec, index)
     frame = part.reset_index(drop=True)
     out = []
     for text in texts:
         hook = _Partials()
-        ctx = Context(names, design_with_ones(X, intercept), frame, reference, aggregates=hook)
+        ctx = Context(names, design_with_ones(X, intercept), frame, spec.encoding.reference_names,
+                      spec.encoding.former_names, aggregates=hook)
         try:
             parse(text, ctx)
         except LearnoptError:
@@ -102,7 +104,6 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
     names = task.coefficient_names
     p = len(names)
     enc = ds.encoding
-    reference = tuple(f"{c}={v}" for c, v in enc.reference.items())
     sample = None
     done: list = []
     pending = []          # (text, extended requirements, slots hook, place)
@@ -120,8 +121,8 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
             sX = design(enc, sample) if len(sample) else np.zeros((0, ds.d))
         hook = _Slots(p, slots)
         padded = np.hstack([design_with_ones(sX, task.intercept), np.zeros((len(sample), slots))])
-        ctx = Context(names + tuple(f"\x00term{j}" for j in range(slots)), padded, sample, reference,
-                      aggregates=hook)
+        ctx = Context(names + tuple(f"\x00term{j}" for j in range(slots)), padded, sample, enc.reference_names,
+                      enc.former_names, aggregates=hook)
         try:
             reqs = parse(spec.text, ctx)
         except NoRows:                 # a 'where' outside mean/sum selects none of the sample rows
@@ -151,7 +152,7 @@ def compile_rules(task, specs) -> tuple[list, list[str]]:
     if pending:
         texts = [t for t, _, _, _ in pending]
         fn = delayed(_rule_partials, pure=True)
-        parts = compute(ds.label, *[fn(part, ds.spec, texts, names, reference, task.intercept, k)
+        parts = compute(ds.label, *[fn(part, ds.spec, texts, names, task.intercept, k)
                                     for k, part in enumerate(ds.source.to_delayed())])
         for i, (text, reqs, hook, place) in enumerate(pending):
             terms = []
@@ -174,11 +175,13 @@ ROW_MIXED = ("Rule {text!r} mixes predictions row by row with mean(...) or sum(.
              "sharded data write them as two rules.")
 
 
-def row_requirements(part: pd.DataFrame, spec: BlockSpec, texts, names, reference, intercept: bool, index: int):
+def row_requirements(part: pd.DataFrame, spec: BlockSpec, texts, names, intercept: bool, index: int):
     """The rules row by row compiled on one partition's rows: one list of requirements per rule
     (empty when the partition has none of its rows)."""
     X, _, _ = encode_block(part, spec, index)
-    ctx = Context(names, design_with_ones(X, intercept), part.reset_index(drop=True), reference)
+    enc = spec.encoding
+    ctx = Context(names, design_with_ones(X, intercept), part.reset_index(drop=True), enc.reference_names,
+                  enc.former_names)
     out = []
     for text in texts:
         try:

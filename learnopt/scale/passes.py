@@ -8,7 +8,7 @@ from scipy.special import expit
 
 from learnopt.core.errors import DataError
 from learnopt.data.sharded import BlockSpec, ShardedDataset, as_frame, encode_block
-from learnopt.data.table import design
+from learnopt.data.encoding import design
 
 
 def _argument(part, spec, theta, intercept: bool, margin: bool, index: int):

@@ -7,6 +7,10 @@ Floats are written with ``repr`` (shortest round-trip form), so a loaded fit pre
 what the saved one did. The loaded fit carries no training data: its ``task`` is a
 description for prediction and evaluation (a plain problem value unless the reader asks for
 another type), not something to solve again.
+
+Schema 2 names encoded levels ``column.level``. A schema-1 file named them ``column=level``; on
+loading, its coefficient names, feature names and the names inside its penalties are translated
+(its rule texts are kept as written: the rule compiler still reads the old form).
 """
 from __future__ import annotations
 
@@ -21,7 +25,8 @@ import pandas as pd
 from learnopt.core.errors import DataError, LearnoptError
 from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, intact, read_model, seal, write_atomic
 from learnopt.core.status import Status
-from learnopt.data.table import Dataset, Encoding
+from learnopt.data.encoding import Encoding
+from learnopt.data.table import Dataset
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import TextRule
 from learnopt.solve.solvers import REGISTRY
@@ -126,25 +131,58 @@ def save(fit, path) -> None:
     write_atomic(path, json.dumps(seal(to_dict(fit)), indent=1))
 
 
+def _renamed(value, renamed: dict):
+    """``value`` (strings, possibly in nested lists and dicts) with every old level name replaced."""
+    if isinstance(value, str):
+        return renamed.get(value, value)
+    if isinstance(value, (list, tuple)):
+        return type(value)(_renamed(v, renamed) for v in value)
+    if isinstance(value, dict):
+        return {_renamed(k, renamed): _renamed(v, renamed) for k, v in value.items()}
+    return value
+
+
+def _translated(saved: dict, renamed: dict, path: str) -> dict:
+    """A schema-1 file's contents with the level names of today; refused when a translated name
+    meets a name the file already had (a column literally named like a level)."""
+    t = dict(saved["task"])
+    clash = sorted(set(renamed.values()) & (set(t["features"]) - set(renamed)))
+    if clash:
+        raise DataError(f"Model file {path!r} (schema 1) has a column named {clash[0]!r} beside the level "
+                        f"written {next(k for k, v in renamed.items() if v == clash[0])!r}; both would be "
+                        f"called {clash[0]!r} now. Fit the task again with that column renamed.")
+    t["features"] = _renamed(t["features"], renamed)
+    t["penalties"] = [{**p, "fields": _renamed(p.get("fields", {}), renamed)} for p in t["penalties"]]
+    return {**saved, "task": t, "coef": _renamed(saved["coef"], renamed)}
+
+
 def read(path, *, task_type=None) -> dict:
     """The fields of a fit written by :func:`save` (keyword arguments for ``Fit``); refuse other
     formats and newer schema versions. ``task_type`` builds the task description (default
     :class:`~learnopt.problem.problem.Problem`; the package face passes the user's Task)."""
     path = os.fspath(path)
     saved = read_model(path)
+    sealed = intact(saved)                 # judged on the file as written, before any translation
+    version = saved["schema_version"]
     t = saved["task"]
     if t["kind"] not in KINDS:
         raise DataError(f"Model file {path!r} holds a {t['kind']!r} fit, not a regression or classification; "
                         f"read it with lo.load_fit, which reads every kind.")
-    names = tuple(t["features"])
     enc = t.get("encoding")
     encoding = None if enc is None else Encoding(
         tuple(enc["columns"]), {k: tuple(v) for k, v in enc["levels"].items()}, dict(enc["reference"]),
         tuple(enc["names"]))
+    notes = ["loaded from a model file: no training data"]
+    renamed = encoding.former_names if encoding is not None and version < 2 else {}
+    if renamed:
+        saved = _translated(saved, renamed, path)
+        encoding = dataclasses.replace(encoding, names=_renamed(encoding.names, renamed))
+        t = saved["task"]
+        notes.append("written with schema 1: encoded levels renamed from column=level to column.level")
+    names = tuple(t["features"])
     labels = tuple(t["labels"]) if t.get("labels") is not None else None
     d = len(names)
-    ds = Dataset(np.zeros((0, d)), np.zeros(0), np.zeros(0), names, None, encoding, labels,
-                 ["loaded from a model file: no training data"])
+    ds = Dataset(np.zeros((0, d)), np.zeros(0), np.zeros(0), names, None, encoding, labels, notes)
     loss = _rebuild(t["loss"], _losses, _losses.Loss)
     pens = tuple(_rebuild(p, _penalties, _penalties.Penalty) for p in t["penalties"])
     task = (task_type or Problem)(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,
@@ -161,7 +199,7 @@ def read(path, *, task_type=None) -> dict:
             raise DataError(f"Model file {path!r}: {', '.join(bad) or 'the intercept'} "
                             f"{'is' if len(bad) <= 1 else 'are'} not a finite number, but the file says the fit "
                             f"has a point ({status}); the file was damaged or edited by hand.")
-    if not intact(saved):
+    if not sealed:
         status = Status.UNVERIFIED.value
         message = ("loaded from a model file whose content no longer matches the digest written with it (or that "
                    "has none): the saved evidence does not cover these numbers, so the fit is not certified. "

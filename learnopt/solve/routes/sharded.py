@@ -229,9 +229,8 @@ class AdmmRunner(_Sharded, RunnerBase):
         """Each partition compiles the rules row by row for its own rows (kept on the workers)."""
         from dask import delayed
         ds, blocks = task.dataset, self.blocks
-        reference = tuple(f"{c}={v}" for c, v in ds.encoding.reference.items())
         fn = delayed(row_requirements, pure=True)
-        rows = blocks.client.compute([fn(part, ds.spec, list(task.row_rules), task.coefficient_names, reference,
+        rows = blocks.client.compute([fn(part, ds.spec, list(task.row_rules), task.coefficient_names,
                                          task.intercept, k) for k, part in enumerate(ds.source.to_delayed())])
         counts = np.sum(blocks.gather(blocks.client.map(_row_count, rows, pure=False)), axis=0)
         empty = [t for t, c in zip(task.row_rules, counts) if c == 0]
