@@ -219,6 +219,7 @@ class Recipe(_Strict):
     do: DoPart = Field(default_factory=DoPart)
     outputs: OutputsPart = Field(default_factory=OutputsPart)
     folder: str = Field(default=".", exclude=True)
+    file: str = Field(default="", exclude=True, description="the recipe file read (for the report)")
 
     @model_validator(mode="after")
     def _keys_of_its_kind(self):
@@ -286,7 +287,7 @@ def read_recipe(path) -> Recipe:
     except UnicodeDecodeError:
         raise DataError(f"Recipe {path!r} is not UTF-8 text.") from None
     try:
-        return Recipe(**raw, folder=os.path.dirname(os.path.abspath(path)))
+        return Recipe(**raw, folder=os.path.dirname(os.path.abspath(path)), file=os.path.abspath(path))
     except ValidationError as exc:
         problems = _problems(exc)
         head = f"Recipe {path!r} has {len(problems)} problems" if len(problems) > 1 else \
