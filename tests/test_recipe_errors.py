@@ -125,7 +125,7 @@ def test_every_problem_is_listed_at_once_in_file_order(tmp_path):
 
 def test_a_folder_key_is_reported_not_a_python_type_error(tmp_path):
     assert _lines(HEAD.replace("[data]", "folder = '/tmp'\n[data]"), tmp_path) == [
-        "folder: unknown key; remove it (paths in a recipe are read relative to the recipe file)"]
+        "folder: unknown key; remove it (learnopt sets it: paths in a recipe are read relative to the recipe file)"]
 
 
 def test_findings_outside_the_table_still_never_use_the_library_words():

@@ -25,6 +25,15 @@ class Job:
     path: object = None
     evaluation: object = None
     written: list[str] = field(default_factory=list)
+    rows_in_file: int | None = None     # rows in the data file(s); None when not counted (sharded)
+    held_out: object = None             # the held-out rows (a DataFrame, or a lazy one), or None
+
+    @property
+    def rows_used(self) -> int | None:
+        """Rows the fit was computed on (the training rows)."""
+        if self.centres:
+            return None if self.task.source is not None else len(self.task.X)
+        return int(self.task.dataset.n)
 
     @property
     def centres(self) -> bool:
@@ -72,7 +81,9 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     frame = _frame(recipe)
     train, held = _split(recipe, frame)
     task = build_task(recipe, train)
-    job = Job(recipe, task)
+    job = Job(recipe, task, held_out=held, rows_in_file=len(frame) if isinstance(frame, pd.DataFrame) else None)
+    if job.rows_in_file is None and not job.centres:
+        job.rows_in_file = job.rows_used      # sharded: a held-out split is always a file of its own
     s = recipe.solve
     if job.centres:
         job.fit = task.solve(restarts=s.restarts, seed=s.seed, client=s.cluster)

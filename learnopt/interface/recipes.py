@@ -203,6 +203,7 @@ class Recipe(_Strict):
     do: DoPart = Field(default_factory=DoPart)
     outputs: OutputsPart = Field(default_factory=OutputsPart)
     folder: str = Field(default=".", exclude=True)
+    file: str = Field(default="", exclude=True, description="the recipe file read (for the report)")
 
     @model_validator(mode="after")
     def _keys_of_its_kind(self):
@@ -228,7 +229,7 @@ def _known_keys() -> set[str]:
                     stack.append(arg)
     for spec in list(LOSSES.values()) + list(PENALTIES.values()):
         keys.update(spec.parameters)
-    return keys
+    return keys - set(INTERNAL)
 
 
 def read_recipe(path) -> Recipe:
@@ -243,17 +244,21 @@ def read_recipe(path) -> Recipe:
         raise DataError(f"Recipe {path!r} is not valid TOML: {exc}.") from None
     except UnicodeDecodeError:
         raise DataError(f"Recipe {path!r} is not UTF-8 text.") from None
-    return recipe_from(raw, folder=os.path.dirname(os.path.abspath(path)), label=f"Recipe {path!r}")
+    return recipe_from(raw, folder=os.path.dirname(os.path.abspath(path)), label=f"Recipe {path!r}",
+                       file=os.path.abspath(path))
 
 
-def recipe_from(raw: Mapping, *, folder: str = ".", label: str = "The recipe") -> Recipe:
+INTERNAL = ("folder", "file")       # fields learnopt fills in; a recipe that writes them gets a finding
+
+
+def recipe_from(raw: Mapping, *, folder: str = ".", label: str = "The recipe", file: str = "") -> Recipe:
     """Validate a recipe already read into a mapping (as ``tomllib`` returns it); paths inside
     are relative to ``folder``. Every problem is listed in one DataError, one line each."""
     found = []
-    if "folder" in raw:        # not a recipe key: the folder is always the recipe file's own
-        found.append("folder: unknown key; remove it (paths in a recipe are read relative to the recipe file)")
+    found += [f"{key}: unknown key; remove it (learnopt sets it: paths in a recipe are read relative to the "
+              f"recipe file)" for key in INTERNAL if key in raw]
     try:
-        recipe = Recipe(**{k: v for k, v in raw.items() if k != "folder"}, folder=folder)
+        recipe = Recipe(**{k: v for k, v in raw.items() if k not in INTERNAL}, folder=folder, file=file)
     except ValidationError as exc:
         found += problems(exc, Recipe, _known_keys())
     if found:

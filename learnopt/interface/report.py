@@ -1,92 +1,21 @@
-"""A self-contained HTML report of a recipe run (tables, and plots inlined as PNG when
-matplotlib is installed)."""
+"""A self-contained HTML report of a recipe run: provenance first, then the answer with its
+pictures (inlined PNG when matplotlib is installed), the evidence and the tables."""
 from __future__ import annotations
 
-import base64
 import html as _html
-import io
 
 import numpy as np
 import pandas as pd
 
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
-from learnopt.problem.algebra import loss_argument
+from learnopt.interface.provenance import provenance, provenance_html
+from learnopt.interface.report_blocks import figure, fmt, page, png, standing, table
+from learnopt.interface.report_pictures import (
+    argument_counts, coverage, draw_coefficients, draw_coverage, draw_histogram, draw_means, draw_path,
+    draw_predicted_actual, has_point, mean_rules, path_strength, predicted_actual, simple_bounds)
 from learnopt.rules.regions import Ball, Polygon, Segment
-from learnopt.scale.passes import argument_histogram
 
-STYLE = """body{font-family:system-ui,sans-serif;max-width:60rem;margin:2rem auto;color:#222}
-table{border-collapse:collapse;margin:.5rem 0}td,th{border:1px solid #ccc;padding:.2rem .5rem;text-align:right}
-th{background:#f3f3f3}tr.binding td{background:#fff3cd}.note{color:#555;font-size:.9rem}
-code{background:#f5f5f5;padding:0 .2rem}img{max-width:100%}
-.gauge{display:inline-block;width:6rem;height:.6rem;background:#e4e4e4;border-radius:.3rem;vertical-align:middle}
-.gauge span{display:block;height:100%;background:#3a8f6a;border-radius:.3rem}ul.rules li{margin:.25rem 0}"""
-
-
-def _table(frame: pd.DataFrame, highlight=None) -> str:
-    head = "".join(f"<th>{_html.escape(str(c))}</th>" for c in [frame.index.name or ""] + list(frame.columns))
-    rows = []
-    for idx, row in frame.iterrows():
-        cls = ' class="binding"' if highlight is not None and highlight.get(idx, False) else ""
-        cells = "".join(f"<td>{_html.escape(_fmt(v))}</td>" for v in row)
-        rows.append(f"<tr{cls}><th>{_html.escape(str(idx))}</th>{cells}</tr>")
-    return f"<table><tr>{head}</tr>{''.join(rows)}</table>"
-
-
-def _fmt(v) -> str:
-    if isinstance(v, (float, np.floating)):
-        return f"{v:.6g}"
-    return str(v)
-
-
-def _bar(share: float) -> str:
-    """A small HTML gauge of room left (share of the rule's limit)."""
-    if not np.isfinite(share):
-        return '<span class="note">unknown</span>'
-    pct = max(0.0, min(1.0, float(share))) * 100
-    return (f'<span class="gauge"><span style="width:{pct:.0f}%"></span></span> '
-            f'<span class="note">{pct:.0f}%</span>')
-
-
-def _standing(table: pd.DataFrame) -> str:
-    """Rules holding the fit back (gain per unit relaxed), then rules with room (a gauge each)."""
-    back, room = table[table["holds_back"]], table[~table["holds_back"]]
-    out = ["<h2>Where the rules stand</h2>"]
-    if len(back):
-        out.append("<h3>Holding the fit back</h3><p class=\"note\">What relaxing each rule by one unit of its own "
-                   "would gain in the objective.</p><ul class=\"rules\">" + "".join(
-                       f"<li><code>{_html.escape(rule)}</code> <b>gains {row.gain_per_unit:.4g}</b></li>"
-                       for rule, row in back.iterrows()) + "</ul>")
-    if len(room):
-        out.append("<h3>With room to spare</h3><p class=\"note\">Room left before the rule would bind, in its own "
-                   "units; the gauge shows it as a share of the rule's limit.</p><ul class=\"rules\">" + "".join(
-                       f"<li><code>{_html.escape(rule)}</code> room {_fmt(row.room)} {_bar(row.room_share)}</li>"
-                       for rule, row in room.iterrows()) + "</ul>")
-    return "".join(out)
-
-
-def _png(draw, size=(6.5, 3.2)) -> str:
-    """An <img> with the figure inlined, or a note when matplotlib is missing."""
-    try:
-        import matplotlib
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
-    except ImportError:
-        return '<p class="note">Plots need matplotlib (pip install \'learnopt[plot]\').</p>'
-    fig, ax = plt.subplots(figsize=size)
-    draw(ax)
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100)
-    plt.close(fig)
-    return f'<img alt="plot" src="data:image/png;base64,{base64.b64encode(buf.getvalue()).decode()}">'
-
-
-def _argument_histogram(task, theta, bins: int = 40):
-    """Histogram of the loss argument on the training rows (by passes for sharded data)."""
-    if task.sharded:
-        return argument_histogram(task.dataset, theta, task.intercept, task.loss.argument == "margin", bins)
-    M, q, _ = loss_argument(task)
-    return np.histogram(M @ theta - q, bins=bins)
+COMPARE_COLUMNS = ("status", "objective", "gap", "violation", "steps", "total_s", "max_coef_diff")
 
 
 def _maths(task) -> str:
@@ -96,12 +25,6 @@ def _maths(task) -> str:
     return (f"minimise over w{', b' if task.intercept else ''}: &Sigma;<sub>i</sub> a<sub>i</sub> "
             f"{_html.escape(f)}({arg}) + {_html.escape(pens)} subject to the rules below, "
             f"with row weights a<sub>i</sub> summing to one (the weighted mean loss).")
-
-
-def _page(title: str, parts: list[str]) -> str:
-    return (f"<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>"
-            f"{_html.escape(title)}</title><style>{STYLE}</style></head><body>"
-            + "\n".join(parts) + "</body></html>\n")
 
 
 def _map(ax, fit, task) -> None:
@@ -136,11 +59,12 @@ def _map(ax, fit, task) -> None:
 
 
 def centres_html(job) -> str:
-    """The report of a centres recipe: rules, the verdict, evidence, centres and loads, a map."""
+    """The report of a centres recipe: provenance, rules, the verdict, evidence, centres and
+    loads, a map."""
     fit, task, recipe = job.fit, job.task, job.recipe
     title = recipe.title or "learnopt centres"
     n = "sharded points" if task.source is not None else f"{len(task.X)} points"
-    parts = [f"<h1>{_html.escape(title)}</h1>",
+    parts = [f"<h1>{_html.escape(title)}</h1>", provenance_html(provenance(job)),
              f"<p>{n}, {len(task.names)} coordinates ({_html.escape(', '.join(task.names))}); {task.k} centres, "
              f"{len(task.fixed)} of them fixed. Objective: the weighted sum of squared distances from each point "
              f"to its nearest centre.</p>"]
@@ -155,63 +79,145 @@ def centres_html(job) -> str:
                                  fit.iterations, fit.seconds]},
                       index=pd.Index(["status", "message", "objective", "worst violation (absolute)", "restarts",
                                       "steps (best restart)", "seconds"], name="evidence"))
-    parts.append("<h2>Evidence</h2>" + _table(ev))
-    parts.append("<h2>Centres</h2>" + _table(fit.centres.join(fit.loads)))
+    parts.append("<h2>Evidence</h2>" + table(ev))
+    parts.append("<h2>Centres</h2>" + table(fit.centres.join(fit.loads)))
     if len(task.names) >= 2:
-        parts.append("<h2>Map</h2>" + _png(lambda ax: _map(ax, fit, task), size=(6.5, 5.0)))
-    parts.append("<h2>Restarts</h2>" + _table(fit.restarts))
+        parts.append("<h2>Map</h2>" + png(lambda ax: _map(ax, fit, task), size=(6.5, 5.0), alt="map of the centres"))
+    parts.append("<h2>Restarts</h2>" + table(fit.restarts))
     if job.evaluation is not None:
-        parts.append("<h2>Held-out points</h2>" + _table(job.evaluation.to_frame("value")))
+        parts.append("<h2>Held-out points</h2>" + table(job.evaluation.to_frame("value")))
     parts.append(f"<p class=\"note\">{_html.escape(PLACEMENT_CAUTION)}</p>")
-    return _page(title, parts)
+    return page(title, parts)
+
+
+def _coefficients(task, fit) -> list[str]:
+    """The coefficient chart (bounds from the rules drawn on it) and the table beside it."""
+    coefs = fit.coefficients()
+    bounds = simple_bounds(task, fit) if has_point(fit) else None
+    out = ["<h2>Coefficients</h2>"]
+    if bounds is not None:
+        shown = fit.coef
+        note = " The intercept is left out of the picture." if task.intercept else ""
+        out.append("<figure>" + png(lambda ax: draw_coefficients(ax, shown, bounds),
+                                    size=(6.5, 0.9 + 0.38 * len(shown)), alt="coefficients and their bounds")
+                   + "<figcaption>Each bar is a coefficient; a tick across it is a bound a rule sets on that "
+                     "coefficient alone (red and solid: the coefficient sits on it and the rule holds the fit "
+                     "back)." + note + "</figcaption></figure>")
+        words = {name: ", ".join(w for w in (
+            f">= {fmt(bounds.at[name, 'lower'])}" if np.isfinite(bounds.at[name, "lower"]) else "",
+            f"<= {fmt(bounds.at[name, 'upper'])}" if np.isfinite(bounds.at[name, "upper"]) else "") if w)
+            for name in bounds.index}
+        coefs = coefs.assign(**{"bounds from rules": [words.get(n, "") for n in coefs.index],
+                                "on a bound": [bool(bounds.at[n, "lower_binding"] or bounds.at[n, "upper_binding"])
+                                               if n in bounds.index else False for n in coefs.index]})
+    out.append(table(coefs))
+    return out
+
+
+def _pictures(job) -> list[str]:
+    """The pictures that apply to this fit."""
+    fit, task = job.fit, job.task
+    out = []
+    what = "score" if task.kind == "classification" else "prediction"
+    for m in mean_rules(task, fit):
+        out.append(figure("Group means under a rule", png(lambda ax, m=m: draw_means(ax, m, what),
+                                                         size=(6.5, 1.2 + 0.55 * len(m.terms)), alt="group means"),
+                          f"<code>{_html.escape(m.rule)}</code>: each group's mean {what} on the training rows; "
+                          f"a tick marks how far that mean may go with the other groups held where they are "
+                          f"({'the rule holds the fit back' if m.holds_back else 'the rule has room'})."))
+    pa = predicted_actual(task, fit)
+    if pa is not None:
+        out.append(figure("Predicted against actual", png(lambda ax: draw_predicted_actual(
+            ax, *pa, str(task.target_name)), size=(5.0, 4.2), alt="predicted against actual"),
+            "Training rows" + (" (a seeded sample)" if len(pa[0]) < task.dataset.n else "") + "."))
+    if has_point(fit):
+        counts, edges = argument_counts(task, fit.theta)
+        if task.loss.argument == "margin":
+            neg, pos = task.dataset.labels
+            label = f"margin y (x'w + b), y = +1 for {pos!r}"
+            out.append(figure("Training margins", png(lambda ax: draw_histogram(ax, counts, edges, label, True),
+                                                      alt="margin distribution"),
+                              f"y = +1 for <code>{_html.escape(str(pos))}</code> (the positive label), -1 for "
+                              f"<code>{_html.escape(str(neg))}</code>. Rows left of 0 are misclassified; rows "
+                              f"between 0 and 1 are inside the margin."))
+        else:
+            label = "residual (prediction - target)"
+            out.append(figure("Training residuals", png(lambda ax: draw_histogram(ax, counts, edges, label, False),
+                                                        alt="residual distribution")))
+    cov = coverage(task, fit, job.held_out)
+    if cov is not None:
+        out.append(figure("Quantile coverage", png(lambda ax: draw_coverage(ax, *cov), alt="coverage against tau"),
+                          f"Share of {cov[5]} rows at or under their predicted quantile, in groups by predicted "
+                          f"level; a good fit keeps every group near tau = {cov[4]:g}."
+                          + (" No rows were held out: coverage on held-out rows is the fairer check."
+                             if cov[5] == "training" else "")))
+    return out
+
+
+def _evidence(fit) -> pd.DataFrame:
+    """The certificate's reading and how the time was spent (one row for all the timings)."""
+    times = fit.timings.as_dict()
+    spent = ", ".join(f"{k} {fmt(v)}" for k, v in times.items())
+    return pd.DataFrame({"value": [fit.status, fit.message, fit.objective, fit.gap, fit.rel_gap, fit.violation,
+                                   f"{fit.solver}, route {fit.route}", spent]},
+                        index=pd.Index(["status", "message", "objective", "certified gap", "relative gap",
+                                        "worst violation (absolute)", "solver", "seconds"], name="evidence"))
+
+
+def _compare(frame: pd.DataFrame) -> str:
+    """The solver comparison: the columns that decide, notes under the table (never in it)."""
+    cols = [c for c in COMPARE_COLUMNS if c in frame.columns]
+    shown = frame[cols].rename(columns={"total_s": "seconds", "max_coef_diff": "largest coefficient difference"})
+    notes = frame["note"].dropna() if "note" in frame.columns else pd.Series(dtype=str)
+    notes = notes[notes.astype(str).str.len() > 0]
+    return ("<h2>Solver comparison</h2>" + table(shown)
+            + ("<ul class=\"note\">" + "".join(f"<li><b>{_html.escape(str(k))}</b>: {_html.escape(str(v))}</li>"
+                                              for k, v in notes.items()) + "</ul>" if len(notes) else ""))
 
 
 def html(job) -> str:
     if job.centres:
         return centres_html(job)
     fit, task, recipe = job.fit, job.task, job.recipe
-    parts = [f"<h1>{_html.escape(recipe.title or 'learnopt fit')}</h1>",
+    title = recipe.title or "learnopt fit"
+    verdict = "certified optimal" if fit.status == "optimal" else str(fit.status)
+    parts = [f"<h1>{_html.escape(title)}</h1>", provenance_html(provenance(job)),
              f"<p>{task.dataset.n} rows, {task.dataset.d} coefficients; {_html.escape(task.kind)} with the "
-             f"{_html.escape(task.loss.describe())} loss.</p><p>{_maths(task)}</p>"]
-    if task.rules:
-        parts.append("<h2>Rules</h2><ul>" + "".join(f"<li><code>{_html.escape(r.text)}</code></li>"
-                                                    for r in task.rules) + "</ul>")
-    verdict = task.check()
-    parts.append(f"<h2>Convexity</h2><p>{'convex by construction' if verdict.convex else 'NOT convex'} "
-                 f"(problem class: {_html.escape(verdict.problem_class)})</p><ul>"
-                 + "".join(f"<li>{_html.escape(a)}: {_html.escape(b)}</li>" for a, b in verdict.pieces) + "</ul>")
-    ev = pd.DataFrame({"value": [fit.status, fit.message, fit.objective, fit.gap, fit.rel_gap, fit.violation,
-                                 fit.solver, fit.route] + list(fit.timings.as_dict().values())},
-                      index=pd.Index(["status", "message", "objective", "certified gap", "relative gap",
-                                      "worst violation (absolute)", "solver", "route"]
-                                     + [f"{k} seconds" for k in fit.timings.as_dict()], name="evidence"))
-    parts.append("<h2>Evidence</h2>" + _table(ev))
+             f"{_html.escape(task.loss.describe())} loss. <b>{_html.escape(verdict)}</b>, objective "
+             f"{fmt(fit.objective)} (evidence below).</p><p>{_maths(task)}</p>"]
     if len(fit.conflicts):
         cf = fit.conflicts.to_frame("must move by")
         cf.index.name = "rule"
         parts.append("<h2>Conflicting rules</h2><p class=\"note\">The rules cannot all hold. Each rule below is "
                      "part of the conflict; the amount is how far that rule alone must move, in its own units "
-                     "(inf: moving it alone is not enough).</p>" + _table(cf))
-    if fit.attempts:
-        parts.append("<h2>Solver attempts</h2>" + _table(fit.attempt_table()))
-    parts.append("<h2>Coefficients</h2>" + _table(fit.coefficients()))
+                     "(inf: moving it alone is not enough).</p>" + table(cf))
+    parts += _coefficients(task, fit)
     if len(fit.prices):
-        parts.append(_standing(fit.rule_standing()))
-    if np.all(np.isfinite(fit.coef.to_numpy())):
-        counts, edges = _argument_histogram(task, fit.theta)
-        label = "margin y (x'w + b)" if task.loss.argument == "margin" else "residual (prediction - target)"
-        parts.append("<h2>Training " + label.split(" ")[0] + "s</h2>" +
-                     _png(lambda ax: (ax.stairs(counts, edges, fill=True, color="#4a7"), ax.set_xlabel(label),
-                                      ax.set_ylabel("rows"))))
-    if job.path is not None:
-        parts.append("<h2>Path</h2>" + _png(lambda ax: job.path.plot(ax=ax))
-                     + f"<p class=\"note\">The path ends here: {_html.escape(job.path.stopped)}.</p>"
-                     + _table(job.path.table.set_index("strength")))
-    if job.compare is not None:
-        parts.append("<h2>Solver comparison</h2>" + _table(job.compare))
+        parts.append(standing(fit.rule_standing()))
+    elif task.rules:
+        parts.append("<h2>Rules</h2><ul>" + "".join(f"<li><code>{_html.escape(r.text)}</code></li>"
+                                                    for r in task.rules) + "</ul>")
+    parts += _pictures(job)
     if job.evaluation is not None:
-        parts.append("<h2>Held-out evaluation</h2>" + _table(job.evaluation.metrics.to_frame("value")))
+        parts.append("<h2>Held-out evaluation</h2>" + table(job.evaluation.metrics.to_frame("value")))
         if job.evaluation.confusion is not None:
-            parts.append(_table(job.evaluation.confusion))
+            parts.append(table(job.evaluation.confusion))
+    if job.path is not None:
+        chosen = path_strength(job)
+        parts.append(figure("Path", png(lambda ax: draw_path(ax, job.path, chosen), alt="coefficient path"),
+                            "Coefficients as the penalty weakens (left to right)"
+                            + (f"; the dashed line is the strength the fit above used ({chosen:.4g})"
+                               if chosen is not None else "") + f". The path ends here: "
+                            f"{_html.escape(job.path.stopped)}.")
+                     + table(job.path.table.set_index("strength")))
+    if job.compare is not None:
+        parts.append(_compare(job.compare))
+    parts.append("<h2>Evidence</h2>" + table(_evidence(fit)))
+    if fit.attempts:
+        parts.append("<h2>Solver attempts</h2>" + table(fit.attempt_table()))
+    convexity = task.check()
+    parts.append(f"<h2>Convexity</h2><p>{'convex by construction' if convexity.convex else 'NOT convex'} "
+                 f"(problem class: {_html.escape(convexity.problem_class)})</p><ul>"
+                 + "".join(f"<li>{_html.escape(a)}: {_html.escape(b)}</li>" for a, b in convexity.pieces) + "</ul>")
     parts.append(f"<p class=\"note\">{_html.escape(CAUTION)}</p>")
-    return _page(recipe.title or "learnopt fit", parts)
+    return page(title, parts)
