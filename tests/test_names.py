@@ -3,6 +3,8 @@ forms (backtick quotes, column=level) still read with a warning, and names that 
 things refused. The spellings are learnopt's own; the checks are common practice (each name
 maps to one coefficient, or is refused)."""
 import json
+import re
+import unicodedata
 import warnings
 
 import numpy as np
@@ -149,6 +151,11 @@ def test_every_name_means_exactly_one_coefficient(column, number, levels, shape)
     frame = pd.DataFrame({column: [levels[i % len(levels)] for i in range(n)], number: rng.normal(size=n),
                           "y": rng.normal(size=n)})
     taken = {f"{column}.{v}" for v in levels}
+    nfkc = [unicodedata.normalize("NFKC", c) for c in (column, number, "y")]
+    if len(set(nfkc)) < 3 or any(re.fullmatch(r"__\w+__", c) or c in ("intercept", "prediction") for c in nfkc[:2]):
+        with pytest.raises(lo.DataError, match="differ only in Unicode form|named like words learnopt uses"):
+            lo.regression(frame, "y")
+        return
     if number in taken:
         with pytest.raises(lo.DataError, match="would stand for both"):
             lo.regression(frame, "y")
@@ -158,3 +165,51 @@ def test_every_name_means_exactly_one_coefficient(column, number, levels, shape)
     for j, name in enumerate(t.features):
         req = t.require(f"{written(name)} >= -10").requirements[-1]
         assert only(req.A) == [j], name
+
+
+# ---------------------------------------------------------------- names and values that used to give wrong optimal answers
+@pytest.mark.parametrize("scale", [1e-170, 1e-200, 1e160])
+def test_columns_beyond_double_precision_are_refused_with_the_column_named(scale):
+    # common practice (IEEE 754 double precision): squares of numbers below ~1e-154 underflow and
+    # above ~1e154 overflow; learnopt refuses such columns instead of treating them as constant
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=100) * scale
+    frame = pd.DataFrame({"x": x, "y": rng.normal(size=100)})
+    with pytest.raises(lo.DataError, match="Column 'x' has"):
+        lo.regression(frame, "y").solve()
+    with pytest.raises(lo.DataError, match="The target 'y' has"):
+        lo.regression(frame.rename(columns={"x": "y", "y": "x"}), "y")
+    rescaled = frame.assign(x=frame["x"] / scale)                 # the fix the message names works
+    assert lo.regression(rescaled, "y").solve().status == "optimal"
+
+
+def test_complex_numbers_are_refused_not_made_real():
+    rng = np.random.default_rng(1)
+    frame = pd.DataFrame({"x": rng.normal(size=50) + 1j * rng.normal(size=50), "y": rng.normal(size=50)})
+    with pytest.raises(lo.DataError, match="Column 'x' holds complex numbers"):
+        lo.regression(frame, "y")
+    with pytest.raises(lo.DataError, match="complex numbers"):
+        lo.regression(frame[["y"]].assign(x=1.0, y=frame["y"] + 0j), "y")
+    with pytest.raises(lo.DataError, match="complex numbers"):
+        lo.regression(np.c_[frame["x"].to_numpy()], frame["y"].to_numpy())
+
+
+@pytest.mark.parametrize("name", ["intercept", "prediction", "__rest__", "__quoted_0__", "ｉｎｔｅｒｃｅｐｔ"])
+def test_features_named_like_learnopts_own_words_are_refused(name):
+    # every user name must map to exactly one coefficient: a column called 'intercept' would
+    # share its name with the intercept in rules, tables and model files
+    rng = np.random.default_rng(2)
+    frame = pd.DataFrame({name: rng.normal(size=40), "z": rng.normal(size=40), "y": rng.normal(size=40)})
+    with pytest.raises(lo.DataError, match="named like words learnopt uses itself"):
+        lo.regression(frame, "y")
+    assert lo.regression(frame, "y", features=["z"]).solve().status == "optimal"   # not used: no harm
+
+
+@pytest.mark.parametrize("pair", [("\ufb01t", "fit"), ("x\uff11", "x1"), ("\u00c5", "A\u030a")])
+def test_names_alike_after_unicode_normalisation_are_refused(pair):
+    # the rule language reads names in Unicode normal form NFKC (as Python does), so two columns
+    # that normalise alike could not be told apart in a rule (Unicode Standard Annex #15)
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({pair[0]: rng.normal(size=30), pair[1]: rng.normal(size=30), "y": rng.normal(size=30)})
+    with pytest.raises(lo.DataError, match="differ only in Unicode form"):
+        lo.regression(frame, "y")

@@ -54,6 +54,34 @@ def finite(values: np.ndarray, what: str) -> None:
                         f"{rows[0]}); drop or fill those rows before fitting.")
 
 
+TINY, HUGE = 1e-150, 1e150      # the sizes a column's largest value must lie between (or be 0)
+
+
+def real_values(values, what: str, *, sized: bool = True) -> np.ndarray:
+    """``values`` as float64, refusing what would silently lose information or precision:
+    complex numbers (the imaginary part would be dropped), missing or infinite values, and a
+    column whose largest value is beyond 1e150 or (not zero but) below 1e-150 in size, where
+    squares overflow or underflow in double precision (``sized=False``: no size check, for row
+    weights, which are normalised to sum to one)."""
+    arr = np.asarray(values)
+    if np.iscomplexobj(arr) or (arr.dtype == object and any(isinstance(v, complex) for v in arr.ravel()[:1000])):
+        raise DataError(f"{what} holds complex numbers; learnopt fits real numbers only. Split it into two "
+                        f"columns (real and imaginary parts) or use its magnitude.")
+    out = arr.astype(float)
+    finite(out, what)
+    if not sized:
+        return out
+    big = float(np.max(np.abs(out), initial=0.0))
+    if big > HUGE:
+        raise DataError(f"{what} has values beyond 1e150 in size (largest {big:.3g}); rescale it (e.g. to "
+                        f"thousands or millions) before fitting.")
+    if 0.0 < big < TINY:
+        raise DataError(f"{what} has no value larger than 1e-150 in size (largest {big:.3g}); squares of such "
+                        f"numbers underflow in double precision. Rescale it (e.g. multiply by 1e150) before "
+                        f"fitting.")
+    return out
+
+
 def column_type(col: pd.Series) -> str:
     if pd.api.types.is_bool_dtype(col):
         return "bool"
@@ -140,10 +168,5 @@ def design(encoding: Encoding, frame: pd.DataFrame) -> np.ndarray:
             if kind not in ("numeric", "bool"):
                 raise DataError(f"Column {c!r} was numeric in the training data but is {col.dtype} here; "
                                 f"convert it to numbers.")
-            v = col.to_numpy(dtype=float)
-            finite(v, f"Column {c!r}")
-            if np.any(np.abs(v) > 1e150):
-                raise DataError(f"Column {c!r} has values beyond 1e150 in size; rescale it (e.g. to "
-                                f"thousands or millions) before fitting.")
-            blocks.append(v[:, None])
+            blocks.append(real_values(col.to_numpy(), f"Column {c!r}")[:, None])
     return np.hstack(blocks) if blocks else np.zeros((len(frame), 0))

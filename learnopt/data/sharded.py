@@ -26,7 +26,7 @@ import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError, MissingDependencyError
 from learnopt.data.points import coordinate_columns
-from learnopt.data.encoding import Encoding, column_type, design, encode
+from learnopt.data.encoding import Encoding, column_type, design, encode, real_values
 from learnopt.data.table import _close, _column, choose_features, labels_of, unique_columns
 
 
@@ -178,10 +178,7 @@ def encode_block(part: pd.DataFrame, spec: BlockSpec, index: int):
                                 f"the labels are {neg!r} and {pos!r}.")
             y = np.where(values == pos, 1.0, -1.0)
         else:
-            y = col.to_numpy(dtype=float)
-            if not np.all(np.isfinite(y)):
-                raise DataError(f"The target {spec.target!r} has missing or infinite values (first at row "
-                                f"{np.flatnonzero(~np.isfinite(y))[0]}); drop or fill those rows.")
+            y = real_values(col.to_numpy(), f"The target {spec.target!r}")
         if spec.weights is None:
             w = np.ones(len(part))
         else:

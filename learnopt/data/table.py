@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import difflib
 import os
+import re
+import unicodedata
 from dataclasses import dataclass, field
 from typing import Any, ClassVar, Sequence
 
@@ -20,7 +22,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from learnopt.core.errors import DataError
-from learnopt.data.encoding import Encoding, column_type, design, encode, finite
+from learnopt.data.encoding import Encoding, column_type, design, encode, finite, real_values
 
 
 @dataclass(eq=False)
@@ -90,9 +92,9 @@ def _weights(weights, frame, n) -> tuple[np.ndarray, str | None]:
         col = _column(frame, weights, "weights")
         if not pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
             raise DataError(f"The weights column {weights!r} must be numeric.")
-        w, label = col.to_numpy(dtype=float), f"weights column {weights!r}"
+        w, label = real_values(col.to_numpy(), f"Weights column {weights!r}", sized=False), f"weights column {weights!r}"
     else:
-        w, label = np.asarray(weights, dtype=float).ravel(), "weights"
+        w, label = real_values(np.asarray(weights).ravel(), "Weights", sized=False), "weights"
         if w.size != n:
             raise DataError(f"{w.size} weights given for {n} rows; give one weight per row.")
     finite(w, label.capitalize())
@@ -110,9 +112,7 @@ def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
         if not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
             raise DataError(f"The target {name} must be numeric for regression (it is {s.dtype}); "
                             f"for labels use lo.classification.")
-        y = s.to_numpy(dtype=float)
-        finite(y, f"The target {name}")
-        return y, None
+        return real_values(s.to_numpy(), f"The target {name}"), None
     s = pd.Series(values)
     if s.isna().any():
         raise DataError(f"The target {name} has {int(s.isna().sum())} missing label(s); drop those rows.")
@@ -176,11 +176,35 @@ def _from_frame(frame, target, kind, features, weights, intercept, positive) -> 
     return Dataset(X, y, w, enc.names, frame, enc, labels, notes)
 
 
+RESERVED = ("intercept", "prediction")   # words the rule language and the result tables use
+
+
 def unique_columns(columns) -> None:
-    """Refuse duplicate column names (in memory and sharded alike)."""
+    """Refuse duplicate column names, and names that differ only in Unicode form (a ligature
+    and its letters, a full-width digit and a plain one: rules read names in their normal form,
+    NFKC, so both would mean the same thing). In memory and sharded alike."""
     if columns.duplicated().any():
         dup = sorted(set(map(str, columns[columns.duplicated()])))
         raise DataError(f"The data has duplicate column names {dup}; rename them.")
+    seen: dict[str, str] = {}
+    for c in map(str, columns):
+        other = seen.setdefault(unicodedata.normalize("NFKC", c), c)
+        if other != c:
+            raise DataError(f"Columns {other!r} and {c!r} differ only in Unicode form (both read as "
+                            f"{unicodedata.normalize('NFKC', c)!r}), so a rule could not tell them apart; "
+                            f"rename one (e.g. with frame.rename(columns=...)).")
+
+
+def reserved_names(features) -> None:
+    """Refuse features named like the words rules and result tables use, or like learnopt's own
+    placeholders (double underscores on both sides): each user name must mean one thing."""
+    bad = [f for f in map(str, features) if unicodedata.normalize("NFKC", f) in RESERVED
+           or re.fullmatch(r"__\w+__", f)]
+    if bad:
+        raise DataError(f"Feature column{'s' * (len(bad) > 1)} {', '.join(map(repr, bad))} "
+                        f"{'are' if len(bad) > 1 else 'is'} named like words learnopt uses itself "
+                        f"({', '.join(RESERVED)}, and __names__ for its placeholders); rename them (e.g. "
+                        f"{bad[0]!r} -> {bad[0].strip('_') + '_value'!r}) so every name means one thing.")
 
 
 def choose_features(columns, target: str | None, weights: str | None, features, intercept: bool) -> list:
@@ -198,19 +222,20 @@ def choose_features(columns, target: str | None, weights: str | None, features, 
             raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
     if not features and not intercept:
         raise DataError("The task has no features and no intercept; nothing to fit.")
+    reserved_names(features)
     return features
 
 
 def _from_array(X, target, kind, features, weights, positive) -> Dataset:
     if sp.issparse(X):
-        X = sp.csr_matrix(X, dtype=float)
-        finite(X.data, "The data matrix")
+        X = sp.csr_matrix(X)
+        X = sp.csr_matrix((real_values(X.data, "The data matrix"), X.indices, X.indptr), shape=X.shape)
     else:
         X = np.asarray(X)
-        if X.dtype.kind not in "biuf":
+        if X.dtype.kind not in "biufc":
             raise DataError(f"The data matrix has dtype {X.dtype}; it must be numeric. Use a DataFrame "
                             f"for text columns.")
-        X = np.asarray(X, dtype=float)
+        X = real_values(X, "The data matrix")
         if X.ndim == 1:
             X = X[:, None]
         if X.ndim != 2:
