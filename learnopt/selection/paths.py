@@ -153,17 +153,34 @@ class Path:
     stopped: str = ""
 
     def plot(self, ax=None):
-        """Coefficients against strength (log scale), one line per coefficient (matplotlib)."""
+        """Each coefficient against the strength, strength increasing left to right (log scale):
+        from the left (weak penalty, every coefficient free) each line falls to zero as the
+        penalty grows; a dot marks where a coefficient first reaches zero, and each line is
+        named at its left end (up to 12 names). Returns the axes (matplotlib)."""
         plt = _pyplot()
         ax = ax or plt.subplots(figsize=(7, 4))[1]
-        for name in self.coefs.columns:
-            ax.plot(self.coefs.index, self.coefs[name], label=str(name))
+        strengths = self.coefs.index.to_numpy()
+        order = np.argsort(strengths)
+        x = strengths[order]
+        named = len(self.coefs.columns) <= 12
+        for k, name in enumerate(self.coefs.columns):
+            y = self.coefs[name].to_numpy()[order]
+            colour = f"C{k % 10}"
+            ax.plot(x, y, color=colour, lw=1.4)
+            zero = np.flatnonzero(np.abs(y) <= 1e-12 * max(1.0, float(np.max(np.abs(y), initial=0.0))))
+            if zero.size and zero[0] > 0:
+                ax.plot([x[zero[0]]], [0.0], "o", ms=3.5, color=colour)
+            if named:
+                ax.annotate(str(name), (x[0], y[0]), xytext=(-4, 0), textcoords="offset points", ha="right",
+                            va="center", fontsize=7, color=colour)
+        ax.axhline(0.0, color="#999", lw=0.8)
         ax.set_xscale("log")
-        ax.invert_xaxis()
-        ax.set_xlabel("strength")
+        if named and len(x):
+            lo_x, hi_x = ax.get_xlim()
+            ax.set_xlim(lo_x / (hi_x / lo_x) ** 0.18, hi_x)      # room for the names on the left
+        ax.set_xlabel("penalty strength")
         ax.set_ylabel("coefficient")
-        if len(self.coefs.columns) <= 12:
-            ax.legend(fontsize="small")
+        ax.spines[["top", "right"]].set_visible(False)
         return ax
 
 
