@@ -238,7 +238,7 @@ def test_rules_in_the_replaced_forms_still_run_with_a_note(copied):
 
 def test_compare_refuses_unknown_solver_names_with_the_known_ones(copied):
     out = CliRunner().invoke(main, ["compare", str(copied / "deliveries.toml"), "--solvers", "clarabel,osqpp"])
-    assert out.exit_code == 2 and "Did you mean osqp?" in out.output and "clarabel, osqp, scs" in out.output
+    assert out.exit_code == 2 and "(nearest known: osqp)" in out.output and "clarabel, osqp, scs" in out.output
 
 
 def test_missing_data_and_non_convex_rule_exit_codes(tmp_path):
@@ -332,8 +332,8 @@ def test_a_recipe_without_a_loss_takes_the_python_default(copied):
 
 
 @pytest.mark.parametrize("old,new,expect", [
-    ('strength = 0.01', 'strenght = 0.01', "did you mean 'strength'"),
-    ('target = "minutes"', 'targt = "minutes"', "did you mean 'target'"),
+    ('strength = 0.01', 'strenght = 0.01', "(nearest known: strength)"),
+    ('target = "minutes"', 'targt = "minutes"', "(nearest known: target)"),
     ('name = "huber"', 'name = "zero_one"', "convex surrogate"),
 ])
 def test_recipe_mistakes_get_the_same_help_as_python(copied, old, new, expect):

@@ -145,7 +145,7 @@ def test_by_name_knows_every_row_and_alias():
         assert lo.loss.by_name(name) == spec.factory()
         for alias in spec.aliases:
             assert lo.loss.by_name(alias) == spec.factory()
-    with pytest.raises(lo.ParameterError, match="Did you mean squared_hinge"):
+    with pytest.raises(lo.ParameterError, match="nearest known: squared_hinge"):
         lo.loss.by_name("squared_hinj")
 
 

@@ -27,7 +27,7 @@ def test_bad_frames(df, mutate, fragment):
 
 
 def test_missing_columns_suggest(df):
-    with pytest.raises(lo.DataError, match="Close matches: y"):
+    with pytest.raises(lo.DataError, match="nearest known: y"):
         lo.regression(df, target="yy")
     with pytest.raises(lo.DataError, match=r"\['q'\]"):
         lo.regression(df, target="y", features=["x", "q"])

@@ -83,7 +83,7 @@ CASES = [
      "do.n: found 1000; it has to be a whole number between 2 and 500, both included"),
     ("literal_error", HEAD.replace("'regression'", "'ranking'"),
      'task.kind: found the text "ranking"; it has to be one of "regression", "classification"'),
-    ("literal_error", HEAD.replace("'regression'", "'regresion'"), '(did you mean "regression"?)'),
+    ("literal_error", HEAD.replace("'regression'", "'regresion'"), '(nearest known: "regression")'),
     ("literal_error", HEAD + "[do]\nsolvers = ['osqp', 'fast']\n",
      'do.solvers[1]: found the text "fast"; it has to be one of "clarabel", "osqp"'),
     ("literal_error", "[data]\npath = 'x.csv'\ntypes = { 'unit price' = 'money' }\n[task]\nkind = 'regression'\n"
@@ -91,7 +91,7 @@ CASES = [
     ("extra_forbidden", HEAD + "colour = 'red'\n",
      "task.colour: unknown key; remove it or fix its spelling (the README lists every recipe key)"),
     ("extra_forbidden", HEAD + "[[task.penalties]]\nname = 'l1'\nstrenght = 1\n",
-     "task.penalties[0].strenght: unknown key (did you mean 'strength'?)"),
+     "task.penalties[0].strenght: unknown key (nearest known: strength)"),
     ("value_error", HEAD + "[do.holdout]\nfraction = 0.2\npath = 'h.csv'\n",
      "do.holdout: give exactly one of 'path' (a held-out file) or 'fraction' (a random split)"),
     ("value_error", HEAD + "[task.loss]\nname = 'huber'\ndelta = -1\n",

@@ -66,7 +66,7 @@ def test_non_convex_rules_raise_naming_the_rule(df, rule):
 
 @pytest.mark.parametrize("rule,fragment", [
     ("distnce >= 0", "unknown name 'distnce'"),
-    ("aa >= 0", "Close matches: a"),
+    ("aa >= 0", "nearest known: a"),
     ("__import__('os') >= 0", "unknown function"),
     ("a.real >= 0", "unknown name 'a.real'"),
     ("(a + b).real >= 0", "cannot follow an expression"),

@@ -195,7 +195,7 @@ def test_rules_row_by_row_errors(client):
         from learnopt.solve.routes import sharded
         sharded.Runner(task.require("prediction >= 0 where site == 'mill'"),
                        cluster=ClusterSettings(client=client, method="gram"))
-    with pytest.raises(DataError, match="unknown name 'sight'. Close matches: site. Coefficients: f0"):
+    with pytest.raises(DataError, match=r"unknown name 'sight' \(nearest known: site\)\. Coefficients: f0"):
         task.require("mean(prediction where sight == 'mill') <= 1")
     with pytest.raises(DataError, match="takes one row-wise expression"):
         task.require("mean(f0) <= 1")
@@ -303,7 +303,7 @@ def test_bad_sharded_input_gets_clear_errors(client, tmp_path):
     pattern = write_parts(frame, tmp_path, 3)
     with pytest.raises(DataError, match="No files match"):
         lo.regression(str(tmp_path / "nothing-*.parquet"), target="f0")
-    with pytest.raises(DataError, match="'lable'.*Close matches: label"):
+    with pytest.raises(DataError, match="'lable'.*nearest known: label"):
         lo.classification(pattern, target="lable")
     with pytest.raises(DataError, match="must be numeric for regression"):
         lo.regression(pattern, target="label")

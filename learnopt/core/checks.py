@@ -11,6 +11,7 @@ Checks written by hand (a callable, a list of names) use the same template throu
 """
 from __future__ import annotations
 
+import difflib
 import math
 import shlex
 from dataclasses import dataclass
@@ -157,3 +158,10 @@ def check(owner: str, **values_and_rules: tuple[object, Interval | OneOf | Condi
         f"{wrote(owner, **{n: v for n, (v, _) in failed.items()})}: {len(lines)} parameters have to change"
     raise ParameterError(head, problems=lines, parameters=tuple(failed),
                          demands=tuple(d for _, d in failed.values()))
+
+
+def nearest(word, known, *, n: int = 3, cutoff: float = 0.6, show=str) -> str:
+    """The one form every "unknown name" message uses for its suggestion: ``" (nearest known:
+    a, b)"``, or "" when nothing is close. ``show`` writes each suggestion (quoting, braces)."""
+    close = difflib.get_close_matches(str(word), [str(k) for k in known], n=n, cutoff=cutoff)
+    return f" (nearest known: {', '.join(show(c) for c in close)})" if close else ""

@@ -10,7 +10,6 @@ column and the fix.
 """
 from __future__ import annotations
 
-import difflib
 import os
 import re
 import unicodedata
@@ -23,6 +22,7 @@ import scipy.sparse as sp
 
 from learnopt.core.errors import DataError
 from learnopt.data.encoding import Encoding, column_type, design, encode, finite, real_values
+from learnopt.core.checks import nearest
 
 
 @dataclass(eq=False)
@@ -72,8 +72,7 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
 
 
 def _close(name: str, options: Sequence[str]) -> str:
-    close = difflib.get_close_matches(str(name), [str(o) for o in options], n=3)
-    return f" Close matches: {', '.join(close)}." if close else ""
+    return nearest(name, options)
 
 
 def _column(frame: pd.DataFrame, name, role: str) -> pd.Series:

@@ -10,7 +10,6 @@ in a replaced form (backtick quotes, ``column=level``), still runs; the new form
 """
 from __future__ import annotations
 
-import difflib
 import json
 import os
 import sys
@@ -29,6 +28,7 @@ from learnopt.interface.recipes import read_recipe
 from learnopt.solve.fitfile import to_dict
 from learnopt.solve.standing import gauge
 from learnopt.solve.solvers import REGISTRY as SOLVERS
+from learnopt.core.checks import nearest
 
 try:
     import click
@@ -219,8 +219,7 @@ def compare(recipe, solvers, as_json, report):
     names = [s.strip().lower() for s in solvers.split(",") if s.strip()] if solvers else None
     unknown = [n for n in names or () if n not in SOLVERS]
     if unknown:
-        close = [m for n in unknown for m in difflib.get_close_matches(n, list(SOLVERS), n=1)]
-        hint = f" Did you mean {', '.join(close)}?" if close else ""
+        hint = nearest(unknown[0], SOLVERS, n=1)
         _fail(ParameterError(f"--solvers names unknown solvers {', '.join(unknown)}.{hint} "
                              f"Known solvers: {', '.join(SOLVERS)}."), as_json)
     _run(recipe, as_json, report, action="compare", solvers=names)

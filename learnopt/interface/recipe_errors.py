@@ -17,7 +17,6 @@ validation library's own wording.
 from __future__ import annotations
 
 import datetime
-import difflib
 import json
 import math
 import re
@@ -28,6 +27,7 @@ from collections.abc import Mapping
 from learnopt.core.checks import LONGEST, Interval
 from learnopt.core.errors import LearnoptError, MissingDependencyError
 from learnopt.terms.losses import LOSSES, by_name
+from learnopt.core.checks import nearest
 
 try:
     from pydantic import BaseModel, ValidationError
@@ -261,16 +261,13 @@ def _line(err: dict, root: type[BaseModel], known_keys) -> list[str]:
         what = expected(annotation, info)
         return [f"{where}: missing; add {parts[-1]} under {home}" + (f" ({what})" if what else "")]
     if kind == "extra_forbidden":
-        close = difflib.get_close_matches(str(parts[-1]), sorted(known_keys), n=1, cutoff=0.75)
-        hint = f" (did you mean '{close[0]}'?)" if close else ""
+        hint = nearest(parts[-1], sorted(known_keys), n=1, cutoff=0.75)
         return [f"{where}: unknown key{hint}; remove it or fix its spelling (the README lists every recipe key)"]
     if kind in CHOICE:
         options = choices(annotation) or tuple(re.findall(r"'([^']*)'", str((err.get("ctx") or {}).get("expected"))))
         if parts[-2:] == ["loss", "name"] and value in LOSSES and not by_name(value).convex:
             return [f"{where}: {by_name(value).refusal()}"]      # the same explanation Python gives
-        close = difflib.get_close_matches(value, [str(o) for o in options], n=1, cutoff=0.6) \
-            if isinstance(value, str) else []
-        hint = f" (did you mean {toml(close[0])}?)" if close else ""
+        hint = nearest(value, options, n=1, show=toml) if isinstance(value, str) else ""
         return [f"{where}: found {found(value)}; it has to be one of {', '.join(toml(o) for o in options)}{hint}"]
     if kind in LENGTH:
         ctx = err.get("ctx") or {}

@@ -21,7 +21,6 @@ Every rule compiles to :class:`Requirement` objects over theta = (coefficients, 
 from __future__ import annotations
 
 import ast
-import difflib
 
 import numpy as np
 import pandas as pd
@@ -29,6 +28,7 @@ import pandas as pd
 from learnopt.core.errors import DataError, NotConvexError, warn_old_spelling
 from learnopt.rules.reading import Quoted, read, shown, written
 from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows, Requirement
+from learnopt.core.checks import nearest
 
 FUNCTIONS = ("increasing", "decreasing", "nonneg", "nonpos", "norm1", "norm2", "abs", "mean", "sum")
 
@@ -79,9 +79,8 @@ class _Compiler:
             return self.fail(f"{_written(name)} is a coefficient, and a 'where' condition reads data "
                              f"columns: compare the column itself{example}.")
         known = names + ["prediction"] + sorted(map(str, self.columns))
-        close = difflib.get_close_matches(name, list(dict.fromkeys(known)), n=3, cutoff=0.6)
-        hint = f" Close matches: {', '.join(map(_written, close))}." if close else ""
-        return self.fail(f"unknown name {name!r}.{hint} Coefficients: {', '.join(map(_written, names))}"
+        hint = nearest(name, list(dict.fromkeys(known)), show=_written)
+        return self.fail(f"unknown name {name!r}{hint}. Coefficients: {', '.join(map(_written, names))}"
                          + (f"; data columns: {', '.join(_written(str(c)) for c in sorted(map(str, self.columns)))}"
                             if self.columns else "")
                          + ". Names with spaces or symbols are written in braces, e.g. {unit price}; "
@@ -349,8 +348,7 @@ class _Compiler:
             raise self.fail("only the rule functions " + ", ".join(FUNCTIONS) + " may be called.")
         fn = node.func.id
         if fn not in FUNCTIONS:
-            close = difflib.get_close_matches(fn, FUNCTIONS, n=2)
-            raise self.fail(f"unknown function {fn!r}." + (f" Did you mean {', '.join(close)}?" if close else "")
+            raise self.fail(f"unknown function {fn!r}{nearest(fn, FUNCTIONS)}."
                             + " Rule functions: " + ", ".join(FUNCTIONS) + ".")
         if node.keywords:
             raise self.fail(f"{fn}(...) takes no keywords.")

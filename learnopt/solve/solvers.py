@@ -6,7 +6,6 @@ solvers to try, in order, for a problem class.
 """
 from __future__ import annotations
 
-import difflib
 import functools
 from dataclasses import dataclass
 from typing import Callable
@@ -15,6 +14,7 @@ import cvxpy as cp
 
 from learnopt.core.errors import SolverError
 from learnopt.terms.cones import CLASS_LABEL, CLASSES
+from learnopt.core.checks import nearest
 
 @functools.lru_cache(maxsize=1)
 def _installed() -> frozenset[str]:
@@ -94,8 +94,7 @@ def installed() -> list[str]:
 def lookup(name: str) -> SolverSpec:
     key = str(name).lower()
     if key not in REGISTRY:
-        close = difflib.get_close_matches(key, list(REGISTRY), n=2)
-        raise SolverError(f"Unknown solver {name!r}." + (f" Did you mean {', '.join(close)}?" if close else "")
+        raise SolverError(f"Unknown solver {name!r}{nearest(key, REGISTRY, n=2)}."
                           + f" Installed: {', '.join(installed())}; known: {', '.join(REGISTRY)}.")
     return REGISTRY[key]
 

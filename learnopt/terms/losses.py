@@ -33,7 +33,6 @@ logistic               log(1 + exp(-m))                                   (-u)lo
 """
 from __future__ import annotations
 
-import difflib
 
 from learnopt.core import checks as params
 from learnopt.core.errors import NotConvexError, ParameterError
@@ -45,6 +44,7 @@ from learnopt.terms.registry import KINDS, LossSpec
 from learnopt.terms.smooth_losses import (Huber, Logistic, Squared, SquaredHinge, huber, logistic, squared,
                                           squared_hinge)
 from learnopt.terms.special_losses import Custom, ZeroOne, custom, zero_one
+from learnopt.core.checks import nearest
 
 __all__ = [
     "Loss", "squared", "absolute", "huber", "quantile", "epsilon_insensitive", "hinge",
@@ -89,8 +89,7 @@ def by_name(loss: Loss | str) -> Loss:
     if isinstance(loss, str) and (loss in LOSSES or loss in _ALIASES):
         return (LOSSES.get(loss) or _ALIASES[loss]).factory()
     known = sorted([*LOSSES, *_ALIASES])
-    close = difflib.get_close_matches(str(loss), known, n=3)
-    hint = f" Did you mean {', '.join(close)}?" if close else ""
+    hint = nearest(loss, known)
     raise ParameterError(
         f"Unknown loss {loss!r}.{hint} Known losses: {', '.join(known)}; "
         f"losses with parameters are objects, e.g. lo.loss.quantile(0.9)."
