@@ -379,3 +379,21 @@ def test_check_counts_the_rows_run_fits_and_names_the_recipe_folder(copied, tmp_
     assert out.exit_code == 2
     assert "data.path = 'data/nope.csv'" in out.output and "recipe's folder" in out.output
     assert "working" not in out.output
+
+
+@pytest.mark.parametrize("args,fragment", [
+    (["runn"], "no command 'runn' (nearest known: run)"),
+    (["run", "x.toml", "--jsn"], "no option --jsn (nearest known: --json)"),
+    (["path", "x.toml", "--n", "abc"], "--n has to be a whole number from 2 to 500"),
+    (["run"], "learnopt run needs a recipe file"),
+])
+def test_command_line_mistakes_are_told_in_our_words(args, fragment):
+    # our own wording, exit 2 (invalid input); the framework's stock usage block never shows
+    out = subprocess.run([sys.executable, "-m", "learnopt.interface.cli", *args], capture_output=True, text=True)
+    assert out.returncode == 2 and fragment in out.stderr
+    assert "Usage:" not in out.stderr and "Error:" not in out.stderr and "Traceback" not in out.stderr
+
+
+def test_a_learnopt_error_says_what_stopped_it(tmp_path):
+    out = CliRunner().invoke(main, ["run", str(tmp_path / "missing.toml")])
+    assert out.exit_code == 2 and out.output.startswith("learnopt stopped (invalid input, exit 2): ")

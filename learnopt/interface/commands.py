@@ -32,6 +32,7 @@ from learnopt.core.checks import nearest
 
 try:
     import click
+    from rich import box
     from rich.console import Console
     from rich.table import Table
 except ImportError as exc:  # pragma: no cover - exercised only without the cli extra
@@ -42,22 +43,76 @@ def _console() -> Console:
     return Console(highlight=False, soft_wrap=True)
 
 
+OUTCOMES = {1: "not certified", 2: "invalid input", 3: "not convex", 4: "no usable solver", 5: "too large",
+            6: "a package is missing"}
+
+
 def _fail(exc: LearnoptError, as_json: bool) -> None:
     if as_json:
         click.echo(json.dumps({"error": type(exc).__name__, "message": str(exc), "problems": exc.problems}))
     else:
-        _console().print(f"[bold red]{type(exc).__name__}[/]: {exc}")
+        _console().print(f"learnopt stopped ({OUTCOMES.get(exc.exit_code, 'error')}, exit {exc.exit_code}): {exc}",
+                         markup=False)
     sys.exit(exc.exit_code)
 
 
+def _cell(v) -> str:
+    if isinstance(v, float):
+        return "0" if v == 0 else f"{v:.6g}"          # no "-0"
+    return str(v)
+
+
 def _frame_table(frame, title: str) -> Table:
-    table = Table(title=title)
-    table.add_column(str(frame.index.name or ""))
+    """A table in our own plain style: a rule under the header, text left, numbers right."""
+    table = Table(title=title, title_justify="left", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+    table.add_column(str(frame.index.name or ""), justify="left")
     for c in frame.columns:
-        table.add_column(str(c), justify="right")
+        numeric = pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])
+        table.add_column(str(c), justify="right" if numeric else "left")
     for idx, row in frame.iterrows():
-        table.add_row(str(idx), *[f"{v:.6g}" if isinstance(v, float) else str(v) for v in row])
+        table.add_row(str(idx), *[_cell(v) for v in row])
     return table
+
+
+def _needs(param) -> str:
+    """What a command-line value has to be, in our words."""
+    kind = param.type
+    if isinstance(kind, click.IntRange):
+        return f"a whole number from {kind.min} to {kind.max}"
+    if isinstance(kind, click.Path):
+        return "a path to a file"
+    return {"integer": "a whole number", "float": "a number"}.get(kind.name, f"a {kind.name}")
+
+
+class _Commands(click.Group):
+    """The command group, with command-line mistakes told in learnopt's own words (exit 2)."""
+
+    def resolve_command(self, ctx, args):
+        name = args[0] if args else ""
+        if name and not name.startswith("-") and self.get_command(ctx, name) is None:
+            raise click.UsageError(f"no command {name!r}{nearest(name, self.list_commands(ctx))}; "
+                                   f"the commands are {', '.join(self.list_commands(ctx))}", ctx)
+        return super().resolve_command(ctx, args)
+
+    def main(self, args=None, prog_name=None, **extra):
+        try:
+            return super().main(args, prog_name="learnopt", standalone_mode=False, **extra)
+        except click.exceptions.NoSuchOption as exc:
+            known = sorted(o for p in (exc.ctx.command.params if exc.ctx else ()) for o in p.opts if o.startswith("-"))
+            told = f"no option {exc.option_name}{nearest(exc.option_name, known)}"
+        except click.exceptions.MissingParameter as exc:
+            told = f"{exc.ctx.command_path if exc.ctx else 'the command'} needs a recipe file: learnopt COMMAND RECIPE.toml"
+        except click.exceptions.BadParameter as exc:
+            told = (f"{exc.param.opts[0] if exc.param and exc.param.opts else 'a value'} has to be "
+                    f"{_needs(exc.param) if exc.param else 'something else'}")
+        except click.exceptions.UsageError as exc:
+            told = exc.message
+        except click.exceptions.Abort:
+            click.echo("learnopt: stopped by the user", err=True)
+            sys.exit(130)
+        click.echo(f"learnopt: {told} (learnopt --help lists the commands, learnopt COMMAND --help their options)",
+                   err=True)
+        sys.exit(2)
 
 
 def _show_centres(job, as_json: bool) -> None:
@@ -172,7 +227,7 @@ _report = click.option("--report", type=click.Path(dir_okay=False), default=None
                        help="Write a self-contained HTML report here.")
 
 
-@click.group(help="learnopt: convex learning tasks with rules, solved and certified.")
+@click.group(cls=_Commands, help="learnopt: convex learning tasks with rules, solved and certified.")
 @click.version_option(__version__, "--version", prog_name="learnopt", message="%(prog)s %(version)s")
 def main():
     pass
