@@ -29,7 +29,7 @@ def task(df):
     ("c >= a", lambda f: f.coef.c >= f.coef.a - 1e-8),
     ("increasing(a, b, c)", lambda f: f.coef.a <= f.coef.b + 1e-8 and f.coef.b <= f.coef.c + 1e-8),
     ("decreasing(c, a)", lambda f: f.coef.c >= f.coef.a - 1e-8),
-    ("nonneg(b, c)", lambda f: f.coef.b >= -1e-8 and f.coef.c >= -1e-8),
+    ("nonnegative(b, c)", lambda f: f.coef.b >= -1e-8 and f.coef.c >= -1e-8),
     ("norm1(a, b) <= 2", lambda f: abs(f.coef.a) + abs(f.coef.b) <= 2 + 1e-7),
     ("norm2(a, b, c) <= 1", lambda f: np.linalg.norm(f.coef[["a", "b", "c"]]) <= 1 + 1e-7),
     ("intercept == 0.25", lambda f: abs(f.intercept - 0.25) < 1e-8),
@@ -109,3 +109,13 @@ def test_require_returns_new_task(df):
     base = task(df)
     ruled = base.require("a >= 3")
     assert base.rules == () and len(ruled.rules) == 1
+
+
+def test_earlier_shape_names_are_still_read_with_a_note():
+    rng = np.random.default_rng(4)
+    frame = pd.DataFrame({"a": rng.normal(size=60), "b": rng.normal(size=60)})
+    frame["y"] = -frame["a"] + rng.normal(size=60)
+    with pytest.warns(lo.OldSpellingWarning, match="nonnegative"):
+        old = lo.regression(frame, "y").require("nonneg(a)").solve()
+    new = lo.regression(frame, "y").require("nonnegative(a)").solve()
+    assert old.objective == new.objective and new.coef["a"] == 0.0

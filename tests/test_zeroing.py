@@ -31,7 +31,7 @@ def _data(classify: bool, seed: int = 5):
 CASES = [(loss, False) for loss in ("squared", "absolute", lo.loss.huber(1.0), lo.loss.quantile(0.7),
                                      lo.loss.epsilon_insensitive(0.2))] + \
         [(loss, True) for loss in ("logistic", "hinge", "squared_hinge")]
-RULES = [(), ("a >= 0",), ("b <= 0", "a >= 0"), ("a + b + c + e <= 1",), ("nonneg(a, e)",)]
+RULES = [(), ("a >= 0",), ("b <= 0", "a >= 0"), ("a + b + c + e <= 1",), ("nonnegative(a, e)",)]
 
 
 def _task(loss, classify, rules):

@@ -351,7 +351,7 @@ def _solve(task, restarts, seed, max_iter, tol, client=None):
         rng = np.random.default_rng(seed + r)
         C = _seed(task, X, np.ones(len(X)) if w is None else w, rng, project)
         C, value, iters, converged = _lloyd(task, stats, C, movable, project, max_iter, tol)
-        rows.append({"restart": r, "seed": seed + r, "objective": value, "iterations": iters, "converged": converged})
+        rows.append({"restart": r + 1, "seed": seed + r, "objective": value, "iterations": iters, "converged": converged})
         if best is None or value < best[1] - 1e-12 * max(1.0, abs(value)):
             best = (C.copy(), value, iters, r)
     C, value, iters, r = best

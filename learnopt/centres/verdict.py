@@ -63,7 +63,7 @@ def examine(task, reqs, movable, project) -> PlacementVerdict:
     for p in task.rules:
         where = f"centre {p.centre}" if p.centre is not None else "every centre"
         facts = sorted({_fact(r) for r in p.spec.compile(task.context())})
-        pieces.append((f"rule {p.spec.text!r} on {where}", "; ".join(facts)))
+        pieces.append((f"rule «{p.spec.text}» on {where}", "; ".join(facts)))
     reasons = []
     probe = _probe(task)
     for j in np.flatnonzero(movable):

@@ -182,7 +182,8 @@ def _show(job, as_json: bool) -> None:
                 if c in job.compare.columns]
         con.print(_frame_table(job.compare[cols], "solver comparison"))
     if job.path is not None:
-        con.print(_frame_table(job.path.table.set_index("strength")[["status", "objective", "gap", "nonzero"]],
+        walk = job.path.table.assign(strength=job.path.table["strength"].map(lambda v: f"{v:.4g}"))
+        con.print(_frame_table(walk.set_index("strength")[["status", "objective", "gap", "nonzero"]],
                                "path"))
         con.print(f"the path ends here: {job.path.stopped}", markup=False)
     if job.evaluation is not None:

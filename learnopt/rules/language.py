@@ -30,7 +30,9 @@ from learnopt.rules.reading import Quoted, read, shown, written
 from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows, Requirement
 from learnopt.core.checks import nearest
 
-FUNCTIONS = ("increasing", "decreasing", "nonneg", "nonpos", "norm1", "norm2", "abs", "mean", "sum")
+FUNCTIONS = ("increasing", "decreasing", "nonnegative", "nonpositive", "norm1", "norm2", "abs", "mean", "sum")
+SHAPES = ("increasing", "decreasing", "nonnegative", "nonpositive")      # functions that are whole rules
+RENAMED = {"nonneg": "nonnegative", "nonpos": "nonpositive"}             # earlier names, still read
 
 
 def _scalar(ctx, A=None, c=0.0) -> Affine:
@@ -107,14 +109,21 @@ class _Compiler:
             return self.top(node.body, self.condition(node.test))
         if isinstance(node, ast.Compare):
             return self.compare(node, mask)
-        if isinstance(node, ast.Call) and isinstance(node.func, ast.Name) and node.func.id in (
-                "increasing", "decreasing", "nonneg", "nonpos"):
+        if isinstance(node, ast.Call) and isinstance(node.func, ast.Name) and self.renamed(node.func.id) in SHAPES:
             return self.shape(node)
         raise self.fail("a rule must be a comparison such as \"a >= 0\" or \"0 <= b <= 5\", "
-                        "or one of increasing(...), decreasing(...), nonneg(...), nonpos(...).")
+                        "or one of increasing(...), decreasing(...), nonnegative(...), nonpositive(...).")
+
+    def renamed(self, fn: str) -> str:
+        """A rule function's name of today (an earlier name is read, with a note)."""
+        if fn in RENAMED:
+            warn_old_spelling(f"Rule {self.text!r}: {fn}(...) is now written {RENAMED[fn]}(...); "
+                              f"the earlier name is still read.")
+            return RENAMED[fn]
+        return fn
 
     def shape(self, node: ast.Call) -> list[Requirement]:
-        fn = node.func.id
+        fn = RENAMED.get(node.func.id, node.func.id)
         if node.keywords:
             raise self.fail(f"{fn}(...) takes coefficient names only, no keywords.")
         terms = [self.value(a, None) for a in node.args]
@@ -129,7 +138,7 @@ class _Compiler:
             A = np.vstack([sign * (terms[i].A - terms[i + 1].A) for i in range(len(terms) - 1)])
             rhs = np.concatenate([-sign * (terms[i].c - terms[i + 1].c) for i in range(len(terms) - 1)])
         else:
-            sign = -1.0 if fn == "nonneg" else 1.0
+            sign = -1.0 if fn == "nonnegative" else 1.0
             A = np.vstack([sign * t.A for t in terms])
             rhs = np.concatenate([-sign * t.c for t in terms])
         return [Requirement(self.text, "<=", A, rhs)]
@@ -346,13 +355,13 @@ class _Compiler:
     def call(self, node: ast.Call, mask):
         if not isinstance(node.func, ast.Name):
             raise self.fail("only the rule functions " + ", ".join(FUNCTIONS) + " may be called.")
-        fn = node.func.id
+        fn = self.renamed(node.func.id)
         if fn not in FUNCTIONS:
             raise self.fail(f"unknown function {fn!r}{nearest(fn, FUNCTIONS)}."
                             + " Rule functions: " + ", ".join(FUNCTIONS) + ".")
         if node.keywords:
             raise self.fail(f"{fn}(...) takes no keywords.")
-        if fn in ("increasing", "decreasing", "nonneg", "nonpos"):
+        if fn in SHAPES:
             raise self.fail(f"{fn}(...) is a whole rule; it cannot be part of an expression.")
         if fn in ("mean", "sum") and self.ctx.aggregates is not None:
             if len(node.args) != 1:

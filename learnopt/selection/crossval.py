@@ -96,7 +96,7 @@ def metric_function(task, metric) -> tuple[str, Callable, bool]:
     return text, simple[text], text == "accuracy"
 
 
-@dataclass
+@dataclass(repr=False)
 class CrossValidation:
     """Held-out scores over a grid of strengths.
 
@@ -117,6 +117,10 @@ class CrossValidation:
     within_one_se: float
     metric: str
     higher_is_better: bool
+
+    def __repr__(self) -> str:
+        return (f"CrossValidation({self.scores.shape[1]} folds, {len(self.table)} strengths, metric {self.metric}; "
+                f"top {self.top:.4g}, within_one_se {self.within_one_se:.4g})")
 
     @property
     def best(self) -> float:

@@ -129,7 +129,7 @@ def zero_strength(task, index: int, fit) -> float:
 
 
 # ---------------------------------------------------------------- path
-@dataclass
+@dataclass(repr=False)
 class Path:
     """A path over strengths of one penalty.
 
@@ -152,6 +152,15 @@ class Path:
     penalty: Penalty | None = None
     stopped: str = ""
 
+    def __repr__(self) -> str:
+        t = self.table
+        if not len(t):
+            return "Path(no strengths)"
+        certified = int((t["status"] == "optimal").sum())
+        what = self.penalty.describe() if self.penalty is not None else "penalty"
+        return (f"Path({len(t)} strengths of {what} from {t['strength'].max():.4g} down to {t['strength'].min():.4g}, "
+                f"{certified} certified; non-zero {int(t['nonzero'].iloc[0])} -> {int(t['nonzero'].iloc[-1])})")
+
     def plot(self, ax=None):
         """Each coefficient against the strength, strength increasing left to right (log scale):
         from the left (weak penalty, every coefficient free) each line falls to zero as the
@@ -165,7 +174,7 @@ class Path:
         named = len(self.coefs.columns) <= 12
         for k, name in enumerate(self.coefs.columns):
             y = self.coefs[name].to_numpy()[order]
-            colour = f"C{k % 10}"
+            colour = PALETTE[k % len(PALETTE)]
             ax.plot(x, y, color=colour, lw=1.4)
             zero = np.flatnonzero(np.abs(y) <= 1e-12 * max(1.0, float(np.max(np.abs(y), initial=0.0))))
             if zero.size and zero[0] > 0:
@@ -213,6 +222,8 @@ def default_grid(task, index, top_fit, n: int, ratio: float):
     return top * np.geomspace(1.0, ratio or 1.0, n), duals
 
 
+PALETTE = ("#1f6f50", "#b5482b", "#2c3e91", "#c28f0c", "#6b3d8f", "#2a8fa3", "#8c5a2b", "#c2417a", "#55751f",
+           "#5f6b7a")        # learnopt's own line colours for the path picture
 FLAT = 0.01         # a decade that gains less than this share of the loss gained so far ends the path
 DECADES = 6         # the path never runs below 10^-6 of the zeroing strength
 

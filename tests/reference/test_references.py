@@ -24,7 +24,7 @@ def test_nonnegative_least_squares_scipy_docstring_example():
     from scipy.optimize import nnls
     A = np.array([[1.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
     b = np.array([2.0, 1.0, 1.0])
-    fit = lo.regression(A, b, intercept=False).require("nonneg(x0, x1)").solve()
+    fit = lo.regression(A, b, intercept=False).require("nonnegative(x0, x1)").solve()
     assert fit.status == "optimal"
     np.testing.assert_allclose(fit.coef.to_numpy(), [1.5, 1.0], atol=1e-7)
     assert fit.objective == pytest.approx(0.7071067811865475 ** 2 / 3, rel=1e-8)  # mean of squares
@@ -38,7 +38,7 @@ def test_nonnegative_least_squares_matches_scipy_nnls_random():
     rng = np.random.default_rng(5)
     A = rng.normal(size=(80, 6))
     b = A @ np.array([1.0, -2.0, 0.5, -0.3, 2.0, 0.0]) + 0.1 * rng.normal(size=80)
-    task = lo.regression(A, b, intercept=False).require("nonneg(x0, x1, x2, x3, x4, x5)")
+    task = lo.regression(A, b, intercept=False).require("nonnegative(x0, x1, x2, x3, x4, x5)")
     fit = task.solve(tol=1e-11, gap_tol=1e-10)
     x, _ = nnls(A, b)
     assert fit.status == "optimal"
