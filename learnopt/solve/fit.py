@@ -183,10 +183,10 @@ class Fit:
                     f"complementarity {self.certificate.complementarity:.3g}"] if self.certificate else []),
                  "timings    " + ", ".join(f"{k} {v:.3f}s" for k, v in self.timings.as_dict().items()),
                  *([self._sharded_line()] if self.route == "sharded" and "passes" in self.extras else [])]
-        table = pd.DataFrame({"coef": self.coef})
-        lines.append(table.to_string(float_format=lambda v: f"{v:.6g}"))
+        values = self.coef
         if self.task is not None and self.task.intercept:
-            lines.append(f"intercept  {self.intercept:.6g}")
+            values = pd.concat([values, pd.Series({"intercept": self.intercept})])
+        lines.append(values.to_frame("coefficient").to_string(float_format=lambda v: "0" if v == 0 else f"{v:.6g}"))
         if len(self.prices):
             lines += standing_lines(self.rule_standing())
         if len(self.conflicts):
