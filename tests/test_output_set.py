@@ -189,6 +189,10 @@ def test_a_held_out_file_and_a_data_pattern_are_protected(home):
     assert any("outputs.fit" in p and "do.holdout.path" in p for p in found)
     assert any("outputs.coefficients" in p and "data.path" in p for p in found)
     assert any("outputs.predictions" in p and "would read it as data" in p for p in found)   # a future match
+    assert len(found) == 3
+    elsewhere = _recipe(home, 'predictions = "data/kept/part-8.csv"\nfit = "out/part-2.csv"')
+    elsewhere.write_text(elsewhere.read_text().replace("data/points.csv", "data/part-*.csv"))
+    assert plan(read_recipe(elsewhere))          # '*' stays within one folder, as the pattern reads files
 
 
 def test_data_reached_through_a_link_is_protected(home):

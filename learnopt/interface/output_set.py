@@ -95,10 +95,18 @@ def _clash(path: str, protected) -> str | None:
     for key, name, pattern in protected:
         if name and mine in (entry(name), os.path.realpath(name)):
             return f"{key} ({name!r})"
-        if not name and (fnmatch.fnmatchcase(os.path.abspath(path), pattern)
-                         or fnmatch.fnmatchcase(mine, pattern)):
+        if not name and (_matches(os.path.abspath(path), pattern) or _matches(mine, pattern)):
             return f"{key} (the pattern {pattern!r} would read it as data)"
     return None
+
+
+def _matches(path: str, pattern: str) -> bool:
+    """Would a file pattern read ``path``? Part by part as a file pattern reads it (``*`` stays
+    within one folder); a pattern with ``**`` is matched whole (it may cross folders)."""
+    if "**" in pattern:
+        return fnmatch.fnmatchcase(path, pattern)
+    ours, theirs = path.split(os.sep), pattern.split(os.sep)
+    return len(ours) == len(theirs) and all(fnmatch.fnmatchcase(a, b) for a, b in zip(ours, theirs))
 
 
 def plan(recipe, *, report: str | None = None, anywhere: bool = False) -> list[Planned]:
