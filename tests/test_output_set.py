@@ -379,3 +379,13 @@ def test_centres_runs_are_stamped_too(home):
     assert json.loads((home / "out" / "c.json").read_text())["run"] == run
     assert len(lo.load_fit(home / "out" / "c.json").centres) == 2       # the stamp is inside the digest
     assert _cli("verify", recipe).exit_code == 0
+
+
+def test_demo_into_a_file_or_over_a_pipe_is_refused(tmp_path):
+    (tmp_path / "taken").write_text("mine")
+    _refused(_cli("demo", "--folder", tmp_path / "taken" / "sub"), "--folder", "not a folder")
+    assert (tmp_path / "taken").read_text() == "mine"
+    (tmp_path / "d").mkdir()
+    os.mkfifo(tmp_path / "d" / "deliveries.toml")
+    _refused(_cli("demo", "--folder", tmp_path / "d"), "a named pipe")
+    assert not (tmp_path / "d" / "data").exists()

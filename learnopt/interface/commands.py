@@ -267,7 +267,10 @@ def path(recipe, grid, count, as_json, report, anywhere):
 @_report
 @_anywhere
 def demo(folder, as_json, report, anywhere):
-    recipe = write_demo(folder)
+    try:
+        recipe = write_demo(folder)
+    except LearnoptError as exc:
+        _fail(exc, as_json)
     _run(recipe, as_json, report, anywhere)       # the recipe names its own report (out/...)
 
 
