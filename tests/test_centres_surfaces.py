@@ -118,7 +118,8 @@ def test_centres_recipe_runs_checks_and_reports(copied, tmp_path):
     assert out.exit_code == 0, out.output
     assert "local optimum" in out.output and "siting decisions" in out.output
     written = {p.name for p in (copied / "out").iterdir()}
-    assert written == {"depots-fit.json", "depots-centres.csv", "depots-assignments.csv", "depots-report.html"}
+    assert written == {"depots-fit.json", "depots-centres.csv", "depots-assignments.csv", "depots-report.html",
+                       "depots.run.json"}        # the run record, written last (see output_set)
     table = pd.read_csv(copied / "out" / "depots-centres.csv", index_col="centre")
     assert list(table.columns) == ["east_km", "north_km", "weight", "points"] and table.loc[1, "east_km"] == 0.5
     labels = pd.read_csv(copied / "out" / "depots-assignments.csv", index_col="row")["centre"]

@@ -213,3 +213,11 @@ def test_names_alike_after_unicode_normalisation_are_refused(pair):
     frame = pd.DataFrame({pair[0]: rng.normal(size=30), pair[1]: rng.normal(size=30), "y": rng.normal(size=30)})
     with pytest.raises(lo.DataError, match="differ only in Unicode form"):
         lo.regression(frame, "y")
+
+
+def test_a_name_with_a_character_that_only_continues_identifiers_is_written_in_braces():
+    # found by the property test: U+00B7 (middle dot) may continue a Python identifier but the
+    # tokenizer reads names as word characters, so such a name is written in braces
+    assert written("A\u00b7") == "{A\u00b7}"
+    frame = pd.DataFrame({"A\u00b7": np.arange(10.0), "y": np.arange(10.0)})
+    lo.regression(frame, "y").require(f"{written('A·')} >= -10")

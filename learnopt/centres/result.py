@@ -78,15 +78,16 @@ class CentresFit:
                           "mean_squared_distance": float(np.average(d2, weights=w)),
                           "rms_distance": float(np.sqrt(np.average(d2, weights=w)))})
 
-    def save(self, path) -> None:
-        """Write this placement to a JSON model file (atomically; no pickle); read it with ``lo.load_fit``."""
-        write_atomic(path, _json_text(self))
+    def save(self, path, *, run: str | None = None) -> None:
+        """Write this placement to a JSON model file (atomically; no pickle); read it with ``lo.load_fit``.
+        ``run`` (a recipe run's identifier) is written inside, covered by the file's digest."""
+        write_atomic(path, json.dumps(seal(self.to_dict(run=run)), indent=1))
 
-    def to_dict(self) -> dict:
-        """The model file's content (JSON-ready)."""
+    def to_dict(self, *, run: str | None = None) -> dict:
+        """The model file's content (JSON-ready), stamped with ``run`` when given."""
         task = self.task
         return {
-            "format": MODEL_FORMAT, "schema_version": MODEL_SCHEMA,
+            "format": MODEL_FORMAT, "schema_version": MODEL_SCHEMA, **({"run": run} if run else {}),
             "task": {"kind": "centres", "coordinates": list(task.names), "k": int(task.k),
                      "fixed": [list(c) for c in task.fixed],
                      "rules": [{"centre": p.centre, **to_plain(p.spec)} for p in task.rules]},
@@ -127,10 +128,6 @@ def _versions() -> dict:
         except metadata.PackageNotFoundError:
             out[pkg] = None
     return out
-
-
-def _json_text(fit) -> str:
-    return json.dumps(seal(fit.to_dict()), indent=1)
 
 
 def _points(task, points) -> np.ndarray:

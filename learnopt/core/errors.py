@@ -29,6 +29,12 @@ class DataError(LearnoptError, ValueError):
     exit_code = 2
 
 
+class OutputError(DataError):
+    """An output would be written where it must not: outside the recipe's folder, onto the data or
+    the recipe, onto another output, or onto something that is not a regular file (a folder, a
+    device, a pipe). The message names the output and the fix."""
+
+
 class ParameterError(LearnoptError, ValueError):
     """A parameter of a loss, penalty, rule or solve call is out of its allowed range.
 

@@ -4,9 +4,10 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import stat
 import tempfile
 
-from learnopt.core.errors import DataError
+from learnopt.core.errors import DataError, OutputError
 
 
 def _umask() -> int:
@@ -16,12 +17,39 @@ def _umask() -> int:
     return mask
 
 
+def not_writable(path) -> str | None:
+    """Why ``path`` cannot take an output (None when it can): learnopt writes only to new paths
+    and regular files, never onto a folder, a device, a pipe, a socket or a symbolic link (the
+    rename would replace it), nor below something that is not a folder."""
+    path = os.path.abspath(os.fspath(path))
+    try:
+        mode = os.lstat(path).st_mode
+    except (FileNotFoundError, NotADirectoryError):
+        mode = None
+    if mode is not None and not stat.S_ISREG(mode):
+        what = ("a folder" if stat.S_ISDIR(mode) else "a symbolic link" if stat.S_ISLNK(mode)
+                else "a device" if stat.S_ISCHR(mode) or stat.S_ISBLK(mode) else "a named pipe" if stat.S_ISFIFO(mode)
+                else "a socket" if stat.S_ISSOCK(mode) else "not a regular file")
+        return f"{path!r} is {what}; learnopt writes only to regular files or new paths: name a file there instead"
+    folder = os.path.dirname(path)
+    while folder and not os.path.lexists(folder):
+        folder = os.path.dirname(folder)
+    if folder and not os.path.isdir(folder):
+        return f"{path!r} lies below {folder!r}, which is not a folder: name a path in a folder"
+    return None
+
+
 def write_atomic(path, text) -> None:
     """Write ``text`` to ``path`` via a temporary file in the same folder renamed into place;
     on any failure (an interruption included) neither a partial file nor the temporary remains.
     ``text`` may also be an iterable of str/bytes chunks (written one after the other, so a
-    large output never has to be whole in memory)."""
+    large output never has to be whole in memory). An existing ``path`` that is not a regular
+    file (a folder, a device such as /dev/null, a pipe, a socket, a link) is refused with
+    :class:`OutputError`, not replaced."""
     path = os.fspath(path)
+    why = not_writable(path)
+    if why is not None:
+        raise OutputError(f"Cannot write {why}.")
     folder = os.path.dirname(os.path.abspath(path))
     os.makedirs(folder, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
@@ -38,6 +66,15 @@ def write_atomic(path, text) -> None:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def sha256_of(path, chunk: int = 2 ** 20) -> str:
+    """The SHA-256 of a file, read in chunks (a large file is never held in memory)."""
+    value = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(chunk), b""):
+            value.update(block)
+    return value.hexdigest()
 
 
 MODEL_FORMAT = "learnopt-fit"

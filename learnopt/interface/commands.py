@@ -24,6 +24,7 @@ from learnopt.core.errors import LearnoptError, MissingDependencyError, OldSpell
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
+from learnopt.interface.output_set import ANYWHERE, examine
 from learnopt.interface.recipes import read_recipe
 from learnopt.solve.fitfile import to_dict
 from learnopt.solve.standing import gauge
@@ -80,7 +81,7 @@ def _needs(param) -> str:
     if isinstance(kind, click.IntRange):
         return f"a whole number from {kind.min} to {kind.max}"
     if isinstance(kind, click.Path):
-        return "a path to a file"
+        return "a path to a file (not a folder)"
     return {"integer": "a whole number", "float": "a number"}.get(kind.name, f"a {kind.name}")
 
 
@@ -115,10 +116,17 @@ class _Commands(click.Group):
         sys.exit(2)
 
 
+def _show_written(con, job) -> None:
+    for path in job.written:
+        con.print(f"wrote {path}", markup=False)
+    if job.record:
+        con.print(f"run {job.run_id}: the set is recorded in {job.record} (learnopt verify checks it)", markup=False)
+
+
 def _show_centres(job, as_json: bool) -> None:
     fit = job.fit
     if as_json:
-        out = {"fit": fit.to_dict(), "written": job.written}
+        out = {"fit": fit.to_dict(run=job.run_id), "written": job.written, "run": job.run_id, "record": job.record}
         if job.evaluation is not None:
             out["evaluation"] = json.loads(job.evaluation.to_json())
         click.echo(json.dumps(out, default=str))
@@ -133,8 +141,7 @@ def _show_centres(job, as_json: bool) -> None:
     con.print(_frame_table(fit.centres.join(fit.loads), "centres"))
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.to_frame("value"), "held-out points"))
-    for path in job.written:
-        con.print(f"wrote {path}", markup=False)
+    _show_written(con, job)
     con.print(PLACEMENT_CAUTION)
 
 
@@ -143,7 +150,7 @@ def _show(job, as_json: bool) -> None:
         return _show_centres(job, as_json)
     fit = job.fit
     if as_json:
-        out = {"fit": to_dict(fit), "written": job.written}
+        out = {"fit": to_dict(fit, run=job.run_id), "written": job.written, "run": job.run_id, "record": job.record}
         if job.compare is not None:
             out["compare"] = json.loads(job.compare.to_json(orient="index"))
         if job.path is not None:
@@ -188,8 +195,7 @@ def _show(job, as_json: bool) -> None:
         con.print(f"the path ends here: {job.path.stopped}", markup=False)
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
-    for path in job.written:
-        con.print(f"wrote {path}")
+    _show_written(con, job)
     con.print(CAUTION)
 
 
@@ -214,9 +220,16 @@ def _read(reader, *args, **options):
     return out
 
 
-def _run(recipe_path, as_json, report, **overrides):
+def _run(recipe_path, as_json, report, anywhere, **overrides):
     try:
-        job = _read(jobs.run, _read(read_recipe, recipe_path), report=report, **overrides)
+        recipe = _read(read_recipe, recipe_path)
+        before = examine(recipe)
+        if before.run is not None and not before.whole:
+            click.echo(f"note: the outputs recorded in {before.record} (run {before.run}) are no longer one set; "
+                       f"this run replaces them:", err=True)
+            for line in before.problems:
+                click.echo(f"  - {line}", err=True)
+        job = _read(jobs.run, recipe, report=report, anywhere=anywhere, **overrides)
     except LearnoptError as exc:
         _fail(exc, as_json)
     _show(job, as_json)
@@ -225,7 +238,10 @@ def _run(recipe_path, as_json, report, **overrides):
 
 _json = click.option("--json", "as_json", is_flag=True, help="Machine-readable output.")
 _report = click.option("--report", type=click.Path(dir_okay=False), default=None,
-                       help="Write a self-contained HTML report here.")
+                       help="Write a self-contained HTML report here (any folder; never onto the data, "
+                            "another output or a non-regular file).")
+_anywhere = click.option(ANYWHERE, "anywhere", is_flag=True,
+                         help="Let the recipe's [outputs] be written outside the recipe's folder.")
 
 
 @click.group(cls=_Commands, help="learnopt: convex learning tasks with rules, solved and certified.")
@@ -238,8 +254,9 @@ def main():
 @click.argument("recipe", type=click.Path(dir_okay=False))
 @_json
 @_report
-def run(recipe, as_json, report):
-    _run(recipe, as_json, report)
+@_anywhere
+def run(recipe, as_json, report, anywhere):
+    _run(recipe, as_json, report, anywhere)
 
 
 @main.command(help="Check a recipe (validation, data, convexity) without solving.")
@@ -271,14 +288,15 @@ def check(recipe, as_json):
               help=f"Comma-separated, from {','.join(SOLVERS)} (default: the recipe's do.solvers).")
 @_json
 @_report
-def compare(recipe, solvers, as_json, report):
+@_anywhere
+def compare(recipe, solvers, as_json, report, anywhere):
     names = [s.strip().lower() for s in solvers.split(",") if s.strip()] if solvers else None
     unknown = [n for n in names or () if n not in SOLVERS]
     if unknown:
         hint = nearest(unknown[0], SOLVERS, n=1)
         _fail(ParameterError(f"--solvers names unknown solvers {', '.join(unknown)}.{hint} "
                              f"Known solvers: {', '.join(SOLVERS)}."), as_json)
-    _run(recipe, as_json, report, action="compare", solvers=names)
+    _run(recipe, as_json, report, anywhere, action="compare", solvers=names)
 
 
 @main.command(help="Walk a grid of penalty strengths and show the path table.")
@@ -287,23 +305,47 @@ def compare(recipe, solvers, as_json, report):
 @click.option("--n", "count", type=click.IntRange(2, 500), default=None, help="Number of strengths.")
 @_json
 @_report
-def path(recipe, grid, count, as_json, report):
+@_anywhere
+def path(recipe, grid, count, as_json, report, anywhere):
     values = None
     if grid:
         try:
             values = [float(v) for v in grid.split(",") if v.strip()]
         except ValueError:
             _fail(refusal("learnopt path", "--grid", grid, "comma-separated numbers, e.g. 1,0.1,0.01"), as_json)
-    _run(recipe, as_json, report, action="path", grid=values, n=count)
+    _run(recipe, as_json, report, anywhere, action="path", grid=values, n=count)
 
 
 @main.command(help="Write the bundled demo (invented data + recipe) to a folder and run it.")
 @click.option("--folder", type=click.Path(file_okay=False), default="learnopt-demo", show_default=True)
 @_json
 @_report
-def demo(folder, as_json, report):
-    recipe = write_demo(folder)
-    _run(recipe, as_json, report)       # the recipe names its own report (out/...)
+@_anywhere
+def demo(folder, as_json, report, anywhere):
+    try:
+        recipe = write_demo(folder)
+    except LearnoptError as exc:
+        _fail(exc, as_json)
+    _run(recipe, as_json, report, anywhere)       # the recipe names its own report (out/...)
+
+
+@main.command(help="Say whether the outputs of a recipe's last run are still one whole set.")
+@click.argument("recipe", type=click.Path(dir_okay=False))
+@_json
+def verify(recipe, as_json):
+    try:
+        state = examine(_read(read_recipe, recipe))
+    except LearnoptError as exc:
+        _fail(exc, as_json)
+    if as_json:
+        click.echo(json.dumps(state.as_dict()))
+    elif state.whole:
+        click.echo(f"whole: the {len(state.files)} files recorded in {state.record} are all from run {state.run}")
+    else:
+        click.echo(f"not one set ({state.record}):")
+        for line in state.problems:
+            click.echo(f"  - {line}")
+    sys.exit(0 if state.whole else 1)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -16,7 +16,8 @@ import numpy as np
 import pandas as pd
 
 from learnopt.centres.placement import centres
-from learnopt.core.files import write_atomic
+from learnopt.core.errors import OutputError
+from learnopt.core.files import not_writable, write_atomic
 from learnopt.rules.regions import polygon, segment
 
 
@@ -67,7 +68,13 @@ def demo_recipe() -> str:
 
 
 def write_demo(folder: str) -> str:
-    """Write the demo data (seeded) and recipe into ``folder``; return the recipe's path."""
+    """Write the demo data (seeded) and recipe into ``folder``; return the recipe's path. A
+    folder that cannot take them (a file on the way, a non-regular file in the way) is refused
+    with :class:`OutputError` before anything is written."""
+    wrong = [why for why in (not_writable(os.path.join(folder, "data", "deliveries.csv")),
+                             not_writable(os.path.join(folder, "deliveries.toml"))) if why]
+    if wrong:
+        raise OutputError(f"--folder {folder!r} cannot take the demo: {wrong[0]}", problems=wrong)
     os.makedirs(os.path.join(folder, "data"), exist_ok=True)
     write_atomic(os.path.join(folder, "data", "deliveries.csv"), make_data().to_csv(index=False))
     path = os.path.join(folder, "deliveries.toml")

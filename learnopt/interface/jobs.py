@@ -1,6 +1,8 @@
-"""Running a recipe: build the task, do the action, write the outputs (each atomically)."""
+"""Running a recipe: check where the outputs go, build the task, do the action, write the
+outputs (each atomically, stamped with the run's identifier) and then the run record."""
 from __future__ import annotations
 
+import uuid
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -10,6 +12,7 @@ from learnopt.core.status import Status
 from learnopt.core.errors import DataError
 from learnopt.core.files import write_atomic
 from learnopt.interface.report import html
+from learnopt.interface.output_set import Planned, plan, record
 from learnopt.interface.placing import csv_chunks, write_centres
 from learnopt.interface.recipes import Recipe, _frame, build_task, read_from
 
@@ -27,6 +30,9 @@ class Job:
     written: list[str] = field(default_factory=list)
     rows_in_file: int | None = None     # rows in the data file(s); None when not counted (sharded)
     held_out: object = None             # the held-out rows (a DataFrame, or a lazy one), or None
+    run_id: str = field(default_factory=lambda: uuid.uuid4().hex)   # stamped on every output
+    planned: list[Planned] = field(default_factory=list)            # where the outputs go (checked)
+    record: str | None = None           # the run record written last, or None when nothing was written
 
     @property
     def rows_used(self) -> int | None:
@@ -76,12 +82,16 @@ def training_task(recipe: Recipe):
 
 
 def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n=None,
-        report: str | None = None) -> Job:
-    """Do what the recipe says (``action``/``solvers``/``grid``/``n``/``report`` override it)."""
+        report: str | None = None, anywhere: bool = False) -> Job:
+    """Do what the recipe says (``action``/``solvers``/``grid``/``n``/``report`` override it).
+    The outputs are checked before anything is read or solved (see ``output_set.plan``;
+    ``anywhere`` lets the recipe's outputs leave its folder)."""
+    planned = plan(recipe, report=report, anywhere=anywhere)
     frame = _frame(recipe)
     train, held = _split(recipe, frame)
     task = build_task(recipe, train)
-    job = Job(recipe, task, held_out=held, rows_in_file=len(frame) if isinstance(frame, pd.DataFrame) else None)
+    job = Job(recipe, task, held_out=held, rows_in_file=len(frame) if isinstance(frame, pd.DataFrame) else None,
+              planned=planned)
     if job.rows_in_file is None and not job.centres:
         job.rows_in_file = job.rows_used      # sharded: a held-out split is always a file of its own
     s = recipe.solve
@@ -112,7 +122,7 @@ def _outputs(job: Job, frame, report: str | None) -> None:
     out, fit, recipe = job.recipe.outputs, job.fit, job.recipe
     if out.fit:
         path = recipe.resolve(out.fit)
-        fit.save(path)
+        fit.save(path, run=job.run_id)
         job.written.append(path)
     if out.coefficients:
         path = recipe.resolve(out.coefficients)
@@ -143,6 +153,7 @@ def _report(job: Job, report: str | None) -> None:
     if target:
         write_atomic(target, html(job))
         job.written.append(target)
+    job.record = record(job.run_id, recipe, job.planned, job.written)
 
 
 def _held_points(recipe: Recipe, held):

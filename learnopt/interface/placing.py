@@ -93,7 +93,7 @@ def write_centres(job, frame, written) -> None:
     out, fit, recipe = job.recipe.outputs, job.fit, job.recipe
     if out.fit:
         path = recipe.resolve(out.fit)
-        fit.save(path)
+        fit.save(path, run=job.run_id)
         written.append(path)
     if out.centres:
         path = recipe.resolve(out.centres)

@@ -4,12 +4,12 @@ how the fit was solved. Read once when the report is written; shown first on the
 from __future__ import annotations
 
 import glob
-import hashlib
 import html
 import os
 from dataclasses import dataclass
 from datetime import datetime
 
+from learnopt.core.files import sha256_of
 from learnopt.core.version import __version__
 from learnopt.data.gateway import is_sharded_source
 
@@ -40,19 +40,11 @@ class Provenance:
     rows_in_file: int | None
     holdout: str
     solved: str
+    run: str | None = None         # the run's identifier (also in the model file and the run record)
 
     @property
     def total_size(self) -> int:
         return sum(f.size for f in self.files)
-
-
-def sha256_of(path: str, chunk: int = 2 ** 20) -> str:
-    """The SHA-256 of a file, read in chunks (a large file is never held in memory)."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(chunk), b""):
-            digest.update(block)
-    return digest.hexdigest()
 
 
 def data_files(path: str) -> tuple[tuple[DataFile, ...], str]:
@@ -105,7 +97,7 @@ def provenance(job) -> Provenance:
     return Provenance(written=datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z"), version=__version__,
                       recipe_file=recipe.file or "(not read from a file)", data=recipe.data.path, files=files,
                       hash_note=note, rows_used=job.rows_used, rows_in_file=job.rows_in_file,
-                      holdout=holdout_text(recipe), solved=solved_text(job))
+                      holdout=holdout_text(recipe), solved=solved_text(job), run=getattr(job, "run_id", None))
 
 
 def _count(n: int | None) -> str:
@@ -131,4 +123,6 @@ def provenance_html(p: Provenance) -> str:
             ("recipe", f"<code>{esc(p.recipe_file)}</code>"), ("data", data),
             ("rows", f"{_count(p.rows_used)} used of {_count(p.rows_in_file)} in the data"),
             ("held out", esc(p.holdout)), ("solved by", esc(p.solved))]
+    if p.run:
+        rows.append(("run", f"<code data-learnopt-run=\"{esc(p.run)}\">{esc(p.run)}</code>"))
     return ("<dl class=\"provenance\">" + "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in rows) + "</dl>")

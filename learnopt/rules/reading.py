@@ -43,8 +43,10 @@ _TRIPLE = ("'" * 3, '"' * 3)
 
 def plain(name: str) -> bool:
     """Can ``name`` be written without braces (identifiers, joined by dots)?"""
-    return all(part.isidentifier() and not keyword.iskeyword(part) and part != "where"
-               and unicodedata.normalize("NFKC", part) == part for part in name.split("."))
+    # \w+ as well as an identifier: Python's tokenizer reads names as \w+, so a character that
+    # may continue an identifier but is not a word character (a middle dot, U+00B7) needs braces
+    return all(part.isidentifier() and re.fullmatch(r"\w+", part) is not None and not keyword.iskeyword(part)
+               and part != "where" and unicodedata.normalize("NFKC", part) == part for part in name.split("."))
 
 
 def written(name: str) -> str:

@@ -150,9 +150,10 @@ class Fit:
                             f"{self.message}")
 
     # ---- model files
-    def save(self, path) -> None:
-        """Write this fit to a JSON model file (atomically; no pickle). Read it with ``lo.load_fit``."""
-        fitfile.save(self, path)
+    def save(self, path, *, run: str | None = None) -> None:
+        """Write this fit to a JSON model file (atomically; no pickle). Read it with ``lo.load_fit``.
+        ``run`` (a recipe run's identifier) is written inside, covered by the file's digest."""
+        fitfile.save(self, path, run=run)
 
     @classmethod
     def load(cls, path, *, task_type=None) -> "Fit":

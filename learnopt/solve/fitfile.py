@@ -96,12 +96,14 @@ def _versions(solver: str | None) -> dict:
     return out
 
 
-def to_dict(fit) -> dict:
+def to_dict(fit, *, run: str | None = None) -> dict:
+    """The model file's content (JSON-ready); ``run`` is the identifier of the recipe run that
+    writes it (kept under "run", inside what the digest covers), when there is one."""
     task = fit.task
     ds = task.dataset
     enc = ds.encoding
     return {
-        "format": MODEL_FORMAT, "schema_version": MODEL_SCHEMA,
+        "format": MODEL_FORMAT, "schema_version": MODEL_SCHEMA, **({"run": run} if run else {}),
         "task": {
             "kind": task.kind, "loss": _piece(task.loss), "penalties": [_piece(p) for p in task.penalties],
             "rules": [r.text for r in task.rules], "intercept": task.intercept,
@@ -126,9 +128,10 @@ def to_dict(fit) -> dict:
     }
 
 
-def save(fit, path) -> None:
-    """Write ``fit`` to ``path`` as JSON, atomically (a temporary file renamed into place)."""
-    write_atomic(path, json.dumps(seal(to_dict(fit)), indent=1))
+def save(fit, path, *, run: str | None = None) -> None:
+    """Write ``fit`` to ``path`` as JSON, atomically (a temporary file renamed into place); ``run``
+    stamps it with a recipe run's identifier before the digest is taken."""
+    write_atomic(path, json.dumps(seal(to_dict(fit, run=run)), indent=1))
 
 
 def _renamed(value, renamed: dict):
