@@ -23,7 +23,16 @@ def write_atomic(path, text) -> None:
     large output never has to be whole in memory)."""
     path = os.fspath(path)
     folder = os.path.dirname(os.path.abspath(path))
-    os.makedirs(folder, exist_ok=True)
+    if os.path.isdir(path):
+        raise DataError(f"Cannot write {path!r}: it is a folder; give the path of a file to write.")
+    blocking = next((p for p in _ancestors(folder) if os.path.exists(p) and not os.path.isdir(p)), None)
+    if blocking is not None:
+        raise DataError(f"Cannot write {path!r}: {blocking!r} is a file, where a folder is needed; choose "
+                        f"another place, or move that file.")
+    try:
+        os.makedirs(folder, exist_ok=True)
+    except PermissionError:
+        raise DataError(f"Cannot write {path!r}: no permission to create the folder {folder!r}.") from None
     fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
     try:
         # mkstemp creates the file readable by its owner only; an output gets the permissions any
@@ -38,6 +47,16 @@ def write_atomic(path, text) -> None:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def _ancestors(folder: str):
+    """``folder`` and every folder above it."""
+    while True:
+        yield folder
+        parent = os.path.dirname(folder)
+        if parent == folder:
+            return
+        folder = parent
 
 
 MODEL_FORMAT = "learnopt-fit"

@@ -21,7 +21,8 @@ import pandas as pd
 from learnopt.core.checks import refusal
 from learnopt.core.version import __version__
 from learnopt.centres.verdict import PlacementVerdict
-from learnopt.core.errors import LearnoptError, MissingDependencyError, OldSpellingWarning, ParameterError
+from learnopt.core.errors import (LearnoptError, MissingDependencyError, OldSpellingWarning, ParameterError,
+                                  TooLargeError)
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
@@ -33,6 +34,7 @@ from learnopt.solve.solvers import REGISTRY as SOLVERS
 try:
     import click
     from rich.console import Console
+    from rich.markup import escape
     from rich.table import Table
 except ImportError as exc:  # pragma: no cover - exercised only without the cli extra
     raise MissingDependencyError("The command line needs click and rich: pip install 'learnopt[cli]'.") from exc
@@ -46,17 +48,24 @@ def _fail(exc: LearnoptError, as_json: bool) -> None:
     if as_json:
         click.echo(json.dumps({"error": type(exc).__name__, "message": str(exc), "problems": exc.problems}))
     else:
-        _console().print(f"[bold red]{type(exc).__name__}[/]: {exc}")
+        _console().print(f"[bold red]{type(exc).__name__}[/]: {escape(str(exc))}")
     sys.exit(exc.exit_code)
 
 
+def _out_of_memory() -> TooLargeError:
+    return TooLargeError("learnopt ran out of memory on this input. Give a file pattern (data.path = "
+                         "\"data/part-*.csv\") to fit it in parts on a cluster, use fewer rows or columns, "
+                         "or choose a route that keeps less in memory (solve.route).")
+
+
 def _frame_table(frame, title: str) -> Table:
-    table = Table(title=title)
-    table.add_column(str(frame.index.name or ""))
+    """A table of ``frame``; every name and value is shown literally (user text is never markup)."""
+    table = Table(title=escape(str(title)))
+    table.add_column(escape(str(frame.index.name or "")))
     for c in frame.columns:
-        table.add_column(str(c), justify="right")
+        table.add_column(escape(str(c)), justify="right")
     for idx, row in frame.iterrows():
-        table.add_row(str(idx), *[f"{v:.6g}" if isinstance(v, float) else str(v) for v in row])
+        table.add_row(escape(str(idx)), *[f"{v:.6g}" if isinstance(v, float) else escape(str(v)) for v in row])
     return table
 
 
@@ -80,7 +89,7 @@ def _show_centres(job, as_json: bool) -> None:
         con.print(_frame_table(job.evaluation.to_frame("value"), "held-out points"))
     for path in job.written:
         con.print(f"wrote {path}", markup=False)
-    con.print(PLACEMENT_CAUTION)
+    con.print(PLACEMENT_CAUTION, markup=False)
 
 
 def _show(job, as_json: bool) -> None:
@@ -105,7 +114,7 @@ def _show(job, as_json: bool) -> None:
                       index=pd.Index(["status", "objective", "certified gap", "worst violation (absolute)", "route",
                                       "solver", "timings"], name="evidence"))
     con.print(_frame_table(ev, job.recipe.title or "learnopt fit"))
-    con.print(fit.message)
+    con.print(fit.message, markup=False)
     con.print(_frame_table(fit.coefficients(), "coefficients"))
     if len(fit.prices):
         standing = fit.rule_standing()
@@ -133,8 +142,8 @@ def _show(job, as_json: bool) -> None:
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
     for path in job.written:
-        con.print(f"wrote {path}")
-    con.print(CAUTION)
+        con.print(f"wrote {path}", markup=False)
+    con.print(CAUTION, markup=False)
 
 
 def _read(reader, *args, **options):
@@ -163,6 +172,8 @@ def _run(recipe_path, as_json, report, **overrides):
         job = _read(jobs.run, _read(read_recipe, recipe_path), report=report, **overrides)
     except LearnoptError as exc:
         _fail(exc, as_json)
+    except MemoryError:
+        _fail(_out_of_memory(), as_json)
     _show(job, as_json)
     sys.exit(0 if job.ok else 1)
 
@@ -195,6 +206,8 @@ def check(recipe, as_json):
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)
+    except MemoryError:
+        _fail(_out_of_memory(), as_json)
     if split:
         verdict.data.insert(0, split)
     placing = isinstance(verdict, PlacementVerdict)
