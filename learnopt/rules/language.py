@@ -54,6 +54,7 @@ class _Compiler:
         self.index = {n: i for i, n in enumerate(ctx.names)}
         self.columns = set(ctx.frame.columns) if ctx.frame is not None else set()
         self.references: list[str] = []      # reference levels the rule names (coefficient 0)
+        self.predicts = False                 # the rule names 'prediction'
 
     # ---- errors
     def fail(self, why: str) -> DataError:
@@ -175,7 +176,8 @@ class _Compiler:
             if self.references and diff.rows is None:
                 return self.about_references(diff, sense, text)
             raise self.fail("it names no coefficient and no prediction, so it cannot constrain the fit.")
-        tiny = too_small(diff.A[0], float(diff.c[0]), self.ctx.names) if diff.rows is None else None
+        # rules over predictions carry round-off from the data (1e-16 on the intercept): not checked
+        tiny = None if diff.rows is not None or self.predicts else too_small(diff.A[0], float(diff.c[0]), self.ctx.names)
         if tiny:
             raise self.fail(tiny)
         return Requirement(text, sense, diff.A, -diff.c)
@@ -299,6 +301,7 @@ class _Compiler:
             self.references.append(name)
             return _scalar(self.ctx)  # a reference level's coefficient is 0 by construction
         if name == "prediction":
+            self.predicts = True
             if self.ctx.aggregates is not None:
                 self.ctx.aggregates.saw_prediction(self)
             if self.ctx.design is None:
