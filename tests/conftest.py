@@ -13,7 +13,8 @@ _TALLY: Counter = Counter()
 
 class Tally:
     def record(self, kind: str, outcome: str) -> None:
-        """kind: bad input / hostile recipe / hostile rule / solver fault; outcome: how it ended."""
+        """kind: bad input / bad file (damaged, misplaced or deeply nested files) / hostile recipe /
+        hostile rule / command line (exit code of a bad run) / solver fault; outcome: how it ended."""
         _TALLY[(kind, outcome)] += 1
 
 

@@ -51,7 +51,16 @@ def write_atomic(path, text) -> None:
     if why is not None:
         raise OutputError(f"Cannot write {why}.")
     folder = os.path.dirname(os.path.abspath(path))
-    os.makedirs(folder, exist_ok=True)
+    if os.path.isdir(path):
+        raise DataError(f"Cannot write {path!r}: it is a folder; give the path of a file to write.")
+    blocking = next((p for p in _ancestors(folder) if os.path.exists(p) and not os.path.isdir(p)), None)
+    if blocking is not None:
+        raise DataError(f"Cannot write {path!r}: {blocking!r} is a file, where a folder is needed; choose "
+                        f"another place, or move that file.")
+    try:
+        os.makedirs(folder, exist_ok=True)
+    except PermissionError:
+        raise DataError(f"Cannot write {path!r}: no permission to create the folder {folder!r}.") from None
     fd, tmp = tempfile.mkstemp(dir=folder, prefix=".learnopt-", suffix=".tmp")
     try:
         # mkstemp creates the file readable by its owner only; an output gets the permissions any
@@ -75,6 +84,16 @@ def sha256_of(path, chunk: int = 2 ** 20) -> str:
         for block in iter(lambda: fh.read(chunk), b""):
             value.update(block)
     return value.hexdigest()
+
+
+def _ancestors(folder: str):
+    """``folder`` and every folder above it."""
+    while True:
+        yield folder
+        parent = os.path.dirname(folder)
+        if parent == folder:
+            return
+        folder = parent
 
 
 MODEL_FORMAT = "learnopt-fit"

@@ -97,6 +97,10 @@ def _levels(col: pd.Series, name: str) -> list[str]:
         raise DataError(f"Column {name!r} has {int(col.isna().sum())} missing value(s); fill them "
                         f"(e.g. with a level 'unknown') or drop those rows.")
     types = {type(v) for v in col.tolist()}
+    if types and all(issubclass(t, (int, float, np.number)) and not issubclass(t, (bool, np.bool_)) for t in types):
+        raise DataError(f"Column {name!r} holds numbers stored as objects (dtype {col.dtype}), which would make "
+                        f"one category per distinct value; convert it with frame[{name!r}].astype(float), or "
+                        f"to text with .astype(str) if it names categories.")
     if len(types) > 1 and str in types:
         raise DataError(f"Column {name!r} mixes text and numbers ({', '.join(sorted(t.__name__ for t in types))}); "
                         f"make it all text (a category) or all numbers.")

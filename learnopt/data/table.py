@@ -10,9 +10,12 @@ column and the fix.
 """
 from __future__ import annotations
 
+import csv
+import gzip
 import os
 import re
 import unicodedata
+import zlib
 from dataclasses import dataclass, field
 from typing import Any, ClassVar, Sequence
 
@@ -58,17 +61,41 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     if not os.path.exists(path):
         hint = "" if os.path.isabs(path) else f" (a relative path is read from the working folder {os.getcwd()!r})"
         raise DataError(f"Data file {path!r} does not exist; check the path{hint}.")
+    if os.path.isdir(path):
+        raise DataError(f"Data file {path!r} is a folder; give one CSV or Parquet file in it, or a file "
+                        f"pattern such as {os.path.join(path, '*.csv')!r} for sharded data.")
     lower = path.lower()
     try:
         if lower.endswith((".parquet", ".pq")):
             return pd.read_parquet(path)
         if lower.endswith((".csv", ".txt", ".csv.gz")):
-            return pd.read_csv(path)
+            frame = pd.read_csv(path)
     except ImportError as exc:
         raise DataError(f"Reading {path!r} needs an optional package: {exc}.") from None
-    except (ValueError, pd.errors.ParserError, UnicodeDecodeError, OSError) as exc:
-        raise DataError(f"Data file {path!r} could not be read: {exc}.") from None
+    except UnicodeDecodeError:
+        raise DataError(f"Data file {path!r} is not UTF-8 text; save it as UTF-8.") from None
+    except (ValueError, pd.errors.ParserError, OSError, EOFError, zlib.error) as exc:
+        what = "a damaged or cut-short compressed file" if lower.endswith(".gz") else "unreadable"
+        raise DataError(f"Data file {path!r} could not be read ({what}: {str(exc).splitlines()[0][:200]}); "
+                        f"check the file, or write it again.") from None
+    else:
+        if lower.endswith((".csv", ".txt", ".csv.gz")):
+            header_once(path, frame)
+            return frame
     raise DataError(f"Data file {path!r}: unknown file type; use .csv or .parquet.")
+
+
+def header_once(path: str, frame: pd.DataFrame) -> None:
+    """Refuse a CSV whose header names a column twice (the reader would rename the second
+    ``a`` to ``a.1`` without a word)."""
+    if not any(re.fullmatch(r".+\.\d+", str(c)) for c in frame.columns):
+        return
+    with (gzip.open if path.lower().endswith(".gz") else open)(path, "rt", encoding="utf-8", newline="") as fh:
+        header = next(csv.reader(fh), [])
+    dup = sorted({h for h in header if header.count(h) > 1})
+    if dup:
+        raise DataError(f"Data file {path!r} names the column(s) {', '.join(map(repr, dup))} more than once in "
+                        f"its header; rename them so that each column has its own name.")
 
 
 def _close(name: str, options: Sequence[str]) -> str:
@@ -125,6 +152,11 @@ def labels_of(values: list, positive, name: str) -> tuple:
     if pd.Series(values, dtype=object).isna().any():
         raise DataError(f"The target {name} has missing label(s); drop those rows.")
     labels = sorted(set(values), key=lambda v: (str(type(v)), v))
+    alike = sorted({str(v) for v in labels if sum(str(u) == str(v) for u in labels) > 1})
+    if alike:
+        raise DataError(f"The target {name} holds labels that print alike but differ in type ({', '.join(alike)}: "
+                        f"{', '.join(sorted({type(v).__name__ for v in labels}))}); make them one type, e.g. "
+                        f"all text with .astype(str).")
     if len(labels) != 2:
         shown = labels[:6]
         raise DataError(f"The target {name} has {len(labels)} label(s) {shown}{'...' if len(labels) > 6 else ''}; "
@@ -158,6 +190,10 @@ def _from_frame(frame, target, kind, features, weights, intercept, positive) -> 
         raise DataError("The data has no rows.")
     unique_columns(frame.columns)
     frame = frame.reset_index(drop=True)
+    if not isinstance(target, str) and np.ndim(target) == 0 and target in frame.columns:
+        raise DataError(f"target={target!r} names a column by a number; learnopt names columns "
+                        f"with text: rename the columns with frame.columns = frame.columns.map(str) and give "
+                        f"target={str(target)!r}.")
     if isinstance(target, str):
         ycol = _column(frame, target, "target")
         tname = repr(target)
@@ -321,11 +357,16 @@ def new_design(ds: Dataset, data) -> np.ndarray | sp.csr_matrix:
         if not isinstance(data, pd.DataFrame):
             raise DataError("This task was built from a DataFrame; give new data as a DataFrame "
                             f"with the columns {', '.join(ds.encoding.columns)}.")
+        unique_columns(data.columns)
         return design(ds.encoding, data.reset_index(drop=True))
     if sp.issparse(data):
         X = sp.csr_matrix(data, dtype=float)
     else:
-        X = np.asarray(data, dtype=float)
+        X = np.asarray(data)
+        if X.dtype.kind not in "biuf":
+            raise DataError(f"The new data matrix has dtype {X.dtype}; it must hold numbers, like the "
+                            f"training matrix (convert text first, e.g. with .astype(float)).")
+        X = X.astype(float)
         if X.ndim == 1:
             X = X[None, :] if ds.d > 1 else X[:, None]
         finite(X, "The new data matrix")

@@ -20,7 +20,8 @@ import pandas as pd
 from learnopt.core.checks import refusal
 from learnopt.core.version import __version__
 from learnopt.centres.verdict import PlacementVerdict
-from learnopt.core.errors import LearnoptError, MissingDependencyError, OldSpellingWarning, ParameterError
+from learnopt.core.errors import (LearnoptError, MissingDependencyError, OldSpellingWarning, ParameterError,
+                                  TooLargeError)
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
@@ -35,6 +36,7 @@ try:
     import click
     from rich import box
     from rich.console import Console
+    from rich.markup import escape
     from rich.table import Table
 except ImportError as exc:  # pragma: no cover - exercised only without the cli extra
     raise MissingDependencyError("The command line needs click and rich: pip install 'learnopt[cli]'.") from exc
@@ -57,21 +59,29 @@ def _fail(exc: LearnoptError, as_json: bool) -> None:
     sys.exit(exc.exit_code)
 
 
+def _out_of_memory() -> TooLargeError:
+    return TooLargeError("learnopt ran out of memory on this input. Give a file pattern (data.path = "
+                         "\"data/part-*.csv\") to fit it in parts on a cluster, use fewer rows or columns, "
+                         "or choose a route that keeps less in memory (solve.route).")
+
+
 def _cell(v) -> str:
     if isinstance(v, float):
         return "0" if v == 0 else f"{v:.6g}"          # no "-0"
-    return str(v)
+    return escape(str(v))
 
 
 def _frame_table(frame, title: str) -> Table:
-    """A table in our own plain style: a rule under the header, text left, numbers right."""
-    table = Table(title=title, title_justify="left", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
-    table.add_column(str(frame.index.name or ""), justify="left")
+    """A table in our own plain style (a rule under the header, text left, numbers right); every
+    name and value is shown literally (user text is never markup)."""
+    table = Table(title=escape(str(title)), title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
+                  pad_edge=False)
+    table.add_column(escape(str(frame.index.name or "")), justify="left")
     for c in frame.columns:
         numeric = pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])
-        table.add_column(str(c), justify="right" if numeric else "left")
+        table.add_column(escape(str(c)), justify="right" if numeric else "left")
     for idx, row in frame.iterrows():
-        table.add_row(str(idx), *[_cell(v) for v in row])
+        table.add_row(escape(str(idx)), *[_cell(v) for v in row])
     return table
 
 
@@ -142,7 +152,7 @@ def _show_centres(job, as_json: bool) -> None:
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.to_frame("value"), "held-out points"))
     _show_written(con, job)
-    con.print(PLACEMENT_CAUTION)
+    con.print(PLACEMENT_CAUTION, markup=False)
 
 
 def _show(job, as_json: bool) -> None:
@@ -167,7 +177,7 @@ def _show(job, as_json: bool) -> None:
                       index=pd.Index(["status", "objective", "certified gap", "worst violation (absolute)", "route",
                                       "solver", "timings"], name="evidence"))
     con.print(_frame_table(ev, job.recipe.title or "learnopt fit"))
-    con.print(fit.message)
+    con.print(fit.message, markup=False)
     con.print(_frame_table(fit.coefficients(), "coefficients"))
     if len(fit.prices):
         standing = fit.rule_standing()
@@ -196,7 +206,7 @@ def _show(job, as_json: bool) -> None:
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
     _show_written(con, job)
-    con.print(CAUTION)
+    con.print(CAUTION, markup=False)
 
 
 def _read(reader, *args, **options):
@@ -232,6 +242,8 @@ def _run(recipe_path, as_json, report, anywhere, **overrides):
         job = _read(jobs.run, recipe, report=report, anywhere=anywhere, **overrides)
     except LearnoptError as exc:
         _fail(exc, as_json)
+    except MemoryError:
+        _fail(_out_of_memory(), as_json)
     _show(job, as_json)
     sys.exit(0 if job.ok else 1)
 
@@ -268,6 +280,8 @@ def check(recipe, as_json):
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)
+    except MemoryError:
+        _fail(_out_of_memory(), as_json)
     if split:
         verdict.data.insert(0, split)
     placing = isinstance(verdict, PlacementVerdict)

@@ -63,6 +63,10 @@ def _split(recipe: Recipe, frame):
         return frame, read_from(recipe, hold.path, "do.holdout.path")
     rng = np.random.default_rng(hold.seed)
     test = rng.random(len(frame)) < hold.fraction
+    if not test.any() or test.all():
+        left = "no rows to hold out" if not test.any() else "no rows to train on"
+        raise DataError(f"do.holdout.fraction = {hold.fraction:g} leaves {left} of the {len(frame)} rows "
+                        f"(seed {hold.seed}); choose a fraction such as 0.2, or give do.holdout.path.")
     return frame.loc[~test], frame.loc[test]
 
 

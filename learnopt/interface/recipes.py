@@ -243,7 +243,15 @@ def read_recipe(path) -> Recipe:
     except tomllib.TOMLDecodeError as exc:
         raise DataError(f"Recipe {path!r} is not valid TOML: {exc}.") from None
     except UnicodeDecodeError:
-        raise DataError(f"Recipe {path!r} is not UTF-8 text.") from None
+        raise DataError(f"Recipe {path!r} is not UTF-8 text; save it as UTF-8.") from None
+    except IsADirectoryError:
+        raise DataError(f"Recipe {path!r} is a folder; give the path of a .toml recipe file.") from None
+    except ValueError as exc:         # an integer of thousands of digits
+        raise DataError(f"Recipe {path!r} holds a number too long to read ({str(exc).split(';')[0]}); "
+                        f"write it with fewer digits.") from None
+    except RecursionError:
+        raise DataError(f"Recipe {path!r} nests tables or lists too deeply to be a recipe; a recipe "
+                        f"needs a few levels at most.") from None
     return recipe_from(raw, folder=os.path.dirname(os.path.abspath(path)), label=f"Recipe {path!r}",
                        file=os.path.abspath(path))
 

@@ -55,10 +55,13 @@ def conditioned(task):
     if task.intercept:
         T[d, :d] = -m / s
         T[d, d] = 1.0
+    mapped = [_map_penalty(pen, s, task.features) for pen in task.penalties]
+    if any(q is None for q in mapped):      # a weight beyond floating point in the new basis: keep the old one
+        return task, None
     X2 = (ds.X - m) / s
     data = Dataset(X2, ds.y, ds.weights, ds.names, ds.frame, ds.encoding, ds.labels, list(ds.notes))
     reqs = tuple(_map_rule(r, T) for r in task.requirements)
-    pens = tuple(q for pen in task.penalties for q in _map_penalty(pen, s, task.features))
+    pens = tuple(q for part in mapped for q in part)
     return replace(task, dataset=data, penalties=pens, requirements=reqs), T
 
 
@@ -69,8 +72,14 @@ def _map_rule(r: Requirement, T: np.ndarray) -> Requirement:
 
 
 def _map_penalty(pen: Separable, s: np.ndarray, names):
-    """The same penalty on w' = s * w: l1 weights c/s, l2 weights c/s^2 (elastic net: both)."""
+    """The same penalty on w' = s * w: l1 weights c/s, l2 weights c/s^2 (elastic net: both);
+    None when a weight would leave floating point's range (the user never wrote these weights,
+    so no error may name them)."""
     a1, c2 = pen.separable(names)           # at the penalty's strength: a1 |w| + c2 w^2 per coefficient
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        if not (np.all(np.isfinite(a1 / s)) and np.all(np.isfinite(c2 / s ** 2))
+                and np.all((a1 / s > 0) == (a1 > 0)) and np.all((c2 / s ** 2 > 0) == (c2 > 0))):
+            return None
     out = []
     if np.any(a1 > 0):
         out.append(l1(1.0, factors=dict(zip(names, (a1 / s).tolist()))))

@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError, NotConvexError, warn_old_spelling
-from learnopt.rules.reading import Quoted, read, shown, written
+from learnopt.rules.reading import Quoted, read, shown, too_small, written
 from learnopt.rules.requirements import Affine, Context, NormTerm, NoRows, Requirement
 from learnopt.core.checks import nearest
 
@@ -55,6 +55,8 @@ class _Compiler:
         self.text, self.ctx, self.quoted = text, ctx, quoted
         self.index = {n: i for i, n in enumerate(ctx.names)}
         self.columns = set(ctx.frame.columns) if ctx.frame is not None else set()
+        self.references: list[str] = []      # reference levels the rule names (coefficient 0)
+        self.predicts = False                 # the rule names 'prediction'
 
     # ---- errors
     def fail(self, why: str) -> DataError:
@@ -179,10 +181,23 @@ class _Compiler:
                                f=aff.A[0] / lhs.k, bound=float(-aff.c[0] / lhs.k))
         diff = _sub(lhs, rhs, self)
         if diff.constant:
+            if self.references and diff.rows is None:
+                return self.about_references(diff, sense, text)
             raise self.fail("it names no coefficient and no prediction, so it cannot constrain the fit.")
+        # rules over predictions carry round-off from the data (1e-16 on the intercept): not checked
+        tiny = None if diff.rows is not None or self.predicts else too_small(diff.A[0], float(diff.c[0]), self.ctx.names)
+        if tiny:
+            raise self.fail(tiny)
         return Requirement(text, sense, diff.A, -diff.c)
 
-    # ---- conditions (where ...): boolean masks over data rows
+    def about_references(self, diff, sense: str, text: str) -> Requirement:
+        value = float(diff.c[0])
+        if (value > 0) if sense == "<=" else (value != 0):
+            raise self.fail(f"{', '.join(map(_written, self.references))}: a reference level has no coefficient "
+                            f"of its own (0 by construction), so the rule reads {value:g} {sense} 0, which can "
+                            f"never hold. Name a level that has a coefficient, or drop the rule.")
+        return Requirement(text, sense, diff.A, -diff.c)
+
     def condition(self, node: ast.AST) -> np.ndarray:
         if self.ctx.frame is None:
             raise self.fail(self.ctx.no_rows or "'where' conditions need data columns; give the data as a DataFrame.")
@@ -222,8 +237,22 @@ class _Compiler:
         raise self.fail(f"{shown(node, self.quoted)!r} is not a condition; write e.g. "
                         f"segment == 'retail' or distance_km > 10.")
 
+    def number(self, value, limit: float = 1e15) -> float:
+        """A number written in the rule as a float; refused beyond ``limit`` in size (or too long)."""
+        try:
+            v = float(value)
+        except OverflowError:
+            v = float("inf")
+        if not np.isfinite(v) or abs(v) > limit:
+            text = (f"{value!r}" if np.isfinite(v) else "written, beyond floating point's range,") \
+                if isinstance(value, float) or np.isfinite(v) else f"with {len(str(abs(value)))} digits"
+            raise self.fail(f"the number {text} is too large to use (the limit is {limit:g} in size); rescale the data.")
+        return v
+
     def _cond_value(self, node):
-        if isinstance(node, ast.Constant) and isinstance(node.value, (int, float, str)) and not isinstance(node.value, bool):
+        if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) and not isinstance(node.value, bool):
+            return self.number(node.value, 1e300)
+        if isinstance(node, ast.Constant) and isinstance(node.value, str):
             return node.value
         if isinstance(node, (ast.Tuple, ast.List)):
             return [self._cond_value(e) for e in node.elts]
@@ -245,9 +274,7 @@ class _Compiler:
         if isinstance(node, ast.Constant):
             if isinstance(node.value, bool) or not isinstance(node.value, (int, float)):
                 raise self.fail(f"{node.value!r} is not a number; text appears only in 'where' conditions.")
-            if not np.isfinite(float(node.value)) or abs(float(node.value)) > 1e15:
-                raise self.fail(f"the number {node.value!r} is too large to use; rescale the data.")
-            return _scalar(self.ctx, c=float(node.value))
+            return _scalar(self.ctx, c=self.number(node.value))
         if isinstance(node, (ast.Name, ast.Attribute)) and self._name(node) is not None:
             return self.name_value(self._name(node), mask)
         if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
@@ -279,8 +306,10 @@ class _Compiler:
             A[0, self.index[name]] = 1.0
             return Affine(A, np.zeros(1))
         if name in self.ctx.reference:
+            self.references.append(name)
             return _scalar(self.ctx)  # a reference level's coefficient is 0 by construction
         if name == "prediction":
+            self.predicts = True
             if self.ctx.aggregates is not None:
                 self.ctx.aggregates.saw_prediction(self)
             if self.ctx.design is None:

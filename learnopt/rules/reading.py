@@ -32,10 +32,13 @@ import re
 import tokenize
 import unicodedata
 
+import numpy as np
+
 from learnopt.core.errors import DataError, warn_old_spelling
 
 MAX_RULE_LENGTH = 5000
 MAX_DEPTH = 60
+TINY = 1e-12          # the smallest coefficient a rule may put on a name (floating point cannot honour less)
 _KEY = re.compile(r"__quoted_\d+__")
 _CLOSE = {"{": "}", "`": "`"}
 _TRIPLE = ("'" * 3, '"' * 3)
@@ -186,6 +189,19 @@ def nesting_depth(node: ast.AST) -> int:
             return d
         stack.extend((c, d + 1) for c in ast.iter_child_nodes(n))
     return best
+
+
+def too_small(row, bound: float, names) -> str | None:
+    """Why a rule's coefficients cannot be honoured in floating point (``1e-300 * a >= 1``: a
+    would have to reach 1e300; ``a + 1e-20 * b``: b is lost beside a), or None."""
+    A = np.abs(np.asarray(row, dtype=float))
+    tiny = [j for j in np.flatnonzero(A) if A[j] < TINY or A[j] < 1e-15 * A.max() or abs(bound) > 1e15 * A.max()]
+    if not tiny:
+        return None
+    shown_ = ", ".join(f"{A[j]:g} on {written(str(names[j]))}" for j in tiny)
+    return (f"the coefficient {shown_} is below what floating point can honour beside the rule's other numbers "
+            f"(relative precision 1e-15, bounds up to 1e15); rescale the rule or the column so that its "
+            f"numbers are closer in size.")
 
 
 def read(text: str) -> tuple[ast.Expression, Quoted]:

@@ -9,12 +9,26 @@ from __future__ import annotations
 import atexit
 from dataclasses import dataclass
 import os
+import socket
 
 from learnopt.core.checks import refusal
 from learnopt.core.errors import MissingDependencyError, ParameterError
 from learnopt.data.sharded import need_dask
 
 _LOCAL: dict = {}
+CONNECT_SECONDS = 5.0      # how long a scheduler address may take to answer
+
+
+def reachable(address: str, seconds: float) -> None:
+    """Fail fast (OSError) when nothing listens at a ``tcp://host:port`` scheduler address;
+    other protocols are left to the client."""
+    plain = address.split("://", 1)[1] if "://" in address else address
+    if address.startswith(("tcp://", "tls://")) or "://" not in address:
+        host, _, port = plain.rpartition(":")
+        if not port.isdigit():
+            raise ValueError("no port in the address; write it as tcp://host:port, e.g. tcp://127.0.0.1:8786")
+        with socket.create_connection((host.strip("[]") or "127.0.0.1", int(port)), timeout=seconds):
+            pass
 
 
 def connect(client=None):
@@ -31,10 +45,13 @@ def connect(client=None):
         key = ("address", client)
         if key not in _LOCAL:
             try:
-                _LOCAL[key] = Client(client, set_as_default=False, timeout=10)
-            except (OSError, TimeoutError) as exc:
-                raise ParameterError(f"No dask scheduler answered at {client!r} ({exc}); check the "
-                                     f"address, or leave client=None for a local cluster.") from None
+                reachable(client, CONNECT_SECONDS)
+                _LOCAL[key] = Client(client, set_as_default=False, timeout=CONNECT_SECONDS)
+            except (OSError, TimeoutError, ValueError) as exc:
+                raise ParameterError(f"No dask scheduler answered at {client!r} within {CONNECT_SECONDS:g} s "
+                                     f"({str(exc).splitlines()[0][:160] or type(exc).__name__}); check the address "
+                                     f"and that the scheduler runs, or leave client=None for a local "
+                                     f"cluster.") from None
         return _LOCAL[key]
     if client is not None:
         raise refusal("solve", "client", client, "a distributed.Client, a scheduler address (text) or None")

@@ -176,6 +176,8 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
                    gap_tol: float = 1e-7, feas_tol: float = 1e-6,
                    progress: bool | None = None) -> CrossValidation:
     params.check("cross_validate", folds=(folds, params.Interval(2, None)))
+    if int(folds) != folds:
+        raise params.refusal("cross_validate", "folds", folds, "a whole number, at least 2")
     task, index = _pick(task, penalty)
     name, score, higher = metric_function(task, metric)
     ds = task.dataset
@@ -185,6 +187,9 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
         groups = ds.frame[groups].to_numpy()
     if groups is not None and len(groups) != ds.n:
         raise DataError(f"groups has {len(groups)} entries for {ds.n} rows.")
+    if folds + ordered > ds.n:
+        raise params.refusal("cross_validate", "folds", folds, f"at most {ds.n - ordered}: the task has {ds.n} "
+                             f"rows, and every fold needs rows to hold out{' and rows to train on' if ordered else ''}")
     splits = fold_rows(ds.n, int(folds), seed=seed, groups=groups, ordered=ordered)
     if grid is None:
         grid = strengths(task, index, int(n), ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,

@@ -149,8 +149,8 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
     ``task`` is the user's task (kept as ``fit.task``); the routes and the certificate see its
     plain problem value. ``cluster`` (sharded data only) says where and how to run.
     """
-    params.check("solve", tol=(settings.tol, params.POSITIVE), gap_tol=(settings.gap_tol, params.POSITIVE),
-                 feas_tol=(settings.feas_tol, params.POSITIVE))
+    params.check("solve", tol=(settings.tol, params.OPEN_UNIT), gap_tol=(settings.gap_tol, params.OPEN_UNIT),
+                 feas_tol=(settings.feas_tol, params.OPEN_UNIT))
     if settings.time_limit is not None:
         params.check("solve", time_limit=(settings.time_limit, params.POSITIVE))
     t_start = time.perf_counter()
@@ -216,6 +216,12 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
                 warm = k > 0 or (runner.start is not None and not runner.cold)
                 runner.cold = False
                 out = runner.run(spec, opts, settings.verbose, warm=warm)
+            except TypeError as exc:       # an option of the wrong type; without options it is a fault of ours
+                if not settings.solver_options:
+                    raise
+                raise params.refusal("solve", "solver_options", settings.solver_options,
+                                     f"options {spec.name} accepts, each of the type it expects "
+                                     f"({str(exc).splitlines()[0][:200]})") from None
             except SOLVER_FAULTS as exc:
                 attempts.append(Attempt(label, f"error: {str(exc).splitlines()[0][:200]}",
                                         seconds=time.perf_counter() - t0))
