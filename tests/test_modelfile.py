@@ -115,3 +115,28 @@ def test_non_finite_coefficients_are_refused(tmp_path, demo_fit, value):
     (tmp_path / "f.json").write_text(json.dumps(data).replace('"__X__"', "1e400" if value == 1e400 else f'"{value}"'))
     with pytest.raises(lo.DataError, match="stops is not a finite number"):
         lo.load_fit(tmp_path / "f.json")
+
+
+@pytest.mark.parametrize("edit,fragments", [
+    (lambda d: d["evidence"].pop("gap"), ["evidence.gap is missing"]),
+    (lambda d: d.__setitem__("colour", "red"), ["colour is not a field of a model file"]),
+    (lambda d: d["evidence"].__setitem__("objective", "low"), ["evidence.objective is 'low'; it has to be a number"]),
+    (lambda d: d["task"].__setitem__("intercept", "yes"), ["task.intercept is 'yes'; it has to be true or false"]),
+    (lambda d: d["coef"].pop("stops"), ["coef has to hold one number per feature; missing stops"]),
+    (lambda d: (d["evidence"].pop("route"), d["task"].__setitem__("rules", [1])),
+     ["2 problems", "evidence.route is missing", "task.rules has to be a list of rule texts"]),
+    (lambda d: d.__setitem__("schema_version", 1.5), ["schema_version is 1.5; it has to be a positive whole number"]),
+])
+def test_a_model_file_of_the_wrong_shape_is_refused_naming_each_field(tmp_path, edit, fragments):
+    # common practice (schema validation): every problem at once, each naming the field
+    df = make_data(120)
+    fit = lo.regression(df, target="minutes", features=["distance_km", "stops"]).solve()
+    fit.save(tmp_path / "f.json")
+    data = json.loads((tmp_path / "f.json").read_text())
+    edit(data)
+    (tmp_path / "f.json").write_text(json.dumps(data))
+    with pytest.raises(lo.DataError) as caught:
+        lo.load_fit(tmp_path / "f.json")
+    text = str(caught.value) + " ".join(caught.value.problems)
+    for f in fragments:
+        assert f in text

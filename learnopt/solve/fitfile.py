@@ -29,6 +29,7 @@ from learnopt.data.encoding import Encoding
 from learnopt.data.table import Dataset
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import TextRule
+from learnopt.solve.fileshape import shape_problems
 from learnopt.solve.solvers import REGISTRY
 from learnopt.solve.timings import Timings
 from learnopt.terms import losses as _losses
@@ -165,12 +166,18 @@ def read(path, *, task_type=None) -> dict:
     :class:`~learnopt.problem.problem.Problem`; the package face passes the user's Task)."""
     path = os.fspath(path)
     saved = read_model(path)
+    if saved["task"]["kind"] not in KINDS:
+        raise DataError(f"Model file {path!r} holds a {saved['task']['kind']!r} fit, not a regression or "
+                        f"classification; read it with lo.load_fit, which reads every kind.")
+    problems = shape_problems(saved)
+    if problems:
+        head = (f"Model file {path!r}: {problems[0]}" if len(problems) == 1 else
+                f"Model file {path!r} has {len(problems)} problems; it was damaged, edited by hand, or written by "
+                f"another program")
+        raise DataError(head, problems=problems)
     sealed = intact(saved)                 # judged on the file as written, before any translation
     version = saved["schema_version"]
     t = saved["task"]
-    if t["kind"] not in KINDS:
-        raise DataError(f"Model file {path!r} holds a {t['kind']!r} fit, not a regression or classification; "
-                        f"read it with lo.load_fit, which reads every kind.")
     enc = t.get("encoding")
     encoding = None if enc is None else Encoding(
         tuple(enc["columns"]), {k: tuple(v) for k, v in enc["levels"].items()}, dict(enc["reference"]),
