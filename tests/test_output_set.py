@@ -389,3 +389,16 @@ def test_demo_into_a_file_or_over_a_pipe_is_refused(tmp_path):
     os.mkfifo(tmp_path / "d" / "deliveries.toml")
     _refused(_cli("demo", "--folder", tmp_path / "d"), "a named pipe")
     assert not (tmp_path / "d" / "data").exists()
+
+
+def test_check_looks_at_the_outputs_too(tmp_path):
+    # the same output checks as run, before anything is read or solved
+    import shutil
+    from pathlib import Path
+    recipes = Path(__file__).resolve().parents[1] / "recipes"
+    shutil.copytree(recipes, tmp_path / "r", ignore=shutil.ignore_patterns("out"))
+    path = tmp_path / "r" / "blend.toml"
+    path.write_text(path.read_text().replace('coefficients = "out/blend-weights.csv"', 'coefficients = "../x.csv"'))
+    out = CliRunner().invoke(main, ["check", str(path)])
+    assert out.exit_code == 2 and "outputs.coefficients" in out.output and "--write-anywhere" in out.output
+    assert CliRunner().invoke(main, ["check", str(path), "--write-anywhere"]).exit_code == 0

@@ -25,7 +25,7 @@ from learnopt.core.errors import (LearnoptError, MissingDependencyError, OldSpel
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
-from learnopt.interface.output_set import ANYWHERE, examine
+from learnopt.interface.output_set import ANYWHERE, examine, plan
 from learnopt.interface.recipes import read_recipe
 from learnopt.solve.fitfile import to_dict
 from learnopt.solve.standing import gauge
@@ -271,12 +271,15 @@ def run(recipe, as_json, report, anywhere):
     _run(recipe, as_json, report, anywhere)
 
 
-@main.command(help="Check a recipe (validation, data, convexity) without solving.")
+@main.command(help="Check a recipe (validation, outputs, data, convexity) without solving.")
 @click.argument("recipe", type=click.Path(dir_okay=False))
 @_json
-def check(recipe, as_json):
+@_anywhere
+def check(recipe, as_json, anywhere):
     try:
-        task, split = _read(jobs.training_task, _read(read_recipe, recipe))
+        parsed = _read(read_recipe, recipe)
+        plan(parsed, anywhere=anywhere)          # where a run would write: checked here too
+        task, split = _read(jobs.training_task, parsed)
         verdict = task.check()
     except LearnoptError as exc:
         _fail(exc, as_json)
