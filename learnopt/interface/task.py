@@ -29,7 +29,8 @@ from learnopt.selection.crossval import cross_validate
 from learnopt.selection.paths import path
 from learnopt.scale.cluster import ClusterSettings
 from learnopt.solve.fit import Fit
-from learnopt.solve.loop import compare, solve_task
+from learnopt.solve.loop import compare
+from learnopt.solve.screening import solve_screened
 from learnopt.solve.routes.base import Settings
 from learnopt.terms import losses as _losses
 from learnopt.terms.convexity import Verdict, require_convex
@@ -127,7 +128,7 @@ class Task(Problem):
         settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, time_limit=time_limit, polish=polish,
                             fallback=fallback, solver_options=dict(solver_options or {}), verbose=verbose)
         cluster = None if client is None and progress is None else ClusterSettings(client=client, progress=progress)
-        return solve_task(self, settings, solver=solver, route=route, cluster=cluster, progress=progress)
+        return solve_screened(self, settings, solver=solver, route=route, cluster=cluster, progress=progress)
 
     def path(self, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *, ratio: float | None = None,
              route: str | None = None, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
