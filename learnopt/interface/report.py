@@ -201,7 +201,11 @@ def html(job) -> str:
     if job.evaluation is not None:
         parts.append("<h2>Held-out evaluation</h2>" + table(job.evaluation.metrics.to_frame("value")))
         if job.evaluation.confusion is not None:
-            parts.append(table(job.evaluation.confusion))
+            counts = job.evaluation.confusion
+            shown = pd.DataFrame(counts.to_numpy(), index=pd.Index([f"actual {v}" for v in counts.index],
+                                                                   name="held-out rows"),
+                                 columns=[f"predicted {v}" for v in counts.columns])
+            parts.append("<h3>Held-out rows by actual and predicted label</h3>" + table(shown))
     if job.path is not None:
         chosen = path_strength(job)
         parts.append(figure("Path", png(lambda ax: draw_path(ax, job.path, chosen), alt="coefficient path"),
