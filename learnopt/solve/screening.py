@@ -18,7 +18,8 @@ from dataclasses import replace
 import numpy as np
 
 from learnopt.solve.certificate import certify_point
-from learnopt.solve.loop import _prices, solve_task
+from learnopt.solve.globbing import solve_fast
+from learnopt.solve.loop import _prices
 
 SCREEN_ROWS = 2000     # row rules taller than this are screened
 ROUNDS = 8             # rounds of adding broken rows before solving the whole task instead
@@ -30,14 +31,14 @@ def solve_screened(task, settings, *, solver=None, route=None, cluster=None, pro
     whole = dict(solver=solver, route=route, cluster=cluster, progress=progress)
     tall = [k for k, r in enumerate(task.requirements) if r.sense == "<=" and r.rows > SCREEN_ROWS]
     if task.sharded or not tall:
-        return solve_task(task, settings, **whole)
+        return solve_fast(task, settings, **whole)
     t0 = time.perf_counter()
     keep = {k: np.zeros(0, dtype=int) for k in tall}
     for rounds in range(1, ROUNDS + 1):
         parts = [(k, replace(r, A=r.A[keep[k]], rhs=r.rhs[keep[k]]) if k in keep else r)
                  for k, r in enumerate(task.requirements)]
         parts = [(k, r) for k, r in parts if r.rows > 0]
-        fit = solve_task(replace(task, requirements=tuple(r for _, r in parts)), settings, **whole)
+        fit = solve_fast(replace(task, requirements=tuple(r for _, r in parts)), settings, **whole)
         if not fit.status.has_point or fit.extras.get("multipliers") is None:
             break
         theta = fit.theta
@@ -50,10 +51,10 @@ def solve_screened(task, settings, *, solver=None, route=None, cluster=None, pro
                 keep[k], added = np.union1d(keep[k], broken), True
         if not added:
             return _whole_fit(task, fit, parts, keep, settings, rounds, time.perf_counter() - t0) \
-                or solve_task(task, settings, **whole)
+                or solve_fast(task, settings, **whole)
         if any(keep[k].size > SHARE * task.requirements[k].rows for k in tall):
             break
-    return solve_task(task, settings, **whole)
+    return solve_fast(task, settings, **whole)
 
 
 def _whole_fit(task, fit, parts, keep, settings, rounds, seconds):
