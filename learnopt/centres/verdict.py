@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from learnopt.core.errors import LearnoptError
+from learnopt.terms.convexity import verdict_text
 
 SPREAD = 100.0       # coordinates whose spreads differ by more than this factor get a note
 
@@ -33,11 +34,7 @@ class PlacementVerdict:
 
     def __str__(self) -> str:
         head = "ready" if self.ready else "NOT ready"
-        lines = [f"verdict: {head} (placing centres: {self.problem_class})"]
-        lines += [f"  {p}: {fact}" for p, fact in self.pieces]
-        lines += [f"  reason: {r}" for r in self.reasons]
-        lines += [f"  data: {d}" for d in self.data] or ["  data: no problems found"]
-        return "\n".join(lines)
+        return verdict_text(f"{head} (placing centres: {self.problem_class})", self.pieces, self.reasons, self.data)
 
     __repr__ = __str__
 

@@ -21,8 +21,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from learnopt.data.table import Dataset
-from learnopt.solve.certificate import certify_point
-from learnopt.solve.loop import _prices, solve_task
+from learnopt.solve.loop import solve_task
+from learnopt.solve.reduced import whole_task_fit
 
 GLOB_ROWS = 10_000      # residual losses on more rows than this are gathered
 ROUNDS = 6
@@ -118,20 +118,8 @@ def _gathered(ds, keep, low, high, z, big: float) -> Dataset:
 
 
 def _whole_fit(task, fit, settings, kept, rounds, seconds):
-    """The gathered task's answer as the whole task's fit, when the certificate on every row
-    confirms it (None otherwise)."""
-    problem = task.as_problem()
-    theta, mults = fit.theta, fit.extras["multipliers"]
-    cert = certify_point(problem, theta, None, mults, enough=1e-3 * settings.gap_tol)
-    if not cert.passes(settings.gap_tol, settings.feas_tol):
-        return None
-    noise = settings.gap_tol * max(1.0, abs(cert.primal)) * 1e-2
-    prices, binding = _prices(problem, mults, theta, settings.feas_tol, noise)
-    message = (f"certified: relative gap {cert.rel_gap:.2g} <= {settings.gap_tol:g}, worst relative violation "
-               f"{cert.rel_violation:.2g} <= {settings.feas_tol:g}. Solved on the {kept} rows nearest the answer "
-               f"with the other {task.dataset.n - kept} gathered into two summary rows ({rounds} "
-               f"round{'s' * (rounds > 1)}); the certificate checks every row.")
-    return replace(fit, task=task, message=message, objective=cert.primal, gap=cert.gap, rel_gap=cert.rel_gap,
-                   violation=cert.violation, prices=prices, binding=binding, certificate=cert,
-                   timings=replace(fit.timings, total=seconds),
-                   extras={**fit.extras, "gathered": {"kept": kept, "rows": task.dataset.n, "rounds": rounds}})
+    """The gathered task's answer as the whole task's fit (None unless certified on every row)."""
+    how = (f"Solved on the {kept} rows nearest the answer with the other {task.dataset.n - kept} gathered into "
+           f"two summary rows ({rounds} round{'s' * (rounds > 1)})")
+    return whole_task_fit(task, fit, fit.extras["multipliers"], settings, how,
+                          {"gathered": {"kept": kept, "rows": task.dataset.n, "rounds": rounds}}, seconds)

@@ -17,9 +17,8 @@ from dataclasses import replace
 
 import numpy as np
 
-from learnopt.solve.certificate import certify_point
 from learnopt.solve.globbing import solve_fast
-from learnopt.solve.loop import _prices
+from learnopt.solve.reduced import whole_task_fit
 
 SCREEN_ROWS = 2000     # row rules taller than this are screened
 ROUNDS = 8             # rounds of adding broken rows before solving the whole task instead
@@ -60,7 +59,7 @@ def solve_screened(task, settings, *, solver=None, route=None, cluster=None, pro
 def _whole_fit(task, fit, parts, keep, settings, rounds, seconds):
     """The reduced task's answer as the whole task's fit, when the certificate on every row
     confirms it (None otherwise)."""
-    theta, reduced = fit.theta, fit.extras["multipliers"]
+    reduced = fit.extras["multipliers"]
     at = {k: m for (k, _), m in zip(parts, reduced)}
     mults = []
     for k, r in enumerate(task.requirements):
@@ -71,20 +70,9 @@ def _whole_fit(task, fit, parts, keep, settings, rounds, seconds):
             mults.append(m)
         else:
             mults.append(at[k])
-    problem = task.as_problem()
-    cert = certify_point(problem, theta, None, mults, enough=1e-3 * settings.gap_tol)
-    if not cert.passes(settings.gap_tol, settings.feas_tol):
-        return None
-    noise = settings.gap_tol * max(1.0, abs(cert.primal)) * 1e-2
-    prices, binding = _prices(problem, mults, theta, settings.feas_tol, noise)
     kept = sum(int(keep[k].size) for k in keep)
     total = sum(task.requirements[k].rows for k in keep)
-    message = (f"certified: relative gap {cert.rel_gap:.2g} <= {settings.gap_tol:g}, worst relative violation "
-               f"{cert.rel_violation:.2g} <= {settings.feas_tol:g}. The rules on predictions were solved on the "
-               f"rows that matter ({kept} of {total} rows, {rounds} round{'s' * (rounds > 1)}); the certificate "
-               f"checks every row.")
-    return replace(fit, task=task, message=message, objective=cert.primal, gap=cert.gap, rel_gap=cert.rel_gap,
-                   violation=cert.violation, prices=prices, binding=binding, certificate=cert,
-                   timings=replace(fit.timings, total=seconds),
-                   extras={**fit.extras, "multipliers": mults, "screened": {"kept": kept, "rows": total,
-                                                                            "rounds": rounds}})
+    how = (f"The rules on predictions were solved on the rows that matter ({kept} of {total} rows, {rounds} "
+           f"round{'s' * (rounds > 1)})")
+    return whole_task_fit(task, fit, mults, settings, how,
+                          {"screened": {"kept": kept, "rows": total, "rounds": rounds}}, seconds)

@@ -131,6 +131,15 @@ def require_convex(fn, size: int, what: str, variable: str) -> cp.Expression:
     raise NotConvexError(f"{what} is not provably convex. Offending part: {pieces}.{proof}")
 
 
+def verdict_text(head: str, pieces, reasons, data) -> str:
+    """A verdict as text: its head line, then each piece, reason and data finding."""
+    lines = [f"verdict: {head}"]
+    lines += [f"  {p}: {fact}" for p, fact in pieces]
+    lines += [f"  reason: {r}" for r in reasons]
+    lines += [f"  data: {d}" for d in data] or ["  data: no problems found"]
+    return "\n".join(lines)
+
+
 @dataclass
 class Verdict:
     """Result of ``task.check()``: convexity and data findings, without solving."""
@@ -146,10 +155,6 @@ class Verdict:
 
     def __str__(self) -> str:
         head = ("convex by construction" if self.convex else "NOT convex")
-        lines = [f"verdict: {head} (problem class: {self.problem_class})"]
-        lines += [f"  {p}: {fact}" for p, fact in self.pieces]
-        lines += [f"  reason: {r}" for r in self.reasons]
-        lines += [f"  data: {d}" for d in self.data] or ["  data: no problems found"]
-        return "\n".join(lines)
+        return verdict_text(f"{head} (problem class: {self.problem_class})", self.pieces, self.reasons, self.data)
 
     __repr__ = __str__
