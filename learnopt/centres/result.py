@@ -9,14 +9,14 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
-from importlib import metadata
 
 import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError
-from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, seal, write_atomic
+from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, json_ready, seal, write_atomic
 from learnopt.core.status import PLACEMENT_CAUTION
+from learnopt.core.version import package_versions
 from learnopt.data.points import assign
 from learnopt.rules.saving import to_plain
 
@@ -91,15 +91,15 @@ class CentresFit:
             "task": {"kind": "centres", "coordinates": list(task.names), "k": int(task.k),
                      "fixed": [list(c) for c in task.fixed],
                      "rules": [{"centre": p.centre, **to_plain(p.spec)} for p in task.rules]},
-            "centres": [[_plain(v) for v in row] for row in self.centres.to_numpy()],
-            "loads": {"weight": [_plain(v) for v in self.loads["weight"]],
+            "centres": [[json_ready(v) for v in row] for row in self.centres.to_numpy()],
+            "loads": {"weight": [json_ready(v) for v in self.loads["weight"]],
                       "points": [int(v) for v in self.loads["points"]]},
-            "evidence": {"status": self.status, "message": self.message, "objective": _plain(self.objective),
-                         "iterations": int(self.iterations), "violation": _plain(self.violation),
-                         "seconds": _plain(self.seconds),
-                         "restarts": [{k: _plain(v) for k, v in row.items()}
+            "evidence": {"status": self.status, "message": self.message, "objective": json_ready(self.objective),
+                         "iterations": int(self.iterations), "violation": json_ready(self.violation),
+                         "seconds": json_ready(self.seconds),
+                         "restarts": [{k: json_ready(v) for k, v in row.items()}
                                       for row in self.restarts.reset_index().to_dict("records")],
-                         "versions": _versions()},
+                         "versions": package_versions({p: p for p in ("learnopt", "numpy", "cvxpy")})},
         }
 
     # ---- display
@@ -111,23 +111,6 @@ class CentresFit:
     def __repr__(self) -> str:
         return (f"CentresFit(status={self.status!r}, objective={self.objective:.8g}, k={len(self.centres)}, "
                 f"restarts={len(self.restarts)}, violation={self.violation:.3g})")
-
-
-def _plain(value):
-    value = value.item() if isinstance(value, np.generic) else value
-    if isinstance(value, float) and not np.isfinite(value):
-        return repr(value)
-    return value
-
-
-def _versions() -> dict:
-    out = {}
-    for pkg in ("learnopt", "numpy", "cvxpy"):
-        try:
-            out[pkg] = metadata.version(pkg)
-        except metadata.PackageNotFoundError:
-            out[pkg] = None
-    return out
 
 
 def _points(task, points) -> np.ndarray:

@@ -7,6 +7,8 @@ import os
 import stat
 import tempfile
 
+import numpy as np
+
 from learnopt.core.errors import DataError, OutputError
 
 
@@ -94,6 +96,20 @@ def _ancestors(folder: str):
         if parent == folder:
             return
         folder = parent
+
+
+def json_ready(value):
+    """JSON-ready copy for model files: tuples -> lists, numpy scalars -> Python numbers,
+    non-finite floats -> their text ('nan', 'inf', '-inf')."""
+    if isinstance(value, (list, tuple)):
+        return [json_ready(v) for v in value]
+    if isinstance(value, dict):
+        return {str(k): json_ready(v) for k, v in value.items()}
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return repr(value)
+    return value
 
 
 MODEL_FORMAT = "learnopt-fit"

@@ -17,14 +17,14 @@ from __future__ import annotations
 import dataclasses
 import json
 import os
-from importlib import metadata
 
 import numpy as np
 import pandas as pd
 
 from learnopt.core.errors import DataError, LearnoptError
-from learnopt.core.files import MODEL_FORMAT, MODEL_SCHEMA, intact, read_model, seal, write_atomic
+from learnopt.core.files import MODEL_FORMAT, json_ready, MODEL_SCHEMA, intact, read_model, seal, write_atomic
 from learnopt.core.status import Status
+from learnopt.core.version import package_versions
 from learnopt.data.encoding import Encoding
 from learnopt.data.table import Dataset
 from learnopt.problem.problem import Problem
@@ -36,19 +36,6 @@ from learnopt.terms import losses as _losses
 from learnopt.terms.losses import KINDS
 from learnopt.terms import penalties as _penalties
 
-
-
-def _plain(value):
-    """JSON-ready copy: tuples -> lists, numpy scalars -> Python, non-finite floats -> strings."""
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not np.isfinite(value):
-        return repr(value)
-    return value
 
 
 def _tupled(value):
@@ -67,7 +54,7 @@ def _piece(obj) -> dict:
         raise LearnoptError(f"{obj.describe()} is a Python function and cannot be written to a model file; "
                             f"model files hold built-in losses and penalties only (no pickle).")
     return {"class": type(obj).__name__,
-            "fields": {f.name: _plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}}
+            "fields": {f.name: json_ready(getattr(obj, f.name)) for f in dataclasses.fields(obj)}}
 
 
 def _rebuild(entry: dict, module, base):
@@ -81,20 +68,11 @@ def _rebuild(entry: dict, module, base):
 
 
 def _versions(solver: str | None) -> dict:
-    out = {}
-    for pkg in ("learnopt", "cvxpy", "numpy", "scipy"):
-        try:
-            out[pkg] = metadata.version(pkg)
-        except metadata.PackageNotFoundError:
-            out[pkg] = None
-    if solver and solver != "numpy":
-        spec = REGISTRY.get(solver)
-        if spec is not None:
-            try:
-                out[solver] = metadata.version(spec.module)
-            except metadata.PackageNotFoundError:
-                out[solver] = None
-    return out
+    wanted = {pkg: pkg for pkg in ("learnopt", "cvxpy", "numpy", "scipy")}
+    spec = REGISTRY.get(solver) if solver and solver != "numpy" else None
+    if spec is not None:
+        wanted[solver] = spec.module
+    return package_versions(wanted)
 
 
 def to_dict(fit, *, run: str | None = None) -> dict:
@@ -108,22 +86,22 @@ def to_dict(fit, *, run: str | None = None) -> dict:
         "task": {
             "kind": task.kind, "loss": _piece(task.loss), "penalties": [_piece(p) for p in task.penalties],
             "rules": [r.text for r in task.rules], "intercept": task.intercept,
-            "target": _plain(task.target_name), "features": list(ds.names),
-            "labels": _plain(list(ds.labels)) if ds.labels is not None else None,
+            "target": json_ready(task.target_name), "features": list(ds.names),
+            "labels": json_ready(list(ds.labels)) if ds.labels is not None else None,
             "encoding": None if enc is None else {
-                "columns": list(enc.columns), "levels": _plain(enc.levels),
-                "reference": _plain(enc.reference), "names": list(enc.names)},
+                "columns": list(enc.columns), "levels": json_ready(enc.levels),
+                "reference": json_ready(enc.reference), "names": list(enc.names)},
         },
-        "coef": {name: _plain(float(v)) for name, v in fit.coef.items()},
-        "intercept": _plain(float(fit.intercept)),
+        "coef": {name: json_ready(float(v)) for name, v in fit.coef.items()},
+        "intercept": json_ready(float(fit.intercept)),
         "evidence": {
-            "status": fit.status, "message": fit.message, "objective": _plain(fit.objective),
-            "gap": _plain(fit.gap), "rel_gap": _plain(fit.rel_gap), "violation": _plain(fit.violation),
+            "status": fit.status, "message": fit.message, "objective": json_ready(fit.objective),
+            "gap": json_ready(fit.gap), "rel_gap": json_ready(fit.rel_gap), "violation": json_ready(fit.violation),
             "solver": fit.solver, "route": fit.route, "timings": fit.timings.as_dict(),
-            "prices": _plain(fit.prices.to_dict()), "binding": _plain(fit.binding.to_dict()),
-            "conflicts": _plain(fit.conflicts.to_dict()),
-            "attempts": [{"solver": a.solver, "outcome": a.outcome, "objective": _plain(float(a.objective)),
-                          "gap": _plain(float(a.gap)), "seconds": _plain(float(a.seconds))} for a in fit.attempts],
+            "prices": json_ready(fit.prices.to_dict()), "binding": json_ready(fit.binding.to_dict()),
+            "conflicts": json_ready(fit.conflicts.to_dict()),
+            "attempts": [{"solver": a.solver, "outcome": a.outcome, "objective": json_ready(float(a.objective)),
+                          "gap": json_ready(float(a.gap)), "seconds": json_ready(float(a.seconds))} for a in fit.attempts],
             "versions": _versions(fit.solver),
         },
     }
