@@ -22,7 +22,8 @@ from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.errors import DataError, ParameterError
 from learnopt.data.table import take_rows
-from learnopt.selection.paths import _pick, _Progress, _pyplot, path, strengths
+from learnopt.core.progress import ProgressBar
+from learnopt.selection.paths import _pick, _pyplot, path, strengths
 
 
 # ---------------------------------------------------------------- cross-validation
@@ -198,7 +199,7 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
     table = np.full((len(grid), len(splits)), np.nan)
     nonzero = np.zeros(len(grid))
     certified = np.zeros(len(grid), int)
-    bar = _Progress(len(splits), "cross-validation", progress)
+    bar = ProgressBar(len(splits), "cross-validation", progress)
     try:
         for k, (train, held) in enumerate(splits):
             sub = replace(task, dataset=take_rows(ds, train))

@@ -16,7 +16,6 @@ part with a metric (default: the task's own loss).
 """
 from __future__ import annotations
 
-import sys
 from dataclasses import dataclass, field
 from typing import Any, Sequence
 
@@ -25,6 +24,7 @@ import pandas as pd
 
 from learnopt.core.status import Status
 from learnopt.core import checks as params
+from learnopt.core.progress import ProgressBar
 from learnopt.core.errors import MissingDependencyError, ParameterError
 from learnopt.problem.algebra import loss_argument
 from learnopt.selection.zeroing import zeroing_strength
@@ -35,29 +35,6 @@ from learnopt.solve.routes.base import Settings
 from learnopt.terms.penalties import CustomPenalty, Penalty, Separable
 
 
-# ---------------------------------------------------------------- progress
-class _Progress:
-    """A rich progress bar on a terminal; silent otherwise or when asked."""
-
-    def __init__(self, total: int, label: str, enabled: bool | None):
-        self.bar = None
-        if enabled is False or (enabled is None and not sys.stderr.isatty()):
-            return
-        try:
-            from rich.progress import Progress
-        except ImportError:
-            return
-        self.bar = Progress(transient=True)
-        self.bar.start()
-        self.job = self.bar.add_task(label, total=total)
-
-    def step(self):
-        if self.bar is not None:
-            self.bar.advance(self.job)
-
-    def close(self):
-        if self.bar is not None:
-            self.bar.stop()
 
 
 # ---------------------------------------------------------------- the varied penalty
@@ -331,7 +308,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
         grid, stopped = _default_strengths(task, index, int(n), ratio, runner, settings, opts)
     grid = np.sort(grid)[::-1]
     fits, rows = [], []
-    bar = _Progress(len(grid), "path", progress)
+    bar = ProgressBar(len(grid), "path", progress)
     try:
         for lam in grid:
             runner.set_strength(lam)

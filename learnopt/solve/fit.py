@@ -23,7 +23,9 @@ from learnopt.data.gateway import is_sharded_source
 from learnopt.data.table import new_design
 from learnopt.scale.passes import partition_values
 from learnopt.solve import fitfile
+from learnopt.solve.bootstrap import Bootstrap, bootstrap
 from learnopt.solve.certificate import Certificate
+from learnopt.solve.conformal import Intervals, calibrate
 from learnopt.solve.evaluation import Evaluation, evaluate
 from learnopt.solve.timings import Attempt, Timings
 
@@ -143,6 +145,30 @@ class Fit:
         """Metrics on (usually held-out) data, with the target in the same column as in training."""
         self._need_point()
         return evaluate(self, data, target)
+
+    def intervals(self, data, target=None, *, level: float = 0.9, method: str | None = None) -> Intervals:
+        """Prediction intervals calibrated on held-out rows ``data`` (rows the fit did not see):
+        split conformal on absolute residuals (``method="residual"``, the default) or, for quantile
+        fits, conformalised quantile bands (``"quantile"``); an :class:`~learnopt.solve.conformal.Intervals`
+        whose ``predict(new_data)`` gives low/high and ``coverage(test_data)`` measures them.
+        A new row from the same population falls inside with probability at least ``level``."""
+        self._need_point()
+        return calibrate(self, data, target, level=level, method=method)
+
+    def bootstrap(self, n: int = 200, *, seed: int = 0, method: str | None = None, groups=None,
+                  level: float = 0.9, jobs: int | None = None, progress: bool | None = None, tol: float = 1e-9,
+                  gap_tol: float = 1e-7, feas_tol: float = 1e-6) -> Bootstrap:
+        """Refit ``n`` times on rows drawn with replacement, every rule and penalty re-applied
+        and every refit certified; a :class:`~learnopt.solve.bootstrap.Bootstrap` with percentile
+        intervals, how often each rule binds and each coefficient is zero or on an edge of the rules.
+
+        ``method``: "rows" (default; with row weights, rows drawn in proportion to weight) or
+        "groups" (whole groups drawn, ``groups`` a column name or one label per row). ``jobs``:
+        worker processes (-1: one per core; None: every core once the refits would take over
+        4 s). ``progress``: a bar on a terminal.
+        """
+        return bootstrap(self, n, seed=seed, method=method, groups=groups, level=level, jobs=jobs,
+                         progress=progress, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
 
     def _need_point(self):
         if not self.status.has_point and not np.all(np.isfinite(self.coef)):

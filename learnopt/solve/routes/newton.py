@@ -12,6 +12,9 @@ penalties it is a linear system solved with numpy instead. A backtracking line s
 true objective (Armijo rule, Lee, Sun and Saunders 2014, "Proximal Newton-type methods for
 minimizing composite functions") makes every step a descent step, and the iteration stops when
 learnopt's certificate passes, so the answer is certified exactly as on the direct route.
+Where the first model is nearly flat (almost every row on a straight piece of the loss, e.g.
+huber with the residuals at the start far beyond delta), the first step borrows the squared
+loss's curvature M'AM.
 mu starts at 1e-10 of the mean diagonal of M'AM (it keeps the step problem strictly convex when
 H is singular, e.g. squared hinge with few rows inside the margin), grows 1000-fold when a step
 problem fails or a step does not descend (Levenberg-Marquardt damping) and shrinks again after
@@ -32,6 +35,7 @@ from learnopt.problem.algebra import loss_argument, penalty_value, requirement_c
 
 MAX_STEPS = 60
 ARMIJO = 1e-4
+FLAT = 1e-2                             # trace(H) / trace(M' A M) below this at the start: nearly flat
 MIN_DAMPING, MAX_DAMPING = 1e-10, 1e8   # mu / (mean diagonal of M' A M)
 
 
@@ -142,6 +146,11 @@ class Runner(RunnerBase):
         mu_scale = MIN_DAMPING
         for steps in range(1, MAX_STEPS + 1):
             g, H = self._model(theta)
+            if first and np.trace(H) <= FLAT * self.size * self.p:
+                # (almost) every row on a straight piece of the loss at the start (huber far from
+                # the data, say): the model is nearly flat and its first step, taken whole to meet
+                # the rules, would run off; borrow the squared loss's curvature for that step
+                H = _weighted_gram(self.M, self.a)
             mu = mu_scale * self.size
             try:
                 status, new, m, c_s, s_s = self._step(theta, g, H, mu, spec, options, verbose, warm or not first)
