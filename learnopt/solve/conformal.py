@@ -133,9 +133,9 @@ def calibrate(fit, data, target=None, *, level: float = 0.9, method: str | None 
                              f"one of {', '.join(map(repr, METHODS))}{params.nearest(str(method), METHODS, show=repr)}")
     y = targets(fit, data, target, "intervals")
     n = len(y)
-    k = math.ceil((n + 1) * level)
+    k = math.ceil((n + 1) * level - 1e-9)     # (the small shift keeps 10 * 0.9 at 9, not 10)
     if k > n:
-        need = math.ceil(level / (1 - level))
+        need = math.ceil(level / (1 - level) - 1e-9)
         raise DataError(f"intervals(level={level:g}): {n} calibration row(s) are too few; level {level:g} needs "
                         f"at least {need} (with fewer the interval would have no upper end). Hold out more rows, "
                         f"or ask for a lower level.")
