@@ -168,6 +168,8 @@ def _show(job, as_json: bool) -> None:
             out["path_end"] = job.path.stopped
         if job.evaluation is not None:
             out["evaluation"] = json.loads(job.evaluation.metrics.to_json())
+        if job.bootstrap is not None or job.intervals is not None:
+            out["uncertainty"] = jobs.uncertainty_dict(job)
         click.echo(json.dumps(out, default=str))
         return
     con = _console()
@@ -205,8 +207,30 @@ def _show(job, as_json: bool) -> None:
         con.print(f"the path ends here: {job.path.stopped}", markup=False)
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
+    _show_sure(con, job)
     _show_written(con, job)
     con.print(CAUTION, markup=False)
+
+
+def _show_sure(con, job) -> None:
+    """Refit intervals and prediction intervals on the terminal."""
+    boot = job.bootstrap
+    if boot is not None:
+        iv = boot.intervals.assign(flagged=boot.intervals["flagged"].map({True: "on an edge", False: ""}))
+        con.print(_frame_table(iv, f"refit intervals ({boot.level:.0%}; {boot.certified} of {boot.n} refits "
+                                   f"certified, {boot.seconds:.1f} s)"))
+        if len(boot.rules):
+            con.print(_frame_table(boot.rules, "share of refits in which each rule binds"))
+        con.print(boot.caution(), markup=False)
+    if job.intervals is not None:
+        c = job.coverage
+        facts = pd.DataFrame({"value": [job.intervals.method, c["level"], f"{job.intervals.margin:.4g}",
+                                        job.intervals.calibration_rows, c["rows"], f"{c['covered']:.3g}",
+                                        "{:.3g} to {:.3g}".format(*c["usual_range"])]},
+                             index=pd.Index(["method", "level asked for", "margin", "calibration rows",
+                                             "rows checked", "coverage measured", "usual range on those rows"],
+                                            name="prediction intervals"))
+        con.print(_frame_table(facts, "prediction intervals (held-out rows, split in two)"))
 
 
 def _read(reader, *args, **options):

@@ -2,6 +2,7 @@
 outputs (each atomically, stamped with the run's identifier) and then the run record."""
 from __future__ import annotations
 
+import json
 import uuid
 from dataclasses import dataclass, field
 
@@ -27,6 +28,9 @@ class Job:
     compare: pd.DataFrame | None = None
     path: object = None
     evaluation: object = None
+    bootstrap: object = None            # refits on resampled rows (uncertainty.refits)
+    intervals: object = None            # prediction intervals calibrated on half the held-out rows
+    coverage: dict | None = None        # ... and their coverage measured on the other half
     written: list[str] = field(default_factory=list)
     rows_in_file: int | None = None     # rows in the data file(s); None when not counted (sharded)
     held_out: object = None             # the held-out rows (a DataFrame, or a lazy one), or None
@@ -118,8 +122,37 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **extra, **opts)
     if held is not None and job.fit.status.has_point:
         job.evaluation = job.fit.evaluate(held)
+    _uncertainty(job, held)
     _outputs(job, frame, report)
     return job
+
+
+def _uncertainty(job: Job, held) -> None:
+    """Refits on resampled rows, and prediction intervals: calibrated on a seeded half of the
+    held-out rows, their coverage measured on the other half."""
+    u, fit = job.recipe.uncertainty, job.fit
+    if not fit.status.has_point:
+        return
+    if u.refits:
+        job.bootstrap = fit.bootstrap(u.refits, seed=u.seed, level=u.level, groups=u.draw_groups,
+                                      progress=None)
+    if u.intervals and held is not None:
+        if not isinstance(held, pd.DataFrame):
+            raise DataError("uncertainty.intervals: the held-out rows are sharded; prediction intervals need them "
+                            "in memory (a held-out file that fits in memory).")
+        half = np.random.default_rng(u.seed).permutation(len(held)) < len(held) // 2
+        job.intervals = fit.intervals(held[half], level=u.level)
+        job.coverage = job.intervals.coverage(held[~half])
+
+
+def uncertainty_dict(job: Job) -> dict:
+    """The refits' and the prediction intervals' findings as plain data (JSON)."""
+    out = {}
+    if job.bootstrap is not None:
+        out["refits"] = job.bootstrap.to_dict()
+    if job.intervals is not None:
+        out["prediction_intervals"] = {**job.intervals.to_dict(), "coverage_on_other_held_out_rows": job.coverage}
+    return out
 
 
 def _outputs(job: Job, frame, report: str | None) -> None:
@@ -139,6 +172,10 @@ def _outputs(job: Job, frame, report: str | None) -> None:
             write_atomic(path, pred.to_csv(index_label="row"))
         else:          # sharded: partition by partition, rows numbered across partitions
             write_atomic(path, csv_chunks(fit.predict(frame), "prediction"))
+        job.written.append(path)
+    if out.uncertainty and (job.bootstrap is not None or job.intervals is not None):
+        path = recipe.resolve(out.uncertainty)
+        write_atomic(path, json.dumps({"run": job.run_id, **uncertainty_dict(job)}, indent=2, default=str))
         job.written.append(path)
     if out.path and job.path is not None:
         path = recipe.resolve(out.path)

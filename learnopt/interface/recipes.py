@@ -182,6 +182,14 @@ class DoPart(_Strict):
     holdout: HoldoutPart | None = None
 
 
+class UncertaintyPart(_Strict):
+    refits: int = Field(default=0, ge=0, le=20000, description="bootstrap refits (0: none)")
+    seed: int = Field(default=0, ge=0)
+    level: float = Field(default=0.9, gt=0, lt=1, description="for refit and prediction intervals")
+    draw_groups: str | None = Field(default=None, description="column whose groups are drawn whole")
+    intervals: bool = Field(default=False, description="prediction intervals calibrated on held-out rows")
+
+
 class OutputsPart(_Strict):
     fit: str | None = Field(default=None, description="model file (JSON)")
     coefficients: str | None = None
@@ -189,6 +197,7 @@ class OutputsPart(_Strict):
     path: str | None = Field(default=None, description="path table (CSV), when the action is path")
     compare: str | None = Field(default=None, description="solver table (CSV), when the action is compare")
     report: str | None = None
+    uncertainty: str | None = Field(default=None, description="refit and prediction intervals (JSON)")
     centres: str | None = Field(default=None, description="centres table (CSV), centres recipes")
     assignments: str | None = Field(default=None, description="centre of each point (CSV), centres recipes")
 
@@ -201,16 +210,35 @@ class Recipe(_Strict):
     task: TaskPart
     solve: SolvePart = Field(default_factory=SolvePart)
     do: DoPart = Field(default_factory=DoPart)
+    uncertainty: UncertaintyPart = Field(default_factory=UncertaintyPart)
     outputs: OutputsPart = Field(default_factory=OutputsPart)
     folder: str = Field(default=".", exclude=True)
     file: str = Field(default="", exclude=True, description="the recipe file read (for the report)")
 
     @model_validator(mode="after")
     def _keys_of_its_kind(self):
-        problems = kind_problems(self.task, self.solve, self.outputs, self.do)
+        problems = kind_problems(self.task, self.solve, self.outputs, self.do) + self._uncertainty_problems()
         if problems:
             raise KindProblems(problems)
         return self
+
+    def _uncertainty_problems(self) -> list[str]:
+        u, out = self.uncertainty, []
+        if not u.model_fields_set:
+            return out
+        if self.task.kind == "centres":
+            return ["uncertainty: a centres recipe has no refit or prediction intervals; remove the section"]
+        if u.intervals and self.do.holdout is None:
+            out.append("uncertainty.intervals: prediction intervals are calibrated on held-out rows; add "
+                       "do.holdout (e.g. holdout = { fraction = 0.3, seed = 1 }) or remove the key")
+        if u.intervals and self.task.kind != "regression":
+            out.append("uncertainty.intervals: prediction intervals are for regression recipes; remove the key")
+        if u.draw_groups is not None and not u.refits:
+            out.append("uncertainty.draw_groups: it says how refits draw rows, and refits is 0; give refits "
+                       "(e.g. refits = 200) or remove the key")
+        if self.outputs.uncertainty is not None and not (u.refits or u.intervals):
+            out.append("outputs.uncertainty: nothing to write; give uncertainty.refits or uncertainty.intervals")
+        return out
 
     def resolve(self, relative: str) -> str:
         return relative if os.path.isabs(relative) else os.path.normpath(os.path.join(self.folder, relative))

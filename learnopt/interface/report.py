@@ -9,6 +9,7 @@ import pandas as pd
 
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface.provenance import provenance, provenance_html
+from learnopt.interface.report_sure import interval_parts, refit_parts
 from learnopt.interface.report_blocks import figure, fmt, page, png, standing, table
 from learnopt.interface.report_pictures import (
     argument_counts, coverage, draw_coefficients, draw_coverage, draw_histogram, draw_means, draw_path,
@@ -90,19 +91,22 @@ def centres_html(job) -> str:
     return page(title, parts)
 
 
-def _coefficients(task, fit) -> list[str]:
-    """The coefficient chart (bounds from the rules drawn on it) and the table beside it."""
+def _coefficients(task, fit, boot=None) -> list[str]:
+    """The coefficient chart (bounds from the rules drawn on it, refit intervals as whiskers when
+    there are refits) and the table beside it."""
     coefs = fit.coefficients()
     bounds = simple_bounds(task, fit) if has_point(fit) else None
     out = ["<h2>Coefficients</h2>"]
     if bounds is not None:
         shown = fit.coef
         note = " The intercept is left out of the picture." if task.intercept else ""
-        out.append("<figure>" + png(lambda ax: draw_coefficients(ax, shown, bounds),
+        spread = boot.intervals if boot is not None else None
+        out.append("<figure>" + png(lambda ax: draw_coefficients(ax, shown, bounds, spread),
                                     size=(6.5, 0.9 + 0.38 * len(shown)), alt="coefficients and their bounds")
                    + "<figcaption>Each bar is a coefficient; a tick across it is a bound a rule sets on that "
                      "coefficient alone (red and solid: the coefficient sits on it and the rule holds the fit "
-                     "back)." + note + "</figcaption></figure>")
+                     "back)." + (" Black whiskers: refit intervals (dotted: on a rule's edge or at zero in many "
+                                 "refits)." if spread is not None else "") + note + "</figcaption></figure>")
         words = {name: ", ".join(w for w in (
             f">= {fmt(bounds.at[name, 'lower'])}" if np.isfinite(bounds.at[name, "lower"]) else "",
             f"<= {fmt(bounds.at[name, 'upper'])}" if np.isfinite(bounds.at[name, "upper"]) else "") if w)
@@ -191,7 +195,7 @@ def html(job) -> str:
         parts.append("<h2>Conflicting rules</h2><p class=\"note\">The rules cannot all hold. Each rule below is "
                      "part of the conflict; the amount is how far that rule alone must move, in its own units "
                      "(inf: moving it alone is not enough).</p>" + table(cf))
-    parts += _coefficients(task, fit)
+    parts += _coefficients(task, fit, job.bootstrap)
     if len(fit.prices):
         parts.append(standing(fit.rule_standing()))
     elif task.rules:
@@ -206,6 +210,10 @@ def html(job) -> str:
                                                                    name="held-out rows"),
                                  columns=[f"predicted {v}" for v in counts.columns])
             parts.append("<h3>Held-out rows by actual and predicted label</h3>" + table(shown))
+    if job.bootstrap is not None:
+        parts += refit_parts(job.bootstrap)
+    if job.intervals is not None:
+        parts += interval_parts(job.intervals, job.coverage)
     if job.path is not None:
         chosen = path_strength(job)
         parts.append(figure("Path", png(lambda ax: draw_path(ax, job.path, chosen), alt="coefficient path"),

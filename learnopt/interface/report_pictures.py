@@ -55,12 +55,21 @@ def _bound(out: pd.DataFrame, name: str, sense: str, a: float, rhs: float, holds
         out.at[name, f"{side}_binding"] = bool(out.at[name, f"{side}_binding"]) or binding
 
 
-def draw_coefficients(ax, coef: pd.Series, bounds: pd.DataFrame) -> None:
+def draw_coefficients(ax, coef: pd.Series, bounds: pd.DataFrame, spread: pd.DataFrame | None = None) -> None:
     """Horizontal bars, first coefficient on top; each bound a tick across its bar (red and
-    solid when the coefficient sits on it and the rule holds the fit back)."""
+    solid when the coefficient sits on it and the rule holds the fit back). ``spread``: refit
+    intervals (low, high, flagged) drawn as black whiskers, dotted where flagged."""
     names = list(coef.index)
     y = np.arange(len(names))[::-1]
     ax.barh(y, coef.to_numpy(), color=GOOD, height=0.6)
+    if spread is not None:
+        for yi, name in zip(y, names):
+            if name not in spread.index or not np.isfinite(spread.at[name, "low"]):
+                continue
+            lo, hi, odd = spread.at[name, "low"], spread.at[name, "high"], bool(spread.at[name, "flagged"])
+            ax.plot([lo, hi], [yi, yi], color="#111", lw=1.4, ls=":" if odd else "-",
+                    label="refit interval" + (" (on an edge: not normal theory)" if odd else ""))
+            ax.plot([lo, hi], [yi, yi], "|", color="#111", ms=9)
     ax.axvline(0, color="#444", lw=0.8)
     drawn = set()
     for yi, name in zip(y, names):
@@ -73,10 +82,13 @@ def draw_coefficients(ax, coef: pd.Series, bounds: pd.DataFrame) -> None:
             ax.plot([v, v], [yi - 0.42, yi + 0.42], color=BAD if bind else GREY, lw=3 if bind else 1.6,
                     ls="-" if bind else "--", label=None if label in drawn else label)
             drawn.add(label)
+    handles, labels = ax.get_legend_handles_labels()
+    drawn |= set(labels)
     ax.set_yticks(y, [str(n) for n in names])
     ax.set_xlabel("coefficient")
     if drawn:
-        ax.legend(loc="best", fontsize=8, framealpha=0.85)
+        keep = dict(zip(labels, handles))
+        ax.legend(keep.values(), keep.keys(), loc="best", fontsize=8, framealpha=0.85)
 
 
 # ------------------------------------------------------------------ rules on means

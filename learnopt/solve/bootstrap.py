@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from learnopt.core import checks as params
+from learnopt.core.files import json_ready
 from learnopt.core.errors import DataError, LearnoptError
 from learnopt.core.progress import ProgressBar
 from learnopt.core.status import CAUTION, Status
@@ -103,10 +104,9 @@ class Bootstrap:
     def to_dict(self) -> dict:
         """Plain data for JSON: the settings, counts, intervals and rule shares."""
         def rows(frame):
-            return {str(k): {c: (v.item() if hasattr(v, "item") else v) for c, v in r.items()}
-                    for k, r in frame.to_dict(orient="index").items()}
+            return json_ready(frame.to_dict(orient="index"))
         return {"method": self.method, "level": self.level, "seed": self.seed, "refits": self.n,
-                "certified": self.certified, "seconds": self.seconds, "fit_seconds": self.fit_seconds,
+                "certified": self.certified, "seconds": self.seconds, "fit_seconds": self.fit_seconds, "not_certified": self.n - self.certified,
                 "intervals": rows(self.intervals), "rules": rows(self.rules), "caution": self.caution()}
 
     def caution(self) -> str:

@@ -72,12 +72,14 @@ class Intervals:
 
     def coverage(self, data, target=None) -> dict:
         """The share of rows of ``data`` whose target falls inside its interval, with the row
-        count and the mean width, next to the level asked for and the guarantee's range."""
+        count and the mean width, next to the level asked for, the guarantee's range, and the
+        range the measured share usually falls in on that many rows."""
         y = targets(self.fit, data, target, "coverage")
         _, low, high = self._edges(data)
         inside = (y >= low) & (y <= high)
         return {"rows": int(len(y)), "covered": float(np.mean(inside)), "level": self.level,
-                "guarantee": list(self.guarantee), "mean_width": float(np.mean(high - low))}
+                "guarantee": list(self.guarantee), "usual_range": list(sampling_range(self.level, len(y))),
+                "mean_width": float(np.mean(high - low))}
 
     def to_dict(self) -> dict:
         return {"method": self.method, "level": self.level, "margin": self.margin,
@@ -93,6 +95,13 @@ class Intervals:
         lo, hi = self.guarantee
         return (f"Intervals(method={self.method!r}, level={self.level:g}, margin={self.margin:.6g}, "
                 f"calibration_rows={self.calibration_rows}, guarantee=[{lo:g}, {hi:.4g}])")
+
+
+def sampling_range(level: float, rows: int) -> tuple[float, float]:
+    """Where coverage measured on ``rows`` new rows usually falls (about 95% of the time) when
+    the true coverage is ``level``: level +/- 2 binomial standard deviations (common practice)."""
+    sd = float(np.sqrt(level * (1 - level) / max(rows, 1)))
+    return max(0.0, level - 2 * sd), min(1.0, level + 2 * sd)
 
 
 def targets(fit, data, target, verb: str) -> np.ndarray:
