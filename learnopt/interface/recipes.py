@@ -224,6 +224,8 @@ class Recipe(_Strict):
 
     def _uncertainty_problems(self) -> list[str]:
         u, out = self.uncertainty, []
+        if self.outputs.uncertainty is not None and not (u.refits or u.intervals):
+            out.append("outputs.uncertainty: nothing to write; give uncertainty.refits or uncertainty.intervals")
         if not u.model_fields_set:
             return out
         if self.task.kind == "centres":
@@ -236,8 +238,6 @@ class Recipe(_Strict):
         if u.draw_groups is not None and not u.refits:
             out.append("uncertainty.draw_groups: it says how refits draw rows, and refits is 0; give refits "
                        "(e.g. refits = 200) or remove the key")
-        if self.outputs.uncertainty is not None and not (u.refits or u.intervals):
-            out.append("outputs.uncertainty: nothing to write; give uncertainty.refits or uncertainty.intervals")
         return out
 
     def resolve(self, relative: str) -> str:

@@ -47,7 +47,7 @@ def interval_parts(intervals, coverage: dict) -> list[str]:
     return ["<h2>How sure: prediction intervals</h2>",
             figure("Coverage against the level asked for",
                    png(lambda ax: draw_coverage_level(ax, intervals.level, coverage["covered"], (lo, hi),
-                                                      intervals.guarantee), size=(6.5, 1.6),
+                                                      intervals.guarantee), size=(6.5, 1.9),
                        alt="coverage measured against the level"), caption),
             table(facts), f"<p class=\"note\">{_html.escape(intervals.caution())}</p>"]
 
@@ -64,4 +64,4 @@ def draw_coverage_level(ax, level: float, measured: float, usual: tuple, guarant
     ax.set_ylim(0, 1)
     ax.set_yticks([])
     ax.set_xlabel("share of held-out rows inside their interval")
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.55), ncol=3, fontsize=8, frameon=False)
+    ax.legend(loc="lower center", bbox_to_anchor=(0.5, 1.02), ncol=3, fontsize=8, frameon=False)
