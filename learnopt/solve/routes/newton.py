@@ -111,6 +111,10 @@ class Runner(RunnerBase):
         H = _weighted_gram(self.M, h)
         return g, H
 
+    def _squared_metric(self):
+        """M' A M: the squared loss's curvature (a nearly flat first model borrows it)."""
+        return _weighted_gram(self.M, self.a)
+
     # ---- one step
     def _step(self, theta, g, H, mu, spec, options, verbose, warm):
         p = self.p
@@ -150,7 +154,7 @@ class Runner(RunnerBase):
                 # (almost) every row on a straight piece of the loss at the start (huber far from
                 # the data, say): the model is nearly flat and its first step, taken whole to meet
                 # the rules, would run off; borrow the squared loss's curvature for that step
-                H = _weighted_gram(self.M, self.a)
+                H = self._squared_metric()
             mu = mu_scale * self.size
             try:
                 status, new, m, c_s, s_s = self._step(theta, g, H, mu, spec, options, verbose, warm or not first)

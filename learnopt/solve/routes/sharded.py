@@ -46,7 +46,8 @@ from learnopt.scale.partitions import row_requirements
 from learnopt.solve.routes import compressed, newton
 from learnopt.solve.routes.base import Outcome, RouteSpec, RunnerBase, read_multipliers, run
 from learnopt.solve.routes.sharded_steps import (_combine_rows, _local, _loss_sum, _model, _moments, _row_count,
-                                                 _row_terms, _trace, _tsqr_block, _weight_sum, certify_sharded)
+                                                 _row_terms, _trace, _tsqr_block, _weight_sum, certify_sharded,
+                                                 squared_gram)
 
 METHODS = ("gram", "newton", "admm")
 
@@ -183,6 +184,9 @@ class NewtonRunner(_Sharded, newton.Runner):
         g, H = self.blocks.total(_model, theta=np.asarray(theta, float), **self.common)
         self.report(f"newton step {self.rounds}: |gradient| {np.linalg.norm(g):.3g}")
         return g, H
+
+    def _squared_metric(self):
+        return self.blocks.total(squared_gram, **self.common)
 
     def certify(self, theta, u, mults, enough: float = 0.0):
         return certify_sharded(self.blocks, self.task, theta, mults, self.common, None, enough)

@@ -66,6 +66,12 @@ def _model(block, theta, loss, margin, intercept, W):
     return M.T @ (a * loss.gradient(z)), newton._weighted_gram(M, a * loss.curvature(z))
 
 
+def squared_gram(block, loss, margin, intercept, W):
+    """This block's part of M' A M (the squared loss's curvature)."""
+    M, _, a = _rows(block, margin, intercept, W)
+    return newton._weighted_gram(M, a)
+
+
 def _room(u, a, low, high):
     """How far each row's dual value may move (the in-memory certificate's repair weights)."""
     room = np.minimum(u - low, high - u)
