@@ -30,6 +30,7 @@ from learnopt.data.gateway import is_sharded_source, read_source
 from learnopt.interface.placing import AreaPart, build_centres, kind_problems
 from learnopt.interface.recipe_errors import BlockProblem, KindProblems, problems, place
 from learnopt.interface.task import classification, regression
+from learnopt.rules.domain import over
 from learnopt.solve.routes import ROUTES
 from learnopt.solve.solvers import REGISTRY as SOLVERS
 from learnopt.terms.losses import KINDS, LOSSES, for_kind
@@ -132,6 +133,27 @@ LossPart = _block_model("LossPart", _Loss)
 PenaltyPart = _block_model("PenaltyPart", _Penalty)
 
 
+class RuleOverPart(_Strict):
+    """``[[task.rules_over]]``: a rule on predictions required over a box of feature values,
+    ``rule = "prediction >= 0"`` and ``box = { distance_km = [0, 50], region = "every" }``
+    (one entry per feature: ``[low, high]``, one value, a level, a list of levels or "every")."""
+
+    rule: str
+    box: dict[str, Any]
+
+    @model_validator(mode="after")
+    def _builds(self):
+        try:
+            self.build()
+        except LearnoptError as exc:
+            raise ValueError(str(exc)) from None
+        return self
+
+    def build(self):
+        """The rule object (``lo.rule.over``)."""
+        return over(self.rule, **self.box)
+
+
 class TaskPart(_Strict):
     kind: Literal[KINDS + ("centres",)]
     target: str | None = None
@@ -142,6 +164,7 @@ class TaskPart(_Strict):
     loss: LossPart | None = None          # none: the Python default (squared / logistic)
     penalties: list[PenaltyPart] = Field(default_factory=list)
     rules: list[str] = Field(default_factory=list)
+    rules_over: list[RuleOverPart] = Field(default_factory=list, description="rules on predictions over a box")
     k: int | None = Field(default=None, ge=1, description="centres: how many")
     fixed: list[list[float]] | None = Field(default=None, description="centres: existing centres, pinned")
     areas: list[AreaPart] = Field(default_factory=list, description="centres: regions a centre must stay in")
@@ -356,6 +379,20 @@ def build_task(recipe: Recipe, frame=None):
         task = task.penalize(*pens)
     if t.rules:
         task = task.require(*t.rules)
+    return _require_over(task, t.rules_over)
+
+
+def _require_over(task, parts):
+    """The ``[[task.rules_over]]`` entries required, each refusal named by its place in the recipe."""
+    wrong = []
+    for k, part in enumerate(parts):
+        try:
+            task = task.require(part.build())
+        except LearnoptError as exc:
+            wrong.append(f"{place(['task', 'rules_over', k])}: {exc}")
+    if wrong:
+        raise DataError(wrong[0] if len(wrong) == 1 else "The recipe's rules over a box cannot be used",
+                        problems=wrong)
     return task
 
 

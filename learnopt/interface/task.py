@@ -72,7 +72,7 @@ class Task(Problem):
         for r in self.requirements:
             fact = ("norm bounded above: a convex set" if r.sense == "norm"
                     else f"linear {'equality' if r.sense == '==' else 'inequality'} ({r.rows} row{'s' * (r.rows > 1)})")
-            pieces.append((f"rule «{r.text}»", fact))
+            pieces.append((f"rule «{r.text}»", f"{fact}: {r.note}" if r.note else fact))
         reasons = []
         try:
             if not one_row(self).is_dcp():

@@ -83,9 +83,9 @@ class Problem:
         enc = self.dataset.encoding
         reference, former = (enc.reference_names, enc.former_names) if enc is not None else ((), {})
         if self.sharded:
-            return Context(self.coefficient_names, None, None, reference, former, no_rows=SHARDED_ROWS)
+            return Context(self.coefficient_names, None, None, reference, former, no_rows=SHARDED_ROWS, encoding=enc)
         Xt = design_with_ones(self.dataset.X, self.intercept)   # sparse stays sparse: rules take rows of it
-        return Context(self.coefficient_names, Xt, self.dataset.frame, reference, former)
+        return Context(self.coefficient_names, Xt, self.dataset.frame, reference, former, encoding=enc)
 
     # ---- varying
     def penalize(self, *penalties: Penalty) -> "Problem":

@@ -36,6 +36,7 @@ class Requirement:
     f: np.ndarray | None = None
     bound: float | None = None
     rule: str | None = None
+    note: str = ""                  # how the rows were derived, for check() (a box's corners, say)
 
     @property
     def source(self) -> str:
@@ -82,6 +83,7 @@ class Context:
     former: Mapping[str, str] = field(default_factory=dict)  # replaced level names -> names now
     no_rows: str = ""               # why rules cannot refer to data rows here (sharded data)
     aggregates: object | None = None  # sharded data: hook(compiler, fn, node, mask) for mean/sum
+    encoding: object | None = None  # the data's encoding (columns, levels, reference), when it has one
 
     @property
     def p(self) -> int:

@@ -14,11 +14,12 @@ from __future__ import annotations
 import dataclasses
 
 from learnopt.core.errors import DataError
+from learnopt.rules.domain import Over
 from learnopt.rules.objects import Bounds, TextRule
 from learnopt.rules.regions import Ball, Polygon, Segment
 from learnopt.rules.requirements import RuleSpec
 
-KINDS = {cls.__name__: cls for cls in (TextRule, Bounds, Polygon, Ball, Segment)}
+KINDS = {cls.__name__: cls for cls in (TextRule, Bounds, Polygon, Ball, Segment, Over)}
 
 
 def _listed(value):
@@ -34,8 +35,17 @@ def to_plain(spec: RuleSpec) -> dict:
     name = type(spec).__name__
     if KINDS.get(name) is not type(spec):
         raise DataError(f"The rule {spec.text!r} is a {name}, which a model file cannot hold; model files hold "
-                        f"text rules, bounds, polygons, balls and segments.")
+                        f"text rules, bounds, polygons, balls, segments and rules over a box.")
     return {"rule": name, "fields": {f.name: _listed(getattr(spec, f.name)) for f in dataclasses.fields(spec)}}
+
+
+def file_entry(spec: RuleSpec) -> str | dict:
+    """How a fit's model file holds a rule: as text when the rule language reads the text back as the
+    same rule (text rules, bounds) or learnopt cannot rebuild the object; as plain data otherwise
+    (a rule over a box, a region). :func:`from_plain` reads both."""
+    if isinstance(spec, (TextRule, Bounds)) or KINDS.get(type(spec).__name__) is not type(spec):
+        return spec.text
+    return to_plain(spec)
 
 
 def from_plain(entry) -> RuleSpec:

@@ -73,8 +73,8 @@ def shape_problems(saved: dict) -> list[str]:
                            + (f"; not features: {', '.join(extra)}" if extra else ""))
         if isinstance(coef, dict):
             out += [f"coef.{k} is {v!r}; it has to be a number" for k, v in coef.items() if not _is(v, NUMBER)]
-        if isinstance(task.get("rules"), list) and not all(isinstance(r, str) for r in task["rules"]):
-            out.append("task.rules has to be a list of rule texts")
+        if isinstance(task.get("rules"), list) and not all(isinstance(r, (str, dict)) for r in task["rules"]):
+            out.append("task.rules has to be a list of rule texts (or rule objects as plain data)")
     if isinstance(evidence, dict):
         out += _section(evidence, EVIDENCE, "evidence.")
         timings = evidence.get("timings")

@@ -1,7 +1,8 @@
 """Model files: a fit saved as JSON (no pickle), with a schema version.
 
-A file holds the task's description (kind, loss, penalties, rule texts, intercept, feature
-names, the encoding of DataFrame columns, class labels), the coefficients, and the evidence
+A file holds the task's description (kind, loss, penalties, rules as text or, for rule objects
+such as a box, as plain data (``rules.saving``), intercept, feature names, the encoding of
+DataFrame columns, class labels), the coefficients, and the evidence
 (status, message, objective, gap, violation, solver, route, timings, prices, versions).
 Floats are written with ``repr`` (shortest round-trip form), so a loaded fit predicts exactly
 what the saved one did. The loaded fit carries no training data: its ``task`` is a
@@ -28,7 +29,7 @@ from learnopt.core.version import package_versions
 from learnopt.data.encoding import Encoding
 from learnopt.data.table import Dataset
 from learnopt.problem.problem import Problem
-from learnopt.rules.objects import TextRule
+from learnopt.rules.saving import file_entry, from_plain
 from learnopt.solve.fileshape import shape_problems
 from learnopt.solve.solvers import REGISTRY
 from learnopt.solve.timings import Timings
@@ -85,7 +86,7 @@ def to_dict(fit, *, run: str | None = None) -> dict:
         "format": MODEL_FORMAT, "schema_version": MODEL_SCHEMA, **({"run": run} if run else {}),
         "task": {
             "kind": task.kind, "loss": _piece(task.loss), "penalties": [_piece(p) for p in task.penalties],
-            "rules": [r.text for r in task.rules], "intercept": task.intercept,
+            "rules": [file_entry(r) for r in task.rules], "intercept": task.intercept,
             "target": json_ready(task.target_name), "features": list(ds.names),
             "labels": json_ready(list(ds.labels)) if ds.labels is not None else None,
             "encoding": None if enc is None else {
@@ -174,7 +175,7 @@ def read(path, *, task_type=None) -> dict:
     loss = _rebuild(t["loss"], _losses, _losses.Loss)
     pens = tuple(_rebuild(p, _penalties, _penalties.Penalty) for p in t["penalties"])
     task = (task_type or Problem)(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,
-                                  tuple(TextRule(r) for r in t["rules"]))
+                                  tuple(from_plain(r) for r in t["rules"]))
     ev = saved["evidence"]
     if ev.get("status") not in {s.value for s in Status}:
         raise DataError(f"Model file {path!r}: evidence.status is {ev.get('status')!r}; a fit's status is one of "
