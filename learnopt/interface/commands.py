@@ -167,7 +167,7 @@ def _show(job, as_json: bool) -> None:
             out["path"] = json.loads(job.path.table.to_json(orient="records"))
             out["path_end"] = job.path.stopped
         if job.evaluation is not None:
-            out["evaluation"] = json.loads(job.evaluation.metrics.to_json())
+            out["evaluation"] = job.evaluation.to_dict()
         click.echo(json.dumps(out, default=str))
         return
     con = _console()
@@ -205,6 +205,8 @@ def _show(job, as_json: bool) -> None:
         con.print(f"the path ends here: {job.path.stopped}", markup=False)
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
+        if job.evaluation.rules is not None and len(job.evaluation.rules):
+            con.print(_frame_table(job.evaluation.rules.drop(columns="note"), "rules on the held-out rows"))
     _show_written(con, job)
     con.print(CAUTION, markup=False)
 
