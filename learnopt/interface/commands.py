@@ -167,7 +167,7 @@ def _show(job, as_json: bool) -> None:
             out["path"] = json.loads(job.path.table.to_json(orient="records"))
             out["path_end"] = job.path.stopped
         if job.evaluation is not None:
-            out["evaluation"] = json.loads(job.evaluation.metrics.to_json())
+            out["evaluation"] = job.evaluation.to_dict()
         if job.bootstrap is not None or job.intervals is not None:
             out["uncertainty"] = jobs.uncertainty_dict(job)
         click.echo(json.dumps(out, default=str))
@@ -207,6 +207,8 @@ def _show(job, as_json: bool) -> None:
         con.print(f"the path ends here: {job.path.stopped}", markup=False)
     if job.evaluation is not None:
         con.print(_frame_table(job.evaluation.metrics.to_frame("value"), "held-out evaluation"))
+        if job.evaluation.rules is not None and len(job.evaluation.rules):
+            con.print(_frame_table(job.evaluation.rules.drop(columns="note"), "rules on the held-out rows"))
     _show_sure(con, job)
     _show_written(con, job)
     con.print(CAUTION, markup=False)

@@ -121,7 +121,7 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     extra = {"client": s.cluster} if task.sharded else {}
     job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **extra, **opts)
     if held is not None and job.fit.status.has_point:
-        job.evaluation = job.fit.evaluate(held)
+        job.evaluation = job.fit.evaluate(held, groups=recipe.do.holdout.groups)
     _uncertainty(job, held)
     _outputs(job, frame, report)
     return job

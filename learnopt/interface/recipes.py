@@ -188,6 +188,8 @@ class HoldoutPart(_Strict):
     path: str | None = None
     fraction: float | None = Field(default=None, gt=0, lt=1)
     seed: int = 0
+    groups: str | None = Field(default=None, description="a column of the held-out rows: metrics compared "
+                                                          "across its groups")
 
     @model_validator(mode="after")
     def _one_way(self):

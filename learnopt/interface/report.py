@@ -210,6 +210,7 @@ def html(job) -> str:
                                                                    name="held-out rows"),
                                  columns=[f"predicted {v}" for v in counts.columns])
             parts.append("<h3>Held-out rows by actual and predicted label</h3>" + table(shown))
+        parts += _held_out_extras(job.evaluation)
     if job.bootstrap is not None:
         parts += refit_parts(job.bootstrap)
     if job.intervals is not None:
@@ -233,3 +234,19 @@ def html(job) -> str:
                  + "".join(f"<li>{_html.escape(a)}: {_html.escape(b)}</li>" for a, b in convexity.pieces) + "</ul>")
     parts.append(f"<p class=\"note\">{_html.escape(CAUTION)}</p>")
     return page(title, parts)
+
+
+def _held_out_extras(evaluation) -> list[str]:
+    """The rules measured on the held-out rows, the groups compared, and the notes."""
+    parts = []
+    if evaluation.rules is not None and len(evaluation.rules):
+        parts.append("<h3>Rules on the held-out rows</h3><p>Rules on predictions hold on the training rows by "
+                     "construction; here they are measured on rows the fit has not seen.</p>"
+                     + table(evaluation.rules.astype(object).where(evaluation.rules.notna(), None)))
+    if evaluation.groups is not None:
+        parts.append("<h3>Held-out rows by group</h3>" + table(evaluation.groups)
+                     + "<h3>Largest gap between groups</h3>" + table(evaluation.gaps.to_frame("gap")))
+    if evaluation.notes:
+        parts.append("<ul>" + "".join(f"<li>{_html.escape(n)}</li>" for n in evaluation.notes) + "</ul>")
+    return parts
+

@@ -141,10 +141,15 @@ class Fit:
             return self._partitionwise(data, "probability")
         return self._shaped(expit(self._scores(data)), data, "probability")
 
-    def evaluate(self, data, target=None) -> "Evaluation":
-        """Metrics on (usually held-out) data, with the target in the same column as in training."""
+    def evaluate(self, data, target=None, *, groups=None) -> "Evaluation":
+        """Metrics on (usually held-out) data, with the target in the same column as in training.
+
+        The task's rules are checked on the new rows at this fit's point (``evaluation.rules``).
+        ``groups`` (a column of ``data``, or one label per row) adds metrics per group and the
+        largest gaps between groups (``evaluation.groups``, ``evaluation.gaps``). See
+        :mod:`learnopt.solve.evaluation`."""
         self._need_point()
-        return evaluate(self, data, target)
+        return evaluate(self, data, target, groups)
 
     def intervals(self, data, target=None, *, level: float = 0.9, method: str | None = None) -> Intervals:
         """Prediction intervals calibrated on held-out rows ``data`` (rows the fit did not see):
