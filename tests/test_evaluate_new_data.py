@@ -260,3 +260,4 @@ def test_a_recipe_with_held_out_groups_writes_rules_and_groups_to_json_and_the_r
     assert data["rules"][parity]["difference"] == pytest.approx(means["south"] - means["north"] - 1, rel=1e-6)
     page = (tmp_path / "r.html").read_text()
     assert "Rules on the held-out rows" in page and "Largest gap between groups" in page
+    assert "Held-out means by group" in page          # the picture of the groups side by side

@@ -9,7 +9,7 @@ import pandas as pd
 
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface.provenance import provenance, provenance_html
-from learnopt.interface.report_sure import interval_parts, refit_parts
+from learnopt.interface.report_sure import group_picture, interval_parts, refit_parts
 from learnopt.interface.report_blocks import figure, fmt, page, png, standing, table
 from learnopt.interface.report_pictures import (
     argument_counts, coverage, draw_coefficients, draw_coverage, draw_histogram, draw_means, draw_path,
@@ -210,7 +210,7 @@ def html(job) -> str:
                                                                    name="held-out rows"),
                                  columns=[f"predicted {v}" for v in counts.columns])
             parts.append("<h3>Held-out rows by actual and predicted label</h3>" + table(shown))
-        parts += _held_out_extras(job.evaluation)
+        parts += _held_out_extras(job.evaluation, task.kind)
     if job.bootstrap is not None:
         parts += refit_parts(job.bootstrap)
     if job.intervals is not None:
@@ -236,7 +236,7 @@ def html(job) -> str:
     return page(title, parts)
 
 
-def _held_out_extras(evaluation) -> list[str]:
+def _held_out_extras(evaluation, kind: str) -> list[str]:
     """The rules measured on the held-out rows, the groups compared, and the notes."""
     parts = []
     if evaluation.rules is not None and len(evaluation.rules):
@@ -244,7 +244,8 @@ def _held_out_extras(evaluation) -> list[str]:
                      "construction; here they are measured on rows the fit has not seen.</p>"
                      + table(evaluation.rules.astype(object).where(evaluation.rules.notna(), None)))
     if evaluation.groups is not None:
-        parts.append("<h3>Held-out rows by group</h3>" + table(evaluation.groups)
+        parts.append("<h3>Held-out rows by group</h3>" + group_picture(evaluation.groups, kind)
+                     + table(evaluation.groups)
                      + "<h3>Largest gap between groups</h3>" + table(evaluation.gaps.to_frame("gap")))
     if evaluation.notes:
         parts.append("<ul>" + "".join(f"<li>{_html.escape(n)}</li>" for n in evaluation.notes) + "</ul>")

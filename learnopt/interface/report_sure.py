@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import html as _html
 
+import numpy as np
 import pandas as pd
 
 from learnopt.interface.report_blocks import figure, png, table
@@ -65,3 +66,32 @@ def draw_coverage_level(ax, level: float, measured: float, usual: tuple, guarant
     ax.set_yticks([])
     ax.set_xlabel("share of held-out rows inside their interval")
     ax.legend(loc="lower center", bbox_to_anchor=(0.5, 1.02), ncol=3, fontsize=8, frameon=False)
+
+
+GROUP_BARS = {"classification": ("positive_rate", "true_positive_rate", "false_positive_rate"),
+              "regression": ("mean_prediction", "mean_target")}
+
+
+def group_picture(groups: pd.DataFrame, kind: str) -> str:
+    """Group rates (classification) or mean prediction and mean target (regression) side by side."""
+    cols = [c for c in GROUP_BARS[kind] if c in groups.columns]
+    what = "rates" if kind == "classification" else "means"
+    caption = ("Each group's share predicted positive, true-positive rate and false-positive rate on the held-out "
+               "rows; the demographic-parity gap is the spread of the first, the equalised-odds gap the larger "
+               "spread of the other two (Hardt et al. 2016)." if kind == "classification" else
+               "Each group's mean prediction beside its mean target on the held-out rows.")
+    return figure(f"Held-out {what} by group", png(lambda ax: draw_groups(ax, groups, cols),
+                                                   size=(6.5, 1.2 + 0.5 * len(groups) * len(cols) ** 0.5),
+                                                   alt=f"held-out {what} by group"), caption)
+
+
+def draw_groups(ax, groups: pd.DataFrame, cols: list[str]) -> None:
+    names = [str(g) for g in groups.index]
+    y = np.arange(len(names))[::-1]
+    height = 0.8 / len(cols)
+    colours = (GOOD, BAD, GREY)
+    for k, c in enumerate(cols):
+        ax.barh(y + (len(cols) / 2 - k - 0.5) * height, groups[c].to_numpy(dtype=float), height=height,
+                color=colours[k % 3], label=c.replace("_", " "))
+    ax.set_yticks(y, names)
+    ax.legend(loc="lower center", bbox_to_anchor=(0.5, 1.0), ncol=len(cols), fontsize=8, frameon=False)
