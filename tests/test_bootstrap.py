@@ -191,3 +191,13 @@ def test_a_loaded_fit_says_it_has_no_rows(tmp_path):
     fit.save(tmp_path / "m.json")
     with pytest.raises(LearnoptError, match="model file"):
         lo.load_fit(tmp_path / "m.json").bootstrap(10)
+
+
+def test_a_start_point_changes_the_path_not_the_answer():
+    # common practice: a warm start may save steps, never change a certified optimum
+    task = lo.regression(_frame(), "y", features=["x", "z"], loss=lo.loss.huber(1.0)).require("z >= -0.2")
+    cold = task.solve()
+    warm = task.solve(start=cold.theta + 0.3)
+    assert warm.status == "optimal" and np.allclose(warm.theta, cold.theta, atol=1e-5)
+    with pytest.raises(LearnoptError, match="start"):
+        task.solve(start=[1.0, 2.0])

@@ -101,7 +101,7 @@ class Task(Problem):
               feas_tol: float = 1e-6, route: str | None = None, fallback: bool = True,
               time_limit: float | None = None, polish: bool = False,
               solver_options: dict | None = None, verbose: bool = False, client=None,
-              progress: bool | None = None):
+              progress: bool | None = None, start=None):
         """Solve and certify; return a :class:`~learnopt.solve.fit.Fit`.
 
         Parameters
@@ -124,9 +124,12 @@ class Task(Problem):
             dask's current client, else a local cluster learnopt starts).
         progress : a line on stderr per certificate check and solver attempt once the fit has run
             for 2 seconds (sharded data: a line per round of passes); None: only on a terminal.
+        start : a point to start from (coefficients then the intercept, like ``fit.theta``), for
+            the iterative routes; the answer is certified as always, wherever it starts.
         """
         settings = Settings(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, time_limit=time_limit, polish=polish,
-                            fallback=fallback, solver_options=dict(solver_options or {}), verbose=verbose)
+                            fallback=fallback, solver_options=dict(solver_options or {}), verbose=verbose,
+                            start=None if start is None else _start(self, start))
         cluster = None if client is None and progress is None else ClusterSettings(client=client, progress=progress)
         return solve_screened(self, settings, solver=solver, route=route, cluster=cluster, progress=progress)
 
@@ -187,6 +190,15 @@ class Task(Problem):
         self._in_memory("compare()")
         return compare(self, list(solvers), tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
 
+
+
+def _start(task, start) -> np.ndarray:
+    point = np.asarray(start, dtype=float).ravel()
+    p = len(task.coefficient_names)
+    if point.shape != (p,) or not np.all(np.isfinite(point)):
+        raise params.refusal("solve", "start", start, f"{p} finite numbers: the coefficients in the task's order"
+                             f"{', then the intercept' if task.intercept else ''} (like fit.theta)")
+    return point
 
 
 def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:

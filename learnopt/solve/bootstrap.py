@@ -197,7 +197,7 @@ def refit_many(task, draws, unit_weights: bool, options: dict) -> list[dict]:
         t0 = time.perf_counter()
         try:
             sub, absent = _rebuild(task, rows, unit_weights)
-            fit = sub.solve(progress=False, **options)
+            fit = sub.solve(progress=False, **options)     # options carry the full fit's point as start
         except LearnoptError as exc:
             out.append({"status": Status.FAILED.value, "theta": None, "binding": {}, "absent": [],
                         "message": str(exc), "seconds": time.perf_counter() - t0})
@@ -231,7 +231,7 @@ def bootstrap(fit, n: int = 200, *, seed: int = 0, method: str | None = None, gr
     ds = task.dataset
     labels = _group_labels(ds, groups) if groups is not None else None
     how, draws = draw_rows(ds, int(n), int(seed), labels)
-    options = dict(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
+    options = dict(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, start=fit.theta)   # each refit warm-starts
     unit = how == "weighted rows"
     if jobs is None:      # worker processes pay for themselves only when the refits take a while
         jobs = -1 if n * float(fit.timings.total) > PARALLEL_AFTER else 1

@@ -164,6 +164,9 @@ def solve_task(task, settings: Settings, *, solver: str | None = None, route: st
     elif runner is None:
         work, T = conditioned(task.as_problem())     # centred and scaled columns when the data need it
         runner = prepare(work, route)
+        if settings.start is not None:
+            start = np.asarray(settings.start, float)
+            runner.start = start if T is None else np.linalg.solve(T, start)
     problem = runner.task
     gap_tol, feas_tol, tol, time_limit = settings.gap_tol, settings.feas_tol, settings.tol, settings.time_limit
     chain = plan_solvers(runner.problem_class, solver, fallback=settings.fallback, prefer=runner.prefer)

@@ -63,7 +63,7 @@ class Settings:
     certificate must show for "optimal"; time_limit : seconds per solver attempt; polish :
     tighter re-solves of a solver whose point fails the certificate; fallback : try the next
     capable solver when one fails; solver_options : passed unchanged to the solver; verbose :
-    the solver's own log.
+    the solver's own log; start : a point (theta) for iterative routes to start from.
     """
 
     tol: float = 1e-9
@@ -73,6 +73,7 @@ class Settings:
     polish: bool = False
     fallback: bool = True
     solver_options: dict = field(default_factory=dict)
+    start: np.ndarray | None = None
     verbose: bool = False
 
 
