@@ -137,7 +137,8 @@ def test_property_an_accepted_output_lands_inside_after_links(tree, parts, key):
     raw = {"data": {"path": "d.csv"}, "task": {"kind": "centres" if key in ("centres", "assignments") else
                                                "regression", **({"k": 2} if key in ("centres", "assignments")
                                                                else {"target": "y"})},
-           "outputs": {key: relative}}
+           "outputs": {key: relative},
+           **({"uncertainty": {"refits": 10}} if key == "uncertainty" else {})}   # something to write there
     recipe = recipe_from(raw, folder=str(tree))
     target = os.path.normpath(os.path.join(str(tree), relative))
     real_parent = os.path.realpath(os.path.dirname(target))

@@ -322,11 +322,14 @@ def certify(*, M, q, a, loss, penalties, names, requirements: list[Requirement],
         g = gradient(uu, terms)
         if not free_ok(g):
             return -np.inf
+        drop = 0.0
         if N.shape[1]:
-            g = g - N @ (N.T @ g)      # what is left along the free directions is round-off
+            left = N @ (N.T @ g)       # what is left along the free directions is round-off; its
+            g = g - left               # share of the Lagrangian at the point is charged to the bound
+            drop = abs(float(left @ theta))
         s, inner_val = inf_penalty(g[:d], penalties, names)
         su = s * uu
-        value = float(-a @ loss.conjugate(su) - (a * su) @ q + s * terms[1] + inner_val)
+        value = float(-a @ loss.conjugate(su) - (a * su) @ q + s * terms[1] + inner_val) - drop
         return value if np.isfinite(value) else -np.inf
 
     # The dual point must meet T g = t exactly: free directions (T = N', t = 0) or the bound is
