@@ -28,6 +28,7 @@ from learnopt.scale.partitions import compile_rules
 from learnopt.selection.crossval import cross_validate
 from learnopt.selection.paths import path
 from learnopt.scale.cluster import ClusterSettings
+from learnopt.solve.by_group import GroupFits, fit_by
 from learnopt.solve.fit import Fit
 from learnopt.solve.loop import compare
 from learnopt.solve.screening import solve_screened
@@ -176,6 +177,16 @@ class Task(Problem):
         return cross_validate(self, folds, grid, metric, seed, groups, ordered=ordered, penalty=penalty, n=n,
                               ratio=ratio, route=route, solver=solver, tol=tol, gap_tol=gap_tol,
                               feas_tol=feas_tol, progress=progress)
+
+    def fit_by(self, column: str, *, jobs: int | None = None, progress: bool | None = None, tol: float = 1e-9,
+               gap_tol: float = 1e-7, feas_tol: float = 1e-6) -> GroupFits:
+        """One fit per group: this task (loss, penalties, rules) fitted on the rows of each value of
+        ``column``, each rule compiled again on that group's rows, each fit certified; a
+        :class:`~learnopt.solve.by_group.GroupFits` with one table of fits and a predict that sends
+        each new row to its group's coefficients. ``jobs``: worker processes (-1: one per core;
+        None: every core beyond 200 groups)."""
+        self._in_memory("fit_by()")
+        return fit_by(self, column, jobs=jobs, progress=progress, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
 
     def compare(self, solvers: Sequence[str] = ("clarabel", "osqp", "scs", "ecos", "highs"), *,
                 tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6):

@@ -20,7 +20,7 @@ parameter space"). No p-values are given for constrained or penalised fits.
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -28,11 +28,11 @@ import pandas as pd
 from learnopt.core import checks as params
 from learnopt.core.files import json_ready
 from learnopt.core.errors import DataError, LearnoptError
-from learnopt.core.progress import ProgressBar
 from learnopt.core.status import CAUTION, Status
-from learnopt.data.table import new_design, take_rows
+from learnopt.data.table import new_design
 from learnopt.rules.objects import compile_all
-from learnopt.rules.requirements import Context, NoRows
+from learnopt.rules.requirements import Context
+from learnopt.solve.subsets import solve_on_rows
 
 EDGE_SHARE = 0.05   # a coefficient on an edge in at least this share of refits is flagged
 ZERO_CUT = 1e-8     # |w_j| <= ZERO_CUT * max(1, max |w|) counts as exactly zero
@@ -173,41 +173,6 @@ def _group_labels(ds, groups):
 
 
 # ---------------------------------------------------------------- one refit
-def _rebuild(task, rows: np.ndarray, unit_weights: bool):
-    """The task on the drawn rows, each rule compiled again on them. Rules whose rows were not
-    drawn (a 'where' that selects none of the drawn rows) are left out and named."""
-    ds = take_rows(task.dataset, rows)
-    if unit_weights:
-        ds = replace(ds, weights=np.ones(len(rows)))
-    sub = replace(task, dataset=ds, requirements=(), row_rules=())
-    ctx = sub.context()
-    reqs, absent = [], []
-    for spec in task.rules:
-        try:
-            reqs += [replace(r, rule=spec.text) for r in spec.compile(ctx)]
-        except NoRows:
-            absent.append(spec.text)
-    return replace(sub, requirements=tuple(reqs)), absent
-
-
-def refit_many(task, draws, unit_weights: bool, options: dict) -> list[dict]:
-    """Refit on each drawn row set; plain results (picklable, for worker processes)."""
-    out = []
-    for rows in draws:
-        t0 = time.perf_counter()
-        try:
-            sub, absent = _rebuild(task, rows, unit_weights)
-            fit = sub.solve(progress=False, **options)     # options carry the full fit's point as start
-        except LearnoptError as exc:
-            out.append({"status": Status.FAILED.value, "theta": None, "binding": {}, "absent": [],
-                        "message": str(exc), "seconds": time.perf_counter() - t0})
-            continue
-        theta = fit.theta if fit.status.has_point else None
-        out.append({"status": fit.status.value, "theta": theta, "binding": dict(fit.binding.items()),
-                    "absent": absent, "message": fit.message, "seconds": time.perf_counter() - t0})
-    return out
-
-
 # ---------------------------------------------------------------- the verb
 def bootstrap(fit, n: int = 200, *, seed: int = 0, method: str | None = None, groups=None,
               level: float = 0.9, jobs: int | None = None, progress: bool | None = None,
@@ -236,7 +201,7 @@ def bootstrap(fit, n: int = 200, *, seed: int = 0, method: str | None = None, gr
     if jobs is None:      # worker processes pay for themselves only when the refits take a while
         jobs = -1 if n * float(fit.timings.total) > PARALLEL_AFTER else 1
     t0 = time.perf_counter()
-    results = _run(task, draws, unit, options, int(jobs), progress)
+    results = solve_on_rows(task, draws, unit, options, int(jobs), progress, "bootstrap refits")
     seconds = time.perf_counter() - t0
     return _collect(fit, results, how, float(level), int(seed), seconds, feas_tol)
 
@@ -253,32 +218,6 @@ def _refitable(fit) -> None:
     if not fit.status.has_point:
         raise DataError(f"bootstrap(): the fit has status {fit.status.value!r} and no point to compare refits "
                         f"with: {fit.message}")
-
-
-def _run(task, draws, unit, options, jobs, progress) -> list[dict]:
-    bar = ProgressBar(len(draws), "bootstrap refits", progress)
-    try:
-        if jobs == 1:
-            out = []
-            for k in range(0, len(draws), 10):
-                out += refit_many(task, draws[k:k + 10], unit, options)
-                bar.step(len(draws[k:k + 10]))
-            return out
-        from joblib import Parallel, delayed, effective_n_jobs
-        workers = effective_n_jobs(jobs)
-        chunks = [draws[k::workers * 4] for k in range(workers * 4)]
-        done = Parallel(n_jobs=workers, return_as="generator")(
-            delayed(refit_many)(task, chunk, unit, options) for chunk in chunks)
-        parts = []
-        for part in done:
-            parts.append(part)
-            bar.step(len(part))
-        out = [None] * len(draws)
-        for k, part in enumerate(parts):          # undo the striding: refit j is chunk j % m, place j // m
-            out[k::workers * 4] = part
-        return out
-    finally:
-        bar.close()
 
 
 def _collect(fit, results, how, level, seed, seconds, feas_tol) -> Bootstrap:
