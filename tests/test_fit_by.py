@@ -103,3 +103,37 @@ def test_unknown_groups_in_new_rows_are_named():
     fits = lo.regression(frame, "y", features=FEATURES).fit_by("store", jobs=1, progress=False)
     with pytest.raises(LearnoptError, match="store 99"):
         fits.predict(frame.head(2).assign(store="store 99"))
+
+
+def test_a_recipe_fits_by_group_and_writes_the_table(tmp_path):
+    # the recipe action by_group: the same table as task.fit_by in Python
+    import json
+    import shutil
+    from pathlib import Path
+    from click.testing import CliRunner
+    from learnopt.interface.cli import main
+    recipes = Path(__file__).resolve().parent.parent / "recipes"
+    shutil.copytree(recipes / "data", tmp_path / "data")
+    src = (recipes / "deliveries.toml").read_text()
+    src = src.replace('action = "solve"', 'action = "by_group"\nby = "segment"')
+    src = src.replace("[outputs]", "[outputs]\ngroups = \"out/by-segment.csv\"")
+    src = src.replace("\"prediction >= service_floor where segment == 'retail'\",", "")
+    (tmp_path / "r.toml").write_text(src)
+    out = CliRunner().invoke(main, ["run", str(tmp_path / "r.toml"), "--json"])
+    assert out.exit_code == 0, out.output
+    data = json.loads(out.output)["by_group"]
+    table = pd.read_csv(tmp_path / "out" / "by-segment.csv", index_col="segment")
+    assert data["groups"] == len(table) >= 2 and data["certified"] == len(table)
+    from learnopt.interface.jobs import training_task
+    from learnopt.interface.recipes import read_recipe
+    task, _ = training_task(read_recipe(tmp_path / "r.toml"))      # the training rows (a holdout is set aside)
+    direct = task.fit_by("segment", jobs=1, progress=False).table
+    assert np.allclose(table["objective"].to_numpy(), direct["objective"].to_numpy(), rtol=1e-7)
+    assert "One fit per segment" in (tmp_path / "out" / "deliveries-report.html").read_text()
+
+
+def test_recipe_by_needs_the_action():
+    from learnopt.interface.recipes import recipe_from
+    raw = {"data": {"path": "d.csv"}, "task": {"kind": "regression", "target": "y"}, "do": {"by": "store"}}
+    with pytest.raises(LearnoptError, match="do.by"):
+        recipe_from(raw)

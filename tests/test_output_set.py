@@ -138,7 +138,8 @@ def test_property_an_accepted_output_lands_inside_after_links(tree, parts, key):
                                                "regression", **({"k": 2} if key in ("centres", "assignments")
                                                                else {"target": "y"})},
            "outputs": {key: relative},
-           **({"uncertainty": {"refits": 10}} if key == "uncertainty" else {})}   # something to write there
+           **({"uncertainty": {"refits": 10}} if key == "uncertainty" else {}),     # something to write there
+           **({"do": {"action": "by_group", "by": "g"}} if key == "groups" else {})}
     recipe = recipe_from(raw, folder=str(tree))
     target = os.path.normpath(os.path.join(str(tree), relative))
     real_parent = os.path.realpath(os.path.dirname(target))

@@ -27,6 +27,7 @@ from learnopt.interface import jobs
 from learnopt.interface.demo import write_demo
 from learnopt.interface.output_set import ANYWHERE, examine, plan
 from learnopt.interface.recipes import read_recipe
+from learnopt.interface.report_sure import SHOWN_GROUPS
 from learnopt.solve.fitfile import to_dict
 from learnopt.solve.standing import gauge
 from learnopt.solve.solvers import REGISTRY as SOLVERS
@@ -170,6 +171,8 @@ def _show(job, as_json: bool) -> None:
             out["evaluation"] = job.evaluation.to_dict()
         if job.bootstrap is not None or job.intervals is not None:
             out["uncertainty"] = jobs.uncertainty_dict(job)
+        if job.by_group is not None:
+            out["by_group"] = job.by_group.to_dict()
         click.echo(json.dumps(out, default=str))
         return
     con = _console()
@@ -210,6 +213,12 @@ def _show(job, as_json: bool) -> None:
         if job.evaluation.rules is not None and len(job.evaluation.rules):
             con.print(_frame_table(job.evaluation.rules.drop(columns="note"), "rules on the held-out rows"))
     _show_sure(con, job)
+    if job.by_group is not None:
+        g = job.by_group
+        shown = g.table.drop(columns=["message", "rules_left_out"]).head(SHOWN_GROUPS)
+        con.print(_frame_table(shown, f"one fit per {g.column}: {g.certified} of {len(g.table)} certified, "
+                                      f"{g.seconds:.1f} s" + (f" (first {SHOWN_GROUPS} shown)"
+                                                              if len(g.table) > SHOWN_GROUPS else "")))
     _show_written(con, job)
     con.print(CAUTION, markup=False)
 

@@ -28,6 +28,7 @@ class Job:
     compare: pd.DataFrame | None = None
     path: object = None
     evaluation: object = None
+    by_group: object = None             # one fit per group (action by_group)
     bootstrap: object = None            # refits on resampled rows (uncertainty.refits)
     intervals: object = None            # prediction intervals calibrated on half the held-out rows
     coverage: dict | None = None        # ... and their coverage measured on the other half
@@ -114,6 +115,8 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     action = action or recipe.do.action
     if action == "compare":
         job.compare = task.compare(list(solvers or recipe.do.solvers), **opts)
+    if action == "by_group":
+        job.by_group = task.fit_by(recipe.do.by, tol=s.tol, gap_tol=s.gap_tol, feas_tol=s.feas_tol)
     if action == "path":
         job.path = task.path(recipe.do.penalty if task.penalties else None,
                              grid=grid if grid is not None else recipe.do.grid, n=n or recipe.do.n,
@@ -176,6 +179,10 @@ def _outputs(job: Job, frame, report: str | None) -> None:
     if out.uncertainty and (job.bootstrap is not None or job.intervals is not None):
         path = recipe.resolve(out.uncertainty)
         write_atomic(path, json.dumps({"run": job.run_id, **uncertainty_dict(job)}, indent=2, default=str))
+        job.written.append(path)
+    if out.groups and job.by_group is not None:
+        path = recipe.resolve(out.groups)
+        write_atomic(path, job.by_group.table.to_csv())
         job.written.append(path)
     if out.path and job.path is not None:
         path = recipe.resolve(out.path)

@@ -33,8 +33,8 @@ from learnopt.core.errors import OutputError
 from learnopt.core.files import not_writable, sha256_of, write_atomic
 from learnopt.data.gateway import is_sharded_source
 
-OUTPUT_KEYS = ("fit", "coefficients", "predictions", "path", "compare", "uncertainty", "centres", "assignments",
-               "report")
+OUTPUT_KEYS = ("fit", "coefficients", "predictions", "path", "compare", "uncertainty", "groups", "centres",
+               "assignments", "report")
 RECORD_KEY = "the run record"
 RECORD_FORMAT = "learnopt-run-record"
 ANYWHERE = "--write-anywhere"

@@ -41,7 +41,7 @@ try:
 except ImportError as exc:  # pragma: no cover - exercised only without pydantic
     raise MissingDependencyError("Recipes need pydantic: pip install 'learnopt[cli]'.") from exc
 
-ACTIONS = ("solve", "compare", "path")
+ACTIONS = ("solve", "compare", "path", "by_group")
 LOSS_NAMES = tuple(dict.fromkeys(name for kind in KINDS for name in for_kind(kind)))
 KEYS = {"names": "order"}          # constructor keyword -> recipe key, where they differ
 OLD_KEYS = {"weights": "factors"}  # penalty keys renamed in this release: old -> new
@@ -205,6 +205,7 @@ class DoPart(_Strict):
     grid: list[float] | None = None
     n: int = Field(default=30, ge=2, le=500)
     holdout: HoldoutPart | None = None
+    by: str | None = Field(default=None, description="by_group: the column whose values are the groups")
 
 
 class UncertaintyPart(_Strict):
@@ -223,6 +224,7 @@ class OutputsPart(_Strict):
     compare: str | None = Field(default=None, description="solver table (CSV), when the action is compare")
     report: str | None = None
     uncertainty: str | None = Field(default=None, description="refit and prediction intervals (JSON)")
+    groups: str | None = Field(default=None, description="one fit per group (CSV), when the action is by_group")
     centres: str | None = Field(default=None, description="centres table (CSV), centres recipes")
     assignments: str | None = Field(default=None, description="centre of each point (CSV), centres recipes")
 
@@ -249,6 +251,12 @@ class Recipe(_Strict):
 
     def _uncertainty_problems(self) -> list[str]:
         u, out = self.uncertainty, []
+        if (self.do.action == "by_group") != (self.do.by is not None) and self.task.kind != "centres":
+            out.append("do.by: the action by_group needs the group column (by = \"store\"), and by is only read "
+                       "by that action; give both or neither")
+        if self.outputs.groups is not None and self.do.action != "by_group":
+            out.append("outputs.groups: only the action by_group writes one fit per group; remove the key or set "
+                       "do.action = \"by_group\"")
         if self.outputs.uncertainty is not None and not (u.refits or u.intervals):
             out.append("outputs.uncertainty: nothing to write; give uncertainty.refits or uncertainty.intervals")
         if not u.model_fields_set:

@@ -9,7 +9,7 @@ import pandas as pd
 
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface.provenance import provenance, provenance_html
-from learnopt.interface.report_sure import group_picture, interval_parts, refit_parts
+from learnopt.interface.report_sure import group_fit_parts, group_picture, interval_parts, refit_parts
 from learnopt.interface.report_blocks import figure, fmt, page, png, standing, table
 from learnopt.interface.report_pictures import (
     argument_counts, coverage, draw_coefficients, draw_coverage, draw_histogram, draw_means, draw_path,
@@ -215,6 +215,8 @@ def html(job) -> str:
         parts += refit_parts(job.bootstrap)
     if job.intervals is not None:
         parts += interval_parts(job.intervals, job.coverage)
+    if job.by_group is not None:
+        parts += group_fit_parts(job.by_group)
     if job.path is not None:
         chosen = path_strength(job)
         parts.append(figure("Path", png(lambda ax: draw_path(ax, job.path, chosen), alt="coefficient path"),

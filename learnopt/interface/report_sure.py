@@ -95,3 +95,18 @@ def draw_groups(ax, groups: pd.DataFrame, cols: list[str]) -> None:
                 color=colours[k % 3], label=c.replace("_", " "))
     ax.set_yticks(y, names)
     ax.legend(loc="lower center", bbox_to_anchor=(0.5, 1.0), ncol=len(cols), fontsize=8, frameon=False)
+
+
+SHOWN_GROUPS = 30     # group fits listed in the report and on the terminal (the CSV holds them all)
+
+
+def group_fit_parts(fits) -> list[str]:
+    """One fit per group: the counts, and the first groups' fits."""
+    shown = fits.table.drop(columns=["message"])
+    failed = len(shown) - fits.certified
+    return [f"<h2>One fit per {_html.escape(str(fits.column))}</h2>",
+            f"<p>{len(shown)} groups, each fitted on its own rows with every rule compiled again there; "
+            f"{fits.certified} certified{f', {failed} not' if failed else ''}; {fits.seconds:.2f} s."
+            + (f" The first {SHOWN_GROUPS} are listed; the groups output (CSV) holds them all." if len(shown) >
+               SHOWN_GROUPS else "") + "</p>",
+            table(shown.head(SHOWN_GROUPS))]
