@@ -137,3 +137,21 @@ def test_recipe_by_needs_the_action():
     raw = {"data": {"path": "d.csv"}, "task": {"kind": "regression", "target": "y"}, "do": {"by": "store"}}
     with pytest.raises(LearnoptError, match="do.by"):
         recipe_from(raw)
+
+
+def test_groups_of_one_shape_share_one_compiled_problem_and_agree_with_fits_alone():
+    # squared loss, an l1 penalty and a rule on coefficients: every group has the same shape, so
+    # one problem is compiled and re-solved; each answer equals the group's own fit (independent build)
+    from learnopt.solve import by_group
+    frame = _stores(groups=5)
+    task = lo.regression(frame, "y", features=FEATURES).penalize(lo.penalty.l1(0.05)).require("x0 >= 0.3", "x1 + x2 <= 1")
+    by_group.COMPILED.clear()
+    fits = task.fit_by("store", jobs=1, progress=False)
+    assert len(by_group.COMPILED) == 1
+    for store, part in frame.groupby("store"):
+        alone = lo.regression(part, "y", features=FEATURES).penalize(lo.penalty.l1(0.05)) \
+            .require("x0 >= 0.3", "x1 + x2 <= 1").solve()
+        row = fits.table.loc[store]
+        assert row["status"] == "optimal"
+        assert row["objective"] == pytest.approx(alone.objective, rel=1e-7)
+        assert np.allclose(row[list(task.coefficient_names)].to_numpy(dtype=float), alone.theta, atol=1e-5)

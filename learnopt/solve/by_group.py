@@ -19,9 +19,13 @@ from learnopt.core.errors import DataError
 from learnopt.core.files import json_ready
 from learnopt.core.status import CAUTION, Status
 from learnopt.data.table import new_design
-from learnopt.solve.subsets import solve_on_rows
+from learnopt.solve.loop import solve_task
+from learnopt.solve.routes.base import Settings
+from learnopt.solve.routes.shared import Shared, shape
+from learnopt.solve.subsets import on_rows, outcome, solve_on_rows
 
 PARALLEL_AFTER = 200     # groups before jobs=None uses every core
+COMPILED: dict = {}      # this process's compiled problem, by shape (kept across calls and worker tasks)
 FIT_COLUMNS = ("status", "objective", "gap", "rel_gap", "rows", "seconds")
 
 
@@ -86,6 +90,30 @@ class GroupFits:
         return f"GroupFits({len(self.table)} groups by {self.column!r}, certified={self.certified})"
 
 
+def solve_groups(task, row_sets, unit_weights: bool, options: dict) -> list[dict]:
+    """Each group's task, solved on one problem compiled once when the groups share its shape
+    (squared loss, linear rules with as many rows in every group), else solved the usual way."""
+    settings = Settings(tol=options.get("tol", 1e-9), gap_tol=options.get("gap_tol", 1e-7),
+                        feas_tol=options.get("feas_tol", 1e-6))
+    out = []
+    for rows in row_sets:
+        t0 = time.perf_counter()
+        sub, absent = on_rows(task, rows, unit_weights)
+        kind = shape(sub)
+        if kind is not None and kind not in COMPILED:
+            COMPILED.clear()                                # one shape at a time is what fit_by meets
+            COMPILED[kind] = Shared(sub)
+        shared = COMPILED.get(kind)
+        if kind is None:
+            fit = sub.solve(progress=False, **options)
+        else:
+            fit = solve_task(sub, settings, runner=shared.runner(sub))
+            if fit.status != Status.OPTIMAL:
+                fit = sub.solve(progress=False, **options)      # the usual way, with its fallbacks
+        out.append(outcome(fit, absent, len(rows), time.perf_counter() - t0))
+    return out
+
+
 def fit_by(task, column, *, jobs: int | None = None, progress: bool | None = None, tol: float = 1e-9,
            gap_tol: float = 1e-7, feas_tol: float = 1e-6) -> GroupFits:
     """Fit ``task`` on each group's rows; see the module docstring and :class:`GroupFits`."""
@@ -112,7 +140,8 @@ def fit_by(task, column, *, jobs: int | None = None, progress: bool | None = Non
         jobs = -1 if len(groups) > PARALLEL_AFTER else 1
     options = dict(tol=tol, gap_tol=gap_tol, feas_tol=feas_tol)
     t0 = time.perf_counter()
-    results = solve_on_rows(task, row_sets, False, options, int(jobs), progress, f"fits by {column}")
+    results = solve_on_rows(task, row_sets, False, options, int(jobs), progress, f"fits by {column}",
+                            each=solve_groups)
     seconds = time.perf_counter() - t0
     names = list(task.coefficient_names)
     theta = np.array([r["theta"] if r["theta"] is not None else np.full(len(names), np.nan) for r in results])

@@ -47,29 +47,36 @@ def solve_each(task, row_sets, unit_weights: bool, options: dict) -> list[dict]:
                         "rel_gap": np.nan, "binding": {}, "absent": [], "message": str(exc), "rows": len(rows),
                         "seconds": time.perf_counter() - t0})
             continue
-        out.append({"status": fit.status.value, "theta": fit.theta if fit.status.has_point else None,
-                    "objective": fit.objective, "gap": fit.gap, "rel_gap": fit.rel_gap,
-                    "binding": dict(fit.binding.items()), "absent": absent, "message": fit.message,
-                    "rows": len(rows), "seconds": time.perf_counter() - t0})
+        out.append(outcome(fit, absent, len(rows), time.perf_counter() - t0))
     return out
 
 
-def solve_on_rows(task, row_sets, unit_weights: bool, options: dict, jobs: int, progress, label: str) -> list[dict]:
-    """:func:`solve_each` over every row set, in order; ``jobs`` worker processes (1: here;
-    -1: one per core), shared out in strides so each worker gets a mix of early and late sets."""
+def outcome(fit, absent: list, rows: int, seconds: float) -> dict:
+    """A fit as plain data (what crosses back from a worker process)."""
+    return {"status": fit.status.value, "theta": fit.theta if fit.status.has_point else None,
+            "objective": fit.objective, "gap": fit.gap, "rel_gap": fit.rel_gap,
+            "binding": dict(fit.binding.items()), "absent": absent, "message": fit.message,
+            "rows": rows, "seconds": seconds}
+
+
+def solve_on_rows(task, row_sets, unit_weights: bool, options: dict, jobs: int, progress, label: str,
+                  each=solve_each) -> list[dict]:
+    """``each`` (default :func:`solve_each`) over every row set, in order; ``jobs`` worker
+    processes (1: here; -1: one per core), shared out in strides so each worker gets a mix of
+    early and late sets."""
     bar = ProgressBar(len(row_sets), label, progress)
     try:
         if jobs == 1:
             out = []
             for k in range(0, len(row_sets), 10):
-                out += solve_each(task, row_sets[k:k + 10], unit_weights, options)
+                out += each(task, row_sets[k:k + 10], unit_weights, options)
                 bar.step(len(row_sets[k:k + 10]))
             return out
         from joblib import Parallel, delayed, effective_n_jobs
         parts = effective_n_jobs(jobs) * 4
         chunks = [row_sets[k::parts] for k in range(parts)]
         done = Parallel(n_jobs=effective_n_jobs(jobs), return_as="generator")(
-            delayed(solve_each)(task, chunk, unit_weights, options) for chunk in chunks)
+            delayed(each)(task, chunk, unit_weights, options) for chunk in chunks)
         out = [None] * len(row_sets)
         for k, part in enumerate(done):          # undo the striding: set j is chunk j % parts, place j // parts
             out[k::parts] = part
