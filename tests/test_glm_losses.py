@@ -15,6 +15,8 @@ import statsmodels.api as sm
 from sklearn.linear_model import GammaRegressor, PoissonRegressor, TweedieRegressor
 
 import learnopt as lo
+from click.testing import CliRunner
+from learnopt.interface.cli import main
 from learnopt.terms.count_losses import tweedie_root
 
 TIGHT = dict(tol=1e-12, gap_tol=1e-12)
@@ -320,6 +322,17 @@ def test_recipe_with_poisson_and_exposure_runs(tmp_path):
     twin = lo.regression(frame, "claims", lo.loss.poisson(), exposure="years").require("urban >= 0").solve()
     assert fit.status == "optimal" and "years" not in task.features
     np.testing.assert_allclose(fit.theta, twin.theta, rtol=1e-9)
+    # the command line: held-out rows (their exposure read from the same column), model file, report
+    (tmp_path / "run.toml").write_text(
+        '[data]\npath = "claims.csv"\n\n[task]\nkind = "regression"\ntarget = "claims"\nexposure = "years"\n\n'
+        '[task.loss]\nname = "poisson"\n\n[do]\naction = "solve"\nholdout = { fraction = 0.2, seed = 3 }\n\n'
+        '[outputs]\nfit = "out/fit.json"\nreport = "out/report.html"\n')
+    out = CliRunner().invoke(main, ["run", str(tmp_path / "run.toml")])
+    assert out.exit_code == 0, out.output
+    back = lo.load_fit(tmp_path / "out" / "fit.json")
+    assert back.status == "optimal" and back.task.loss == lo.loss.poisson()
+    page = (tmp_path / "out" / "report.html").read_text()
+    assert "offset_i" in page and "Training residuals" in page and "Held-out evaluation" in page
     (tmp_path / "tweedie.toml").write_text(
         '[data]\npath = "claims.csv"\n\n[task]\nkind = "regression"\ntarget = "claims"\noffset = "years"\n\n'
         '[task.loss]\nname = "tweedie"\npower = 1.4\n')
@@ -336,3 +349,21 @@ def test_evaluate_reports_errors_of_the_mean_and_the_half_deviance():
     # source: statsmodels' Poisson unit deviance (mean over rows, halved)
     assert ev["loss"] == pytest.approx(0.5 * np.mean(sm.families.Poisson().resid_dev(y, mu) ** 2), rel=1e-10)
     assert ev["loss"] == pytest.approx(fit.objective, rel=1e-10)
+
+
+def test_path_cross_validation_and_refits_carry_the_exposure():
+    # every point of a path is certified; folds and refits keep each row's exposure with the row
+    rng = np.random.default_rng(8)
+    n = 300
+    frame = pd.DataFrame(rng.normal(size=(n, 3)), columns=["a", "b", "c"]).assign(years=rng.uniform(0.5, 2.0, n))
+    frame["claims"] = rng.poisson(frame["years"] * np.exp(0.5 * frame["a"] - 0.3 * frame["b"]))
+    task = lo.regression(frame, "claims", "poisson", exposure="years").penalize(lo.penalty.l1(0.01))
+    walk = task.path(n=8)
+    assert all(f.status == "optimal" for f in walk.fits)
+    cv = task.cross_validate(folds=3, n=5)
+    assert cv.table["certified_folds"].min() == 3
+    boot = task.solve().bootstrap(20, seed=1)
+    assert boot is not None
+    # the top of the path zeroes every coefficient: the intercept alone is then log(sum y / sum years)
+    top = walk.fits[0]
+    assert np.allclose(top.coef, 0.0) and top.intercept == pytest.approx(np.log(frame["claims"].sum() / frame["years"].sum()), rel=1e-7)

@@ -259,7 +259,8 @@ class RowLoss:
         return a @ self.loss.expr(z, self.y)
 
     def value(self, z):
-        return self.loss.value(z, self.y)
+        with np.errstate(over="ignore"):      # a line search's trial point far out: the value is inf
+            return self.loss.value(z, self.y)
 
     def gradient(self, z):
         return self.loss.gradient(z, self.y)
