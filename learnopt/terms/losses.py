@@ -56,8 +56,8 @@ from learnopt.core.checks import nearest
 
 __all__ = [
     "Loss", "squared", "absolute", "huber", "quantile", "epsilon_insensitive", "hinge",
-    "squared_hinge", "logistic", "poisson", "gamma", "tweedie", "zero_one", "custom", "by_name", "for_kind", "LOSSES", "LossSpec",
-    "KINDS", "CONES",
+    "squared_hinge", "logistic", "poisson", "gamma", "tweedie", "zero_one", "custom", "by_name", "for_kind",
+    "LOSSES", "LossSpec", "KINDS", "CONES",
     # the classes (model files name them; isinstance checks use them)
     "Squared", "Absolute", "Huber", "Quantile", "EpsilonInsensitive", "Hinge", "SquaredHinge", "Logistic",
     "Poisson", "Gamma", "Tweedie", "LogLink", "ZeroOne", "Custom", "NotConvexError", "ParameterError",
