@@ -13,7 +13,9 @@ l1 strength is 2 alpha; LogisticRegression minimises C sum log-loss + |w|^2/2, s
 strength is 1/(2Cn); LinearSVC minimises C sum hinge + |w|^2/2 with the intercept penalised
 as an extra feature (a slightly different problem, so its objective here is not the optimum of
 its own problem); QuantileRegressor minimises mean pinball + alpha|w|_1; HuberRegressor
-estimates a scale jointly (a different problem: its row is timing context, not a race).
+estimates a scale jointly (a different problem: its row is timing context, not a race);
+Poisson/Gamma/TweedieRegressor minimise (1/2n) sum deviance + alpha/2 |w|^2 and learnopt's
+log-link losses are the mean half deviance, so learnopt's l2 strength is alpha/2.
 
 Results are printed and written atomically to benchmarks/results.csv and results.json.
 """
@@ -74,6 +76,10 @@ def _plain_cvxpy(task):
             "hinge": lambda: cp.sum(cp.pos(1 - cp.multiply(y, pred))) / ds.n,
             "huber": lambda: cp.sum(cp.huber(pred - y, task.loss.delta)) / ds.n,
             "quantile": lambda: cp.sum(cp.maximum(task.loss.tau * (y - pred), (task.loss.tau - 1) * (y - pred))) / ds.n,
+            "poisson": lambda: cp.sum(cp.exp(pred) - cp.multiply(y, pred)) / ds.n,
+            "gamma": lambda: cp.sum(cp.multiply(y, cp.exp(-pred)) + pred) / ds.n,
+            "tweedie": lambda: cp.sum(cp.multiply(y / (task.loss.power - 1), cp.exp((1 - task.loss.power) * pred))
+                                      + cp.exp((2 - task.loss.power) * pred) / (2 - task.loss.power)) / ds.n,
             }[task.loss.name]()
     pen = sum(p.expr(w, ds.names) for p in task.penalties) if task.penalties else 0
     cons = [c for r in task.requirements for c in [_constraint(r, w, b)]]
@@ -131,6 +137,22 @@ def case_huber(n, d, delta=1.35):
                   lambda: _sk(HuberRegressor(epsilon=delta, alpha=1e-4 * n, max_iter=1000).fit(X, y))}
 
 
+def case_glm(family, n, d, alpha=1e-3):
+    from sklearn.linear_model import GammaRegressor, PoissonRegressor, TweedieRegressor
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(n, d))
+    mu = np.exp(X @ (rng.normal(size=d) * 0.2) + 0.5)
+    y = rng.gamma(2.0, mu / 2.0) if family == "gamma" else rng.poisson(mu).astype(float)
+    loss, peer = {"poisson": (lo.loss.poisson(), lambda **kw: PoissonRegressor(**kw)),
+                  "gamma": (lo.loss.gamma(), lambda **kw: GammaRegressor(**kw)),
+                  "tweedie": (lo.loss.tweedie(1.5), lambda **kw: TweedieRegressor(power=1.5, link="log", **kw))}[family]
+    task = lo.regression(X, y, loss=loss).penalize(lo.penalty.l2(alpha / 2))
+    label = type(peer()).__name__
+    return task, {f"scikit-learn {label}(lbfgs)": lambda: _sk(peer(alpha=alpha, max_iter=1000).fit(X, y)),
+                  f"scikit-learn {label}(newton-cholesky)":
+                  lambda: _sk(peer(alpha=alpha, solver="newton-cholesky", max_iter=1000).fit(X, y))}
+
+
 def _sk(model):
     return np.ravel(model.coef_), float(np.ravel(model.intercept_)[0]) if np.ndim(model.intercept_) else float(model.intercept_)
 
@@ -146,6 +168,9 @@ def cases(quick: bool):
         "hinge": lambda: case_hinge(20000 // s, 50),
         "quantile": lambda: case_quantile(5000 // s, 20),
         "huber": lambda: case_huber(20000 // s, 50),
+        "poisson": lambda: case_glm("poisson", 20000 // s, 20),
+        "gamma": lambda: case_glm("gamma", 20000 // s, 20),
+        "tweedie": lambda: case_glm("tweedie", 20000 // s, 20),
         "lasso+10 rules": lambda: case_lasso(20000 // s, 200, rules=RULES10),
     }
 

@@ -18,18 +18,25 @@ NAMES = EXAMPLE_NAMES
 PENALTIES = [ex for spec in lo.penalty.PENALTIES.values() for ex in spec.examples]
 FIRST_PENALTIES = [spec.examples[0] for spec in lo.penalty.PENALTIES.values()]
 Z = np.linspace(-3.0, 3.0, 41)
+TARGET = 1.3     # every row's target, for the losses that hold one (inside every family's support)
+
+
+def per_row(loss, n):
+    """The loss on n rows (losses of the linear predictor bind a target per row; others are unchanged)."""
+    return loss.given(np.full(n, TARGET))
 
 
 @pytest.mark.parametrize("loss", LOSSES, ids=lambda l: l.describe())
 def test_numpy_value_equals_cvxpy_value(loss):
     z = cp.Variable(Z.size)
     z.value = Z
-    np.testing.assert_allclose(loss.expr(z).value, loss.value(Z), rtol=1e-12, atol=1e-12)
+    rows = per_row(loss, Z.size)
+    np.testing.assert_allclose(rows.expr(z).value, rows.value(Z), rtol=1e-12, atol=1e-12)
 
 
 @pytest.mark.parametrize("loss", LOSSES, ids=lambda l: l.describe())
 def test_declared_facts_match_cvxpy(loss):
-    expr = loss.expr(cp.Variable(5))
+    expr = per_row(loss, 5).expr(cp.Variable(5))
     assert expr.is_convex()
     assert expr.is_pwl() == (loss.cone == "linear")
 
@@ -38,19 +45,21 @@ def test_declared_facts_match_cvxpy(loss):
 def test_fenchel_young(loss):
     # f(z) + f*(u) >= z u for u in dom f*, with equality at u = f'(z) (common practice: Fenchel-Young)
     rng = np.random.default_rng(0)
-    low, high = loss.dual_domain()
+    one, many, on_z = per_row(loss, 1), per_row(loss, 200), per_row(loss, Z.size)
+    low, high = (float(np.max(end)) for end in one.dual_domain())
     u = rng.uniform(max(low, -5), min(high, 5), size=200)
     for z in Z:
-        assert np.all(loss.value(np.array([z])) + loss.conjugate(u) >= z * u - 1e-12)
-    g = loss.gradient(Z)
-    np.testing.assert_allclose(loss.value(Z) + loss.conjugate(g), Z * g, atol=1e-10)
-    assert np.all(np.isinf(loss.conjugate(np.array([high + 1.0])))) or not np.isfinite(high)
+        assert np.all(one.value(np.array([z])) + many.conjugate(u) >= z * u - 1e-12)
+    g = on_z.gradient(Z)
+    np.testing.assert_allclose(on_z.value(Z) + on_z.conjugate(g), Z * g, atol=1e-10)
+    assert np.all(np.isinf(one.conjugate(np.array([high + 1.0])))) or not np.isfinite(high)
 
 
 @pytest.mark.parametrize("loss", [l for l in LOSSES if l.smooth], ids=lambda l: l.describe())
 def test_gradient_matches_finite_differences(loss):
     z = Z[np.abs(np.abs(Z) - 0.7) > 0.05]
     h = 1e-6
+    loss = per_row(loss, z.size)
     fd = (loss.value(z + h) - loss.value(z - h)) / (2 * h)
     np.testing.assert_allclose(loss.gradient(z), fd, atol=1e-5)
 
@@ -60,6 +69,7 @@ def test_curvature_matches_finite_differences(loss):
     # the newton route's Hessian: f'' by central differences of f', away from the kinks of f'
     z = Z[(np.abs(np.abs(Z) - 0.7) > 0.05) & (np.abs(Z - 1.0) > 0.05)]
     h = 1e-6
+    loss = per_row(loss, z.size)
     fd = (loss.gradient(z + h) - loss.gradient(z - h)) / (2 * h)
     np.testing.assert_allclose(loss.curvature(z), fd, atol=1e-5)
 
@@ -108,12 +118,20 @@ def test_certificate_bounds_suboptimality_classification(loss, pen):
     _check_certificate(loss, pen, classify=True)
 
 
-def _check_certificate(loss, pen, classify):
+@pytest.mark.parametrize("loss", [l for l in LOSSES if l.argument == "linear"], ids=lambda l: l.describe())
+@pytest.mark.parametrize("pen", [None] + FIRST_PENALTIES, ids=lambda p: "none" if p is None else p.describe())
+def test_certificate_bounds_suboptimality_log_link(loss, pen):
+    _check_certificate(loss, pen, classify=False, counts=True)
+
+
+def _check_certificate(loss, pen, classify, counts=False):
     # the certificate is a valid bound: P(loose) - P(tight) <= gap(loose); tight solves certify
     rng = np.random.default_rng(7)
     X = rng.normal(size=(60, 4))
     signal = X @ np.array([1.0, -0.5, 0.0, 2.0]) + 0.5 * rng.normal(size=60)
     y = np.where(signal > 0, 1, 0) if classify else signal
+    if counts:                       # counts (with zeros) or positive amounts for the log-link losses
+        y = rng.poisson(np.exp(signal / 3)) + (0.5 if loss.name == "gamma" else 0.0)
     build = lo.classification if classify else lo.regression
     task = build(X, y, loss=loss, features=NAMES).require("a + b <= 1.5", "d >= -5")
     if pen is not None:
@@ -150,16 +168,19 @@ def test_by_name_knows_every_row_and_alias():
 
 
 def test_for_kind_lists_the_fittable_losses_of_each_kind():
-    assert lo.loss.for_kind("regression") == ("squared", "absolute", "huber", "quantile", "epsilon_insensitive")
+    assert lo.loss.for_kind("regression") == ("squared", "absolute", "huber", "quantile", "epsilon_insensitive",
+                                              "poisson", "gamma", "tweedie")
     assert lo.loss.for_kind("classification") == ("squared", "hinge", "squared_hinge", "logistic")
     with pytest.raises(lo.ParameterError, match=r"for_kind\(kind='ranking'\): kind has to be one of 'regression', 'classification'"):
         lo.loss.for_kind("ranking")
 
 
-def _tiny(kind):
+def _tiny(kind, positive=False):
     rng = np.random.default_rng(3)
     X = rng.normal(size=(30, 2))
     y = X @ np.array([1.0, -1.0]) + 0.2 * rng.normal(size=30)
+    if positive and kind == "regression":     # amounts for the log-link losses
+        y = np.exp(y)
     return (X, y) if kind == "regression" else (X, np.where(y > 0, "yes", "no"))
 
 
@@ -168,7 +189,7 @@ def test_each_loss_is_accepted_by_its_kinds_and_refused_by_the_others(name):
     spec = lo.loss.LOSSES[name]
     builders = {"regression": lo.regression, "classification": lo.classification}
     for kind, build in builders.items():
-        X, y = _tiny(kind)
+        X, y = _tiny(kind, positive=spec.factory().argument == "linear")
         for loss in (name, spec.examples[-1]):
             if not spec.convex:
                 with pytest.raises(lo.NotConvexError, match="not convex|non-convex"):

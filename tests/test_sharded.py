@@ -460,3 +460,35 @@ def test_a_recipe_with_a_file_pattern_runs_on_the_cluster(client, tmp_path):
     assert len(predictions) == len(make_data()) and predictions["row"].is_monotonic_increasing
     report = (tmp_path / "out" / "deliveries-report.html").read_text()
     assert "<img" in report and "Training residuals" in report
+
+
+# ----------------------------------------------------------------------------- log-link losses
+
+def test_poisson_and_gamma_on_partitions_equal_the_in_memory_fits(client, tmp_path):
+    # the sharded newton method binds each partition's targets into the loss; the in-memory newton
+    # route is the reference (itself checked against statsmodels in test_glm_losses.py)
+    rng = np.random.default_rng(21)
+    n = 3000
+    X = rng.normal(size=(n, 3))
+    mu = np.exp(X @ [0.3, -0.2, 0.1] + 0.4)
+    frame = pd.DataFrame(X, columns=["a", "b", "c"]).assign(count=rng.poisson(mu).astype(float),
+                                                              amount=rng.gamma(2.0, mu / 2.0))
+    pattern = write_parts(frame, tmp_path, 3)
+    for target, loss in (("count", lo.loss.poisson()), ("amount", lo.loss.gamma())):
+        other = "amount" if target == "count" else "count"
+        sharded = lo.regression(pattern, target, loss, features=["a", "b", "c"]).require("a <= 0.25").solve(
+            client=client)
+        memory = lo.regression(frame.drop(columns=other), target, loss).require("a <= 0.25").solve()
+        assert sharded.status == memory.status == "optimal", sharded.message
+        assert sharded.extras["method"] == "newton"
+        np.testing.assert_allclose(sharded.theta, memory.theta, rtol=1e-6, atol=1e-8)
+        assert rel(sharded.objective, memory.objective) < 1e-9
+
+
+def test_sharded_log_link_refusals(client, tmp_path):
+    frame = pd.DataFrame({"a": np.arange(40.0), "count": np.r_[np.ones(38), -1.0, 2.0], "t": np.ones(40)})
+    pattern = write_parts(frame, tmp_path, 2)
+    with pytest.raises(DataError, match=r"'count' has 1 value.*at least 0"):
+        lo.regression(pattern, "count", "poisson", features=["a"]).solve(client=client)
+    with pytest.raises(ParameterError, match="exposure='t'.*not available for sharded data"):
+        lo.regression(pattern, "count", "poisson", exposure="t")

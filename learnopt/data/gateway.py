@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 
+from learnopt.core.errors import ParameterError
 from learnopt.data.sharded import GLOB_CHARS, open_source, read_glob
 from learnopt.data.table import open_memory, read_table
 
@@ -23,14 +24,24 @@ def is_sharded_source(data) -> bool:
 
 
 def from_data(data, target, *, kind: str = "regression", features=None, weights=None, intercept: bool = True,
-              positive=None):
+              positive=None, offset=None, exposure=None):
     """Validate the inputs of a task: a :class:`~learnopt.data.table.Dataset` for in-memory data,
-    a :class:`~learnopt.data.sharded.ShardedDataset` for a dask DataFrame or a file pattern."""
+    a :class:`~learnopt.data.sharded.ShardedDataset` for a dask DataFrame or a file pattern.
+    ``offset`` / ``exposure`` (in memory only): see :mod:`learnopt.data.offsets`."""
     if is_sharded_source(data):
+        if offset is not None or exposure is not None:
+            what = "offset" if offset is not None else "exposure"
+            raise ParameterError(f"{what}={what_shown(offset if offset is not None else exposure)}: an {what} is "
+                                 f"not available for sharded data yet; load the rows into a pandas DataFrame, or "
+                                 f"fit without it.", parameters=(what,))
         return open_source(data, target, kind=kind, features=features, weights=weights,
                            intercept=intercept, positive=positive)
     return open_memory(data, target, kind=kind, features=features, weights=weights, intercept=intercept,
-                       positive=positive)
+                       positive=positive, offset=offset, exposure=exposure)
+
+
+def what_shown(value) -> str:
+    return repr(value) if isinstance(value, str) else "<array>"
 
 
 def read_source(path):

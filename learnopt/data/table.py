@@ -26,6 +26,7 @@ import scipy.sparse as sp
 from learnopt.core.errors import DataError
 from learnopt.data.encoding import Encoding, column_type, design, encode, finite, real_values
 from learnopt.core.checks import nearest
+from learnopt.data.offsets import column_of, read_offset
 
 
 @dataclass(eq=False)
@@ -40,6 +41,8 @@ class Dataset:
     encoding: Encoding | None
     labels: tuple[Any, Any] | None = None          # (negative, positive) for classification
     notes: list[str] = field(default_factory=list)
+    offset: np.ndarray | None = None               # added to each row's linear predictor
+    offset_source: tuple | None = None             # (kind, column): see learnopt.data.offsets
     sharded: ClassVar[bool] = False
     label: ClassVar[str] = "in-memory data"
 
@@ -172,20 +175,25 @@ def labels_of(values: list, positive, name: str) -> tuple:
 
 
 def open_memory(data, target, *, kind: str = "regression", features: Sequence[str] | None = None,
-                weights=None, intercept: bool = True, positive=None) -> Dataset:
+                weights=None, intercept: bool = True, positive=None, offset=None, exposure=None) -> Dataset:
     """Validate in-memory inputs of a task (a DataFrame, a CSV/Parquet path, a numpy or sparse
-    matrix) and return a :class:`Dataset`."""
+    matrix) and return a :class:`Dataset` (with the offset, when one is given)."""
     if isinstance(data, (str, os.PathLike)):
         data = read_table(data)
     if isinstance(data, pd.DataFrame):
-        return _from_frame(data, target, kind, features, weights, intercept, positive)
-    if isinstance(data, (np.ndarray, list)) or sp.issparse(data):
-        return _from_array(data, target, kind, features, weights, positive)
+        ds = _from_frame(data, target, kind, features, weights, intercept, positive, column_of(offset, exposure))
+    elif isinstance(data, (np.ndarray, list)) or sp.issparse(data):
+        ds = _from_array(data, target, kind, features, weights, positive)
+    else:
+        ds = None
+    if ds is not None:
+        ds.offset, ds.offset_source = read_offset(ds.frame, ds.n, offset, exposure)
+        return ds
     raise DataError(f"Data of type {type(data).__name__} is not supported; give a pandas DataFrame, "
                     f"a CSV/Parquet path, or a numpy / scipy.sparse matrix.")
 
 
-def _from_frame(frame, target, kind, features, weights, intercept, positive) -> Dataset:
+def _from_frame(frame, target, kind, features, weights, intercept, positive, offset_column=None) -> Dataset:
     if frame.shape[0] == 0:
         raise DataError("The data has no rows.")
     unique_columns(frame.columns)
@@ -203,7 +211,8 @@ def _from_frame(frame, target, kind, features, weights, intercept, positive) -> 
             raise DataError(f"The target array has shape {ycol.shape}; it needs one value per row ({len(frame)}).")
         tname = "array"
     w, wcol = _weights(weights, frame, len(frame))
-    features = choose_features(frame.columns, target if isinstance(target, str) else None, wcol, features, intercept)
+    features = choose_features(frame.columns, target if isinstance(target, str) else None, wcol, features, intercept,
+                               offset_column)
     enc = encode(frame, features, intercept)
     X = design(enc, frame)
     y, labels = _target(ycol, kind, positive, tname)
@@ -242,11 +251,12 @@ def reserved_names(features) -> None:
                         f"{bad[0]!r} -> {bad[0].strip('_') + '_value'!r}) so every name means one thing.")
 
 
-def choose_features(columns, target: str | None, weights: str | None, features, intercept: bool) -> list:
+def choose_features(columns, target: str | None, weights: str | None, features, intercept: bool,
+                    offset: str | None = None) -> list:
     """The feature columns: those asked for (checked against ``columns``), or every column but
-    the target and the weights; the same rules in memory and for sharded data."""
+    the target, the weights and the offset; the same rules in memory and for sharded data."""
     if features is None:
-        features = [c for c in columns if c != target and c != weights]
+        features = [c for c in columns if c not in (target, weights, offset)]
     else:
         features = [features] if isinstance(features, str) else list(features)
         missing = [f for f in features if f not in columns]
@@ -255,6 +265,9 @@ def choose_features(columns, target: str | None, weights: str | None, features, 
                             f"{_close(missing[0], columns)} Columns: {', '.join(map(str, columns))}.")
         if target is not None and target in features:
             raise DataError(f"The target {target!r} is also listed as a feature; remove it from features.")
+        if offset is not None and offset in features:
+            raise DataError(f"The offset column {offset!r} is also listed as a feature; its coefficient is fixed "
+                            f"at 1, so remove it from features.")
     if not features and not intercept:
         raise DataError("The task has no features and no intercept; nothing to fit.")
     reserved_names(features)
@@ -380,7 +393,7 @@ def take_rows(ds: Dataset, rows: np.ndarray) -> Dataset:
     rows = np.asarray(rows)
     frame = ds.frame.iloc[rows] if ds.frame is not None else None
     return Dataset(ds.X[rows], ds.y[rows], ds.weights[rows], ds.names, frame, ds.encoding, ds.labels,
-                   list(ds.notes))
+                   list(ds.notes), None if ds.offset is None else ds.offset[rows], ds.offset_source)
 
 
 def design_with_ones(X, intercept: bool):

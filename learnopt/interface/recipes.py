@@ -159,6 +159,8 @@ class TaskPart(_Strict):
     target: str | None = None
     features: list[str] | None = None
     weights: str | None = None
+    offset: str | None = Field(default=None, description="regression: a column added to the linear predictor")
+    exposure: str | None = Field(default=None, description="regression: a column whose log is the offset")
     intercept: bool = True
     positive: str | int | float | bool | None = None
     loss: LossPart | None = None          # none: the Python default (squared / logistic)
@@ -381,7 +383,11 @@ def build_task(recipe: Recipe, frame=None):
     if wrong:
         raise DataError("The recipe's task cannot be built", problems=wrong)
     if t.kind == "regression":
-        task = regression(frame, t.target, loss, features=t.features, weights=t.weights, intercept=t.intercept)
+        task = regression(frame, t.target, loss, features=t.features, weights=t.weights, intercept=t.intercept,
+                          offset=t.offset, exposure=t.exposure)
+    elif t.offset is not None or t.exposure is not None:
+        raise DataError(f"task.{'offset' if t.offset is not None else 'exposure'}: an offset or exposure belongs to "
+                        f"a regression task (kind = \"regression\"); remove the key from this {t.kind} task.")
     else:
         task = classification(frame, t.target, loss, features=t.features, weights=t.weights,
                               intercept=t.intercept, positive=t.positive)

@@ -21,7 +21,8 @@ COMPARE_COLUMNS = ("status", "objective", "gap", "violation", "steps", "total_s"
 
 def _maths(task) -> str:
     f = task.loss.describe()
-    arg = "y_i (x_i'w + b)" if task.loss.argument == "margin" else "x_i'w + b - y_i"
+    arg = {"margin": "y_i (x_i'w + b)", "linear": "x_i'w + b + offset_i; y_i"}.get(task.loss.argument,
+                                                                                 "x_i'w + b - y_i")
     pens = " + ".join(p.describe() for p in task.penalties) or "0"
     return (f"minimise over w{', b' if task.intercept else ''}: &Sigma;<sub>i</sub> a<sub>i</sub> "
             f"{_html.escape(f)}({arg}) + {_html.escape(pens)} subject to the rules below, "
@@ -134,8 +135,9 @@ def _pictures(job) -> list[str]:
         out.append(figure("Predicted against actual", png(lambda ax: draw_predicted_actual(
             ax, *pa, str(task.target_name)), size=(5.0, 4.2), alt="predicted against actual"),
             "Training rows" + (" (a seeded sample)" if len(pa[0]) < task.dataset.n else "") + "."))
-    if has_point(fit):
-        counts, edges = argument_counts(task, fit.theta)
+    counted = argument_counts(task, fit.theta) if has_point(fit) else None
+    if counted is not None:
+        counts, edges = counted
         if task.loss.argument == "margin":
             neg, pos = task.dataset.labels
             label = f"margin y (x'w + b), y = +1 for {pos!r}"
@@ -145,7 +147,8 @@ def _pictures(job) -> list[str]:
                               f"<code>{_html.escape(str(neg))}</code>. Rows left of 0 are misclassified; rows "
                               f"between 0 and 1 are inside the margin."))
         else:
-            label = "residual (prediction - target)"
+            label = ("residual (predicted mean - target)" if task.loss.link == "log"
+                     else "residual (prediction - target)")
             out.append(figure("Training residuals", png(lambda ax: draw_histogram(ax, counts, edges, label, False),
                                                         alt="residual distribution")))
     cov = coverage(task, fit, job.held_out)

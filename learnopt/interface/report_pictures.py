@@ -179,7 +179,7 @@ def predicted_actual(task, fit):
     """(actual, predicted) on the training rows, regression in memory; else None."""
     if task.kind != "regression" or task.sharded or not has_point(fit):
         return None
-    pred = np.asarray(task.dataset.X @ fit.coef.to_numpy(), dtype=float).ravel() + fit.intercept
+    pred = training_prediction(task, fit.theta)
     y = np.asarray(task.dataset.y, dtype=float)
     if len(y) > MAX_POINTS:
         keep = np.random.default_rng(0).choice(len(y), MAX_POINTS, replace=False)
@@ -197,10 +197,22 @@ def draw_predicted_actual(ax, y, pred, target: str) -> None:
     ax.set_aspect("equal", adjustable="datalim")
 
 
+def training_prediction(task, theta) -> np.ndarray:
+    """Predictions on the training rows in memory: x'w + b + offset, and its exp for log-link losses."""
+    M, q, _ = loss_argument(task)
+    eta = M @ theta - q + (task.dataset.y if task.loss.argument == "residual" else 0.0)
+    return np.exp(eta) if task.loss.link == "log" else eta
+
+
 def argument_counts(task, theta, bins: int = 40):
-    """Histogram of the loss argument on the training rows (by passes for sharded data)."""
+    """Histogram of the loss argument on the training rows (by passes for sharded data); for the
+    log-link losses, of the residual mean - target (in memory only: None on sharded data)."""
     if task.sharded:
+        if task.loss.argument == "linear":
+            return None
         return argument_histogram(task.dataset, theta, task.intercept, task.loss.argument == "margin", bins)
+    if task.loss.argument == "linear":
+        return np.histogram(training_prediction(task, theta) - task.dataset.y, bins=bins)
     M, q, _ = loss_argument(task)
     return np.histogram(M @ theta - q, bins=bins)
 

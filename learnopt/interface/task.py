@@ -67,7 +67,9 @@ class Task(Problem):
     def check(self) -> Verdict:
         """Convexity verdict and data findings, without solving (looks at a one-row stand-in:
         more rows only repeat the loss term, so nothing row-sized is built)."""
-        pieces = [(f"loss {self.loss.describe()}", f"convex, {self.loss.argument} loss, "
+        argument = ("convex in the linear predictor (log link)" if self.loss.argument == "linear"
+                    else f"convex, {self.loss.argument} loss")
+        pieces = [(f"loss {self.loss.describe()}", f"{argument}, "
                    f"{'smooth' if self.loss.smooth else 'piecewise'}; needs {self.loss.cone} cone")]
         pieces += [(f"penalty {p.describe()}", f"convex; needs {p.cone} cone") for p in self.penalties]
         for r in self.requirements:
@@ -225,22 +227,24 @@ def _loss(obj: _losses.Loss, kind: str) -> _losses.Loss:
     return obj
 
 
-def _build(kind, data, target, loss, features, weights, intercept, positive) -> Task:
+def _build(kind, data, target, loss, features, weights, intercept, positive, offset=None, exposure=None) -> Task:
     if not isinstance(intercept, (bool, np.bool_)):
         raise params.refusal(kind, "intercept", intercept, "True or False")
     lossobj = _losses.by_name(loss)
     if not lossobj.convex:
         raise lossobj.refusal()
     ds = from_data(data, target, kind=kind, features=features, weights=weights,
-                   intercept=bool(intercept), positive=positive)
+                   intercept=bool(intercept), positive=positive, offset=offset, exposure=exposure)
     lossobj = _loss(lossobj, kind)
+    if not ds.sharded:
+        lossobj.check_target(ds.y, repr(target) if isinstance(target, str) else "array")
     if kind == "classification" and lossobj.argument == "residual" and lossobj.name != "squared":
         raise ParameterError(f"The {lossobj.describe()} loss needs a numeric target; use lo.regression.")
     return Task(ds, kind, lossobj, bool(intercept), target if isinstance(target, str) else None)
 
 
 def regression(data, target, loss: _losses.Loss | str = "squared", *, features: Sequence[str] | None = None,
-               weights=None, intercept: bool = True) -> Task:
+               weights=None, intercept: bool = True, offset=None, exposure=None) -> Task:
     """Build a regression task.
 
     Parameters
@@ -251,6 +255,14 @@ def regression(data, target, loss: _losses.Loss | str = "squared", *, features: 
     features : columns to use; default all columns except the target and weights.
     weights : column name or array of non-negative row weights (weight k == k copies of the row).
     intercept : fit an unpenalised intercept (default True).
+    offset : column name or array added to each row's linear predictor with its coefficient
+        fixed at 1 (kept out of the features); for residual losses the residual is
+        x'w + b + offset - y.
+    exposure : column name or array of values above 0 whose log is the offset (counts and
+        amounts per unit of exposure with the log-link losses ``poisson``, ``gamma``,
+        ``tweedie``). Give one of offset and exposure. New rows need the same column to be
+        predicted; ``fit.predict`` gives the mean exp(x'w + b + offset) for log-link losses and
+        ``fit.decision`` the linear predictor x'w + b + offset.
 
     Examples
     --------
@@ -261,7 +273,7 @@ def regression(data, target, loss: _losses.Loss | str = "squared", *, features: 
     >>> fit.status, np.round(fit.coef.to_numpy(), 6).tolist(), round(fit.intercept, 6)
     ('optimal', [1.0, -2.0], 0.5)
     """
-    return _build("regression", data, target, loss, features, weights, intercept, None)
+    return _build("regression", data, target, loss, features, weights, intercept, None, offset, exposure)
 
 
 def classification(data, target, loss: _losses.Loss | str = "logistic", *, positive=None,

@@ -5,7 +5,9 @@ Objective (the convention everywhere in learnopt)::
 
     minimise  sum_i a_i f(z_i) + sum_k R_k(w)      a_i = weight_i / sum(weights)
 
-Residual losses: z = [X 1] theta - y; margin losses: z = diag(y) [X 1] theta.
+Residual losses: z = [X 1] theta + o - y; margin losses: z = diag(y) [X 1] theta; losses of the
+linear predictor (log-link deviances): z = [X 1] theta + o, with each row's target bound into
+the loss (:func:`row_loss`). o is the task's offset (0 without one).
 """
 from __future__ import annotations
 
@@ -68,20 +70,30 @@ class _Adjoint:
 def loss_argument(task):
     """(M, q, a) with loss argument z = M theta - q and row weights a summing to one.
 
-    Residual losses: M = [X 1], q = y. Margin losses: M = diag(y) [X 1], q = 0. M is a
-    :class:`Design` operator (no copy of X).
+    Residual losses: M = [X 1], q = y - o. Margin losses: M = diag(y) [X 1], q = 0. Linear
+    predictor: M = [X 1], q = -o. M is a :class:`Design` operator (no copy of X). The loss of
+    each row is :func:`row_loss` (the task's loss with the targets bound where it needs them).
     """
     ds = task.dataset
     a = ds.weights / ds.weights.sum()
+    offset = getattr(ds, "offset", None)
     if task.loss.argument == "margin":
         return Design(ds.X, task.intercept, ds.y), np.zeros(ds.n), a
-    return Design(ds.X, task.intercept), ds.y, a
+    if task.loss.argument == "linear":
+        return Design(ds.X, task.intercept), (np.zeros(ds.n) if offset is None else -offset), a
+    return Design(ds.X, task.intercept), (ds.y if offset is None else ds.y - offset), a
+
+
+def row_loss(task):
+    """The loss as a function of z alone on each row of the task (targets bound when the loss
+    needs them: see :meth:`learnopt.terms.loss_base.Loss.given`)."""
+    return task.loss.given(task.dataset.y)
 
 
 def objective(task, theta: np.ndarray) -> float:
     """The task's objective at theta, on every row: weighted mean loss plus the penalties."""
     M, q, a = loss_argument(task)
-    return float(a @ task.loss.value(M @ theta - q) + penalty_value(task, theta))
+    return float(a @ row_loss(task).value(M @ theta - q) + penalty_value(task, theta))
 
 
 def penalty_value(task, theta: np.ndarray) -> float:

@@ -59,7 +59,8 @@ def conditioned(task):
     if any(q is None for q in mapped):      # a weight beyond floating point in the new basis: keep the old one
         return task, None
     X2 = (ds.X - m) / s
-    data = Dataset(X2, ds.y, ds.weights, ds.names, ds.frame, ds.encoding, ds.labels, list(ds.notes))
+    data = Dataset(X2, ds.y, ds.weights, ds.names, ds.frame, ds.encoding, ds.labels, list(ds.notes),
+                   ds.offset, ds.offset_source)
     reqs = tuple(_map_rule(r, T) for r in task.requirements)
     pens = tuple(q for part in mapped for q in part)
     return replace(task, dataset=data, penalties=pens, requirements=reqs), T

@@ -15,7 +15,7 @@ import cvxpy as cp
 import numpy as np
 import scipy.sparse as sp
 
-from learnopt.problem.algebra import loss_argument, requirement_constraint
+from learnopt.problem.algebra import loss_argument, requirement_constraint, row_loss
 from learnopt.rules.requirements import Requirement
 
 
@@ -35,6 +35,7 @@ def build(task, penalties_expr=None) -> Model:
     t0 = time.perf_counter()
     ds = task.dataset
     M, q, a = loss_argument(task)
+    loss = row_loss(task)
     M = M.explicit()
     p = M.shape[1]
     theta = cp.Variable(p, name="theta")
@@ -44,11 +45,11 @@ def build(task, penalties_expr=None) -> Model:
         z_expr = M @ theta - q
         tie = None
         if task.loss.smooth:
-            loss_term = task.loss.mean_expr(z_expr, a)
+            loss_term = loss.mean_expr(z_expr, a)
         else:
             z = cp.Variable(ds.n, name="z")
             tie = z == z_expr
-            loss_term = task.loss.mean_expr(z, a)
+            loss_term = loss.mean_expr(z, a)
         objective = loss_term
         if penalties_expr is not None:
             objective = objective + penalties_expr(w)
@@ -65,6 +66,7 @@ def one_row(problem) -> cp.Problem:
     """The loss on one stand-in row with every penalty and rule: what the convexity check looks
     at (more rows only repeat the loss term, so the verdict is the same and nothing is copied)."""
     theta = cp.Variable(len(problem.coefficient_names))
-    objective = cp.sum(problem.loss.expr(cp.reshape(cp.sum(theta), (1,), order="F")))
+    stand_in = problem.loss.given(np.ones(1))        # a target of 1 suits every loss
+    objective = cp.sum(stand_in.expr(cp.reshape(cp.sum(theta), (1,), order="F")))
     objective = objective + sum(p.expr(theta[: problem.dataset.d], problem.features) for p in problem.penalties)
     return cp.Problem(cp.Minimize(objective), [requirement_constraint(r, theta) for r in problem.requirements])

@@ -97,6 +97,8 @@ def _partition_values(part: pd.DataFrame, encoding, w, b, labels, what: str) -> 
     score = design(encoding, part.reset_index(drop=True)) @ w + b
     if what == "probability":
         values = expit(score)
+    elif what == "mean":                       # log link: the mean exp(linear predictor)
+        values = np.exp(score)
     elif what == "prediction" and labels is not None:
         values = np.where(score > 0, labels[1], labels[0]).astype(object)
     else:
@@ -109,5 +111,6 @@ def partition_values(data, encoding, w, b, labels, what: str):
     Series computed partition by partition (nothing is read until the caller asks)."""
     ddf, _ = as_frame(data)
     dtype = object if what == "prediction" and labels is not None else float
+    name = "prediction" if what == "mean" else what
     return ddf.map_partitions(_partition_values, encoding, w, b, labels, what,
-                              meta=pd.Series([], dtype=dtype, name=what))
+                              meta=pd.Series([], dtype=dtype, name=name)).rename(name)

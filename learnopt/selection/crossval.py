@@ -65,6 +65,8 @@ def metric_function(task, metric) -> tuple[str, Callable, bool]:
         loss = task.loss
         if loss.argument == "margin":
             return "loss", lambda y, s, w: float(np.average(loss.value(y * s), weights=w)), False
+        if loss.argument == "linear":       # scores are linear predictors, the targets bound per row
+            return "loss", lambda y, s, w: float(np.average(loss.given(y).value(s), weights=w)), False
         return "loss", lambda y, s, w: float(np.average(loss.value(s - y), weights=w)), False
     if callable(metric):
         name = getattr(metric, "__name__", "metric")
@@ -94,6 +96,9 @@ def metric_function(task, metric) -> tuple[str, Callable, bool]:
     if (text in needs_classes) != classify:
         kind = "classification" if text in needs_classes else "regression"
         raise ParameterError(f"The {text} metric is for {kind} tasks; this task is a {task.kind}.")
+    if task.loss.link == "log":            # mse, mae, pinball: on the mean exp(score)
+        plain = simple[text]
+        return text, lambda y, s, w: plain(y, np.exp(s), w), False
     return text, simple[text], text == "accuracy"
 
 
@@ -211,6 +216,8 @@ def cross_validate(task, folds: int = 5, grid=None, metric=None, seed: int = 0, 
                 if not np.all(np.isfinite(fit.coef.to_numpy())):
                     continue
                 s = np.asarray(X @ fit.coef.to_numpy()).ravel() + fit.intercept
+                if ds.offset is not None:
+                    s = s + ds.offset[held]
                 table[j, k] = score(y, s, w)
                 certified[j] += fit.status == Status.OPTIMAL
             bar.step()

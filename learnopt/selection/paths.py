@@ -26,7 +26,7 @@ from learnopt.core.status import Status
 from learnopt.core import checks as params
 from learnopt.core.progress import ProgressBar
 from learnopt.core.errors import MissingDependencyError, ParameterError
-from learnopt.problem.algebra import loss_argument
+from learnopt.problem.algebra import loss_argument, row_loss
 from learnopt.selection.zeroing import zeroing_strength
 from learnopt.solve.rule_duals import requirement_terms
 from learnopt.solve.loop import solve_task
@@ -76,7 +76,7 @@ def zero_strength(task, index: int, fit) -> float:
     """
     M, q, a = loss_argument(task)
     theta = fit.theta
-    u = task.loss.gradient(M @ theta - q)
+    u = row_loss(task).gradient(M @ theta - q)
     g = M.T @ (a * u) + requirement_terms(task.requirements, fit.extras.get("multipliers", []), theta)[0]
     # the other penalties' gradients at the point (their coefficients may be non-zero)
     d = task.dataset.d
@@ -335,7 +335,7 @@ def path(task, penalty=None, grid: Sequence[float] | None = None, n: int = 50, *
 def _strength_scale(task, index) -> float:
     """A strength well above the zeroing one: 1e3 x the gradient at theta = 0 over the smallest weight."""
     M, q, a = loss_argument(task)
-    g = M.T @ (a * task.loss.gradient(-q))
+    g = M.T @ (a * row_loss(task).gradient(-q))
     unit = task.penalties[index].with_strength(1.0)
     weight = 1.0
     if isinstance(unit, Separable):

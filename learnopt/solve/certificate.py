@@ -26,7 +26,7 @@ import numpy as np
 import scipy.linalg as sla
 
 from learnopt.terms.penalties import CustomPenalty, Separable, separable_conjugate, separable_shrink
-from learnopt.problem.algebra import loss_argument
+from learnopt.problem.algebra import loss_argument, row_loss
 from learnopt.rules.requirements import Requirement
 from learnopt.solve.small import kink_rows, solve_small
 from learnopt.solve.rule_duals import KINKS, feasibility, fitted_rule_terms, requirement_terms
@@ -233,8 +233,14 @@ def _repair(u, T, t, M, a, gradient, low, high, rounds: int = 5):
         h = room[rows]
         lam, *_ = np.linalg.lstsq((K * h) @ K.T, -resid, rcond=None)
         u = u.copy()
-        u[rows] = np.clip(u[rows] + h * (K.T @ lam), low, high)
+        u[rows] = np.clip(u[rows] + h * (K.T @ lam), _on(low, rows), _on(high, rows))
     return u
+
+
+def _on(bound, rows):
+    """A dual-domain end on some rows (the ends are numbers, or one per row for losses that
+    hold each row's target)."""
+    return bound[rows] if np.ndim(bound) else bound
 
 
 def repair_targets(theta, penalties, names, N):
@@ -396,7 +402,7 @@ def certify_point(task, theta, u, mults, enough: float = 0.0):
     reqs = list(task.requirements)
 
     def read(m):
-        return certify(M=M, q=q, a=a, loss=task.loss, penalties=task.penalties, names=task.features,
+        return certify(M=M, q=q, a=a, loss=row_loss(task), penalties=task.penalties, names=task.features,
                        requirements=reqs, theta=theta, u=u, multipliers=m, intercept=task.intercept, enough=enough)
 
     cert = read(mults)

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import cvxpy as cp
 import numpy as np
 
-from learnopt.problem.algebra import loss_argument
+from learnopt.problem.algebra import loss_argument, row_loss
 from learnopt.solve.small import kink_rows
 from learnopt.terms.penalties import Separable
 
@@ -58,7 +58,7 @@ def dual_set(problem, theta, penalties, kink_tol: float) -> DualSet:
     w = theta[:d]
     M, q, a = loss_argument(problem)
     z = M @ theta - q
-    u0 = np.asarray(problem.loss.gradient(z), float)
+    u0 = np.asarray(row_loss(problem).gradient(z), float)
     g = cp.Constant(np.asarray(M.T @ (a * u0), float))
     cons, kink = [], None
     found = kink_rows(problem.loss, z, a, kink_tol)

@@ -1,6 +1,8 @@
 """Metrics of a fit on (held-out) data.
 
-Regression: n, loss (the task's own loss, mean over rows), mse, rmse, mae, r2.
+Regression: n, loss (the task's own loss, mean over rows), mse, rmse, mae, r2 (for the log-link
+losses the errors are of the predicted mean exp(linear predictor), and loss is the mean half
+deviance).
 Classification: n, loss (the surrogate), accuracy, zero_one (error rate), inside_margin
 (fraction of rows with label*score < 1, i.e. on the wrong side of the margin) and the
 confusion table (rows: true label, columns: predicted label).
@@ -87,6 +89,9 @@ def evaluate(fit, data, target=None, groups=None) -> Evaluation:
                             f"data.compute(), or a sample of the rows).")
         if target is not None:
             raise DataError("evaluate() on sharded data reads the target from its column; leave target=None.")
+        if task.loss.argument == "linear":
+            raise DataError(f"evaluate() of a {task.loss.describe()} fit needs the rows in memory; evaluate a pandas "
+                            f"DataFrame (e.g. data.compute(), or a sample of the rows).")
         return _sharded(fit, data)
     if isinstance(data, (str, os.PathLike)):
         data = read_table(data)
@@ -110,15 +115,21 @@ def evaluate(fit, data, target=None, groups=None) -> Evaluation:
             raise DataError("The evaluation target must be numeric for a regression.") from None
         if not np.all(np.isfinite(y)):
             raise DataError("The evaluation target has missing or infinite values; drop those rows.")
-        r = score - y
+        if task.loss.argument == "linear":
+            task.loss.check_target(y, "of the evaluation data")
+            r, loss_value = np.exp(score) - y, float(np.mean(task.loss.given(y).value(score)))
+        else:
+            r = score - y
+            loss_value = float(np.mean(task.loss.value(r)))
         ss = float(np.sum((y - y.mean()) ** 2))
         metrics = pd.Series({
-            "n": float(len(y)), "loss": float(np.mean(task.loss.value(r))),
+            "n": float(len(y)), "loss": loss_value,
             "mse": float(np.mean(r ** 2)), "rmse": float(np.sqrt(np.mean(r ** 2))),
             "mae": float(np.mean(np.abs(r))), "r2": 1.0 - float(np.sum(r ** 2)) / ss if ss > 0 else np.nan,
         })
         labels = None if groups is None else group_labels(data, groups, len(y))
-        table, gaps, notes = regression_groups(y, score, labels) if labels is not None else (None, None, [])
+        shown = np.exp(score) if task.loss.link == "log" else score
+        table, gaps, notes = regression_groups(y, shown, labels) if labels is not None else (None, None, [])
         return Evaluation(metrics, rules=rules_on_new_rows(fit, data), groups=table, gaps=gaps, notes=tuple(notes))
     neg, pos = task.dataset.labels
     unknown = sorted({v for v in y_raw.tolist() if v != neg and v != pos}, key=str)

@@ -13,7 +13,8 @@ TOP = {"format": (TEXT, True), "schema_version": (WHOLE, True), "digest": (TEXT,
        "task": (TABLE, True), "coef": (TABLE, True), "intercept": (NUMBER, True), "evidence": (TABLE, True)}
 TASK = {"kind": (TEXT, True), "loss": (TABLE, True), "penalties": (LIST, True), "rules": (LIST, True),
         "intercept": (FLAG, True), "target": ((TEXT, NUMBER, NONE), False), "features": (LIST, True),
-        "labels": ((LIST, NONE), False), "encoding": ((TABLE, NONE), False)}
+        "labels": ((LIST, NONE), False), "encoding": ((TABLE, NONE), False),
+        "offset": (TABLE, False)}
 EVIDENCE = {"status": (TEXT, True), "message": (TEXT, True), "objective": (NUMBER, True), "gap": (NUMBER, True),
             "rel_gap": (NUMBER, True), "violation": (NUMBER, True), "solver": ((TEXT, NONE), True),
             "route": ((TEXT, NONE), True), "timings": (TABLE, True), "prices": (TABLE, True),
@@ -73,6 +74,11 @@ def shape_problems(saved: dict) -> list[str]:
                            + (f"; not features: {', '.join(extra)}" if extra else ""))
         if isinstance(coef, dict):
             out += [f"coef.{k} is {v!r}; it has to be a number" for k, v in coef.items() if not _is(v, NUMBER)]
+        offset = task.get("offset")
+        if isinstance(offset, dict) and (offset.get("kind") not in ("offset", "exposure")
+                                         or not isinstance(offset.get("column"), (str, type(None)))
+                                         or set(offset) != {"kind", "column"}):
+            out.append("task.offset has to hold kind (offset or exposure) and column (text or null)")
         if isinstance(task.get("rules"), list) and not all(isinstance(r, (str, dict)) for r in task["rules"]):
             out.append("task.rules has to be a list of rule texts (or rule objects as plain data)")
     if isinstance(evidence, dict):

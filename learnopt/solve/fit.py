@@ -20,6 +20,7 @@ from learnopt.core.errors import DataError
 from learnopt.core.status import CAUTION, Status
 from learnopt.solve.standing import rule_standing, standing_lines
 from learnopt.data.gateway import is_sharded_source
+from learnopt.data.offsets import new_offset
 from learnopt.data.table import new_design
 from learnopt.scale.passes import partition_values
 from learnopt.solve import fitfile
@@ -91,10 +92,16 @@ class Fit:
         return table
 
     # ---- predictions
-    def _scores(self, data) -> np.ndarray:
+    def _scores(self, data, offset=None) -> np.ndarray:
         self._need_point()
         X = new_design(self.task.dataset, data)
-        return np.asarray(X @ self.coef.to_numpy() + self.intercept).ravel()
+        score = np.asarray(X @ self.coef.to_numpy() + self.intercept).ravel()
+        source = getattr(self.task.dataset, "offset_source", None)
+        if source is None and offset is not None:
+            raise DataError("offset=... was given, but this fit was trained without an offset or exposure; "
+                            "leave it out.")
+        extra = new_offset(source, data, score.size, offset)
+        return score if extra is None else score + extra
 
     @staticmethod
     def _shaped(values: np.ndarray, data, name: str):
@@ -107,6 +114,10 @@ class Fit:
         """The same values computed partition by partition on sharded data: a lazy dask Series
         (nothing is computed or loaded until the caller asks)."""
         self._need_point()
+        if getattr(self.task.dataset, "offset_source", None) is not None:
+            raise DataError("This fit adds an offset to every prediction; predictions on sharded data do not "
+                            "read it yet. Predict on the rows in memory (a pandas DataFrame with the "
+                            f"{self.task.dataset.offset_source[0]} column).")
         enc = self.task.dataset.encoding
         if enc is None:
             raise DataError("This fit was built from arrays; predictions on a dask DataFrame or a file "
@@ -114,24 +125,29 @@ class Fit:
         labels = self.task.dataset.labels if self.task.kind == "classification" else None
         return partition_values(data, enc, self.coef.to_numpy(), self.intercept, labels, what)
 
-    def decision(self, data):
-        """Raw predictions X w + b on new data (for classification: the score, sign = class)."""
+    def decision(self, data, *, offset=None):
+        """Raw predictions X w + b on new data (for classification: the score, sign = class); with
+        an offset or exposure, the linear predictor X w + b + offset (the offset read from the
+        same column as in training, or ``offset=`` values when it was given as an array)."""
         if is_sharded_source(data):
             return self._partitionwise(data, "score")
-        return self._shaped(self._scores(data), data, "score")
+        return self._shaped(self._scores(data, offset), data, "score")
 
-    def predict(self, data):
-        """Predictions on new data: values for regression, labels for classification.
+    def predict(self, data, *, offset=None):
+        """Predictions on new data: values for regression (for the log-link losses poisson,
+        gamma and tweedie, the mean exp(linear predictor)), labels for classification.
 
         A Series with the input's index when ``data`` is a DataFrame, else a numpy array; for a
-        dask DataFrame or a file pattern, a lazy dask Series computed partition by partition."""
+        dask DataFrame or a file pattern, a lazy dask Series computed partition by partition.
+        ``offset``: see :meth:`decision`."""
+        log_link = self.task.loss.link == "log"
         if is_sharded_source(data):
-            return self._partitionwise(data, "prediction")
-        score = self._scores(data)
+            return self._partitionwise(data, "mean" if log_link else "prediction")
+        score = self._scores(data, offset)
         labels = self.task.dataset.labels
         if self.task.kind == "classification":
             return self._shaped(np.where(score > 0, labels[1], labels[0]), data, "prediction")
-        return self._shaped(score, data, "prediction")
+        return self._shaped(np.exp(score) if log_link else score, data, "prediction")
 
     def probability(self, data):
         """P(positive label) for logistic fits: 1 / (1 + exp(-score))."""

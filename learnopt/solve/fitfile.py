@@ -89,6 +89,8 @@ def to_dict(fit, *, run: str | None = None) -> dict:
             "rules": [file_entry(r) for r in task.rules], "intercept": task.intercept,
             "target": json_ready(task.target_name), "features": list(ds.names),
             "labels": json_ready(list(ds.labels)) if ds.labels is not None else None,
+            **({"offset": {"kind": ds.offset_source[0], "column": ds.offset_source[1]}}
+               if getattr(ds, "offset_source", None) is not None else {}),
             "encoding": None if enc is None else {
                 "columns": list(enc.columns), "levels": json_ready(enc.levels),
                 "reference": json_ready(enc.reference), "names": list(enc.names)},
@@ -171,7 +173,9 @@ def read(path, *, task_type=None) -> dict:
     names = tuple(t["features"])
     labels = tuple(t["labels"]) if t.get("labels") is not None else None
     d = len(names)
-    ds = Dataset(np.zeros((0, d)), np.zeros(0), np.zeros(0), names, None, encoding, labels, notes)
+    source = t.get("offset")
+    ds = Dataset(np.zeros((0, d)), np.zeros(0), np.zeros(0), names, None, encoding, labels, notes,
+                 offset_source=None if source is None else (source["kind"], source["column"]))
     loss = _rebuild(t["loss"], _losses, _losses.Loss)
     pens = tuple(_rebuild(p, _penalties, _penalties.Penalty) for p in t["penalties"])
     task = (task_type or Problem)(ds, t["kind"], loss, bool(t["intercept"]), t.get("target"), pens,

@@ -38,7 +38,7 @@ def solve_fast(task, settings, **whole):
 def _eligible(task) -> bool:
     ds = task.dataset
     return (not task.sharded and task.kind == "regression" and task.loss.name in ("absolute", "quantile")
-            and ds.n > GLOB_ROWS and not sp.issparse(ds.X))
+            and ds.n > GLOB_ROWS and not sp.issparse(ds.X) and ds.offset is None)
 
 
 def _globbed(task, settings, whole):

@@ -1,7 +1,10 @@
 """The base class of the losses: the facts a loss declares and the maths it provides.
 
 A loss is a function ``f`` of one number per row, the *argument* ``z``: ``"residual"`` losses
-use ``z = prediction - target``, ``"margin"`` losses ``z = label * prediction`` (labels -1/+1).
+use ``z = prediction - target``, ``"margin"`` losses ``z = label * prediction`` (labels -1/+1),
+``"linear"`` losses the linear predictor ``z = x'w + b + offset`` together with each row's
+target (the log-link deviances of :mod:`learnopt.terms.count_losses`). :meth:`Loss.given`
+binds the targets, so every caller sees a function of z alone per row.
 The table of the built-in losses and their registry are in :mod:`learnopt.terms.losses`.
 """
 from __future__ import annotations
@@ -18,7 +21,8 @@ class Loss:
     """Base class: subclasses declare facts as class data and implement the maths."""
 
     name: ClassVar[str] = "loss"
-    argument: ClassVar[str] = "residual"  # or "margin"
+    argument: ClassVar[str] = "residual"  # or "margin", "linear"
+    link: ClassVar[str | None] = None       # "log": predictions are exp(linear predictor)
     cone: ClassVar[str] = "linear"
     smooth: ClassVar[bool] = False
     convex: ClassVar[bool] = True
@@ -57,6 +61,13 @@ class Loss:
 
     def describe(self) -> str:
         return self.name
+
+    def given(self, y: np.ndarray) -> "Loss":
+        """The loss with each row's target bound (losses of z alone: the loss itself)."""
+        return self
+
+    def check_target(self, y: np.ndarray, target: str) -> None:
+        """Refuse targets the loss cannot fit (DataError); every number is fine by default."""
 
     def _outside(self, u: np.ndarray, tol: float = 1e-12) -> np.ndarray:
         low, high = self.dual_domain()

@@ -29,7 +29,14 @@ epsilon_insensitive    max(0, |r| - eps)                                  eps |u
 hinge                  max(0, 1 - m)                                      u on [-1, 0]
 squared_hinge          max(0, 1 - m)^2                                    u + u^2/4 on (-inf, 0]
 logistic               log(1 + exp(-m))                                   (-u)log(-u) + (1+u)log(1+u) on [-1, 0]
+poisson                y log(y/mu) - y + mu, mu = exp(eta)                (u+y)log(u+y) - (u+y) - c(y), u >= -y
+gamma                  y/mu - 1 - log(y/mu)                               (1-u)(log(1-u) - log y - 1) - c(y), u <= 1
+tweedie(power)         half Tweedie deviance, 1 < power < 2               per row by a 1-D root (see count_losses)
 =====================  =================================================  ===============
+
+The last three are functions of the linear predictor eta = x'w + b + offset and each row's
+target (argument ``"linear"``; :mod:`~learnopt.terms.count_losses` gives the scaling: half
+unit deviances, so the objective equals scikit-learn's (1/(2n)) sum of deviances).
 """
 from __future__ import annotations
 
@@ -37,6 +44,7 @@ from __future__ import annotations
 from learnopt.core import checks as params
 from learnopt.core.errors import NotConvexError, ParameterError
 from learnopt.terms.cones import CLASSES as CONES
+from learnopt.terms.count_losses import Gamma, LogLink, Poisson, Tweedie, gamma, poisson, tweedie
 from learnopt.terms.linear_losses import (Absolute, EpsilonInsensitive, Hinge, Quantile, absolute,
                                           epsilon_insensitive, hinge, quantile)
 from learnopt.terms.loss_base import Loss
@@ -48,11 +56,11 @@ from learnopt.core.checks import nearest
 
 __all__ = [
     "Loss", "squared", "absolute", "huber", "quantile", "epsilon_insensitive", "hinge",
-    "squared_hinge", "logistic", "zero_one", "custom", "by_name", "for_kind", "LOSSES", "LossSpec",
-    "KINDS", "CONES",
+    "squared_hinge", "logistic", "poisson", "gamma", "tweedie", "zero_one", "custom", "by_name", "for_kind",
+    "LOSSES", "LossSpec", "KINDS", "CONES",
     # the classes (model files name them; isinstance checks use them)
     "Squared", "Absolute", "Huber", "Quantile", "EpsilonInsensitive", "Hinge", "SquaredHinge", "Logistic",
-    "ZeroOne", "Custom", "NotConvexError", "ParameterError",
+    "Poisson", "Gamma", "Tweedie", "LogLink", "ZeroOne", "Custom", "NotConvexError", "ParameterError",
 ]
 
 REGRESSION, CLASSIFICATION = ("regression",), ("classification",)
@@ -67,6 +75,9 @@ LOSSES: dict[str, LossSpec] = {s.name: s for s in (
     LossSpec("hinge", hinge, (hinge(),), kinds=CLASSIFICATION),
     LossSpec("squared_hinge", squared_hinge, (squared_hinge(),), kinds=CLASSIFICATION),
     LossSpec("logistic", logistic, (logistic(),), kinds=CLASSIFICATION),
+    LossSpec("poisson", poisson, (poisson(),), kinds=REGRESSION),
+    LossSpec("gamma", gamma, (gamma(),), kinds=REGRESSION),
+    LossSpec("tweedie", tweedie, (tweedie(1.3),), kinds=REGRESSION),
     LossSpec("zero_one", zero_one, (zero_one(),), kinds=CLASSIFICATION),
 )}
 _ALIASES = {alias: spec for spec in LOSSES.values() for alias in spec.aliases}

@@ -38,6 +38,8 @@ QR_DENSE_LIMIT = 2e7  # a sparse design larger than this (rows x columns) is nev
 def eligible(task) -> str | None:
     if task.loss.name != "squared":
         return f"it needs the squared loss (this task has {task.loss.describe()})"
+    if getattr(task.dataset, "offset", None) is not None:
+        return "it does not take an offset (the newton and direct routes do)"
     return None
 
 

@@ -12,6 +12,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from learnopt.core.errors import TooLargeError
+from learnopt.problem.algebra import row_loss
 from learnopt.problem.formulate import build
 from learnopt.solve.routes.base import Outcome, RouteSpec, RunnerBase, read_multipliers, run
 
@@ -72,7 +73,7 @@ class Runner(RunnerBase):
         model = self.model
         nu = model.tie.dual_value if model.tie is not None else None
         if nu is None:
-            return self.task.loss.gradient(model.M @ theta - model.q)
+            return row_loss(self.task).gradient(model.M @ theta - model.q)
         nu = np.asarray(nu, float).ravel()
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(model.a > 0, -nu / model.a, 0.0)

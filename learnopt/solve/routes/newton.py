@@ -31,7 +31,7 @@ import scipy.sparse as sp
 
 from learnopt.terms.penalties import Separable
 from learnopt.solve.routes.base import RouteSpec, SOLVER_FAULTS, Outcome, RunnerBase, read_multipliers, run
-from learnopt.problem.algebra import loss_argument, penalty_value, requirement_constraint
+from learnopt.problem.algebra import loss_argument, penalty_value, requirement_constraint, row_loss
 
 MAX_STEPS = 60
 ARMIJO = 1e-4
@@ -43,7 +43,7 @@ def eligible(task) -> str | None:
     if not task.loss.smooth:
         return f"it needs a smooth loss (this task has {task.loss.describe()}, which has kinks)"
     try:
-        task.loss.curvature(np.zeros(1))
+        task.loss.given(np.ones(1)).curvature(np.zeros(1))
     except NotImplementedError:
         return f"the loss {task.loss.describe()} declares no curvature"
     return None
@@ -92,19 +92,20 @@ class Runner(RunnerBase):
     def _rows(self) -> float:
         """Hold the loss argument's rows (M, q, a); return trace(M'AM), the damping's scale."""
         self.M, self.q, self.a = loss_argument(self.task)
+        self.loss = row_loss(self.task)
         return _weighted_trace(self.M, self.a)
 
     # ---- the true objective
     def objective(self, theta):
         """The task's objective, with the design and row weights held by the runner (line searches)."""
-        return float(self.a @ self.task.loss.value(self.M @ theta - self.q) + penalty_value(self.task, theta))
+        return float(self.a @ self.loss.value(self.M @ theta - self.q) + penalty_value(self.task, theta))
 
     def penalty(self, theta):
         return penalty_value(self.task, theta)
 
     def _model(self, theta):
         """Gradient and Hessian of the mean loss at theta."""
-        loss = self.task.loss
+        loss = self.loss
         z = self.M @ theta - self.q
         g = self.M.T @ (self.a * loss.gradient(z))
         h = self.a * loss.curvature(z)

@@ -47,7 +47,7 @@ from learnopt.solve.routes import compressed, newton
 from learnopt.solve.routes.base import Outcome, RouteSpec, RunnerBase, read_multipliers, run
 from learnopt.solve.routes.sharded_steps import (_combine_rows, _local, _loss_sum, _model, _moments, _row_count,
                                                  _row_terms, _trace, _tsqr_block, _weight_sum, certify_sharded,
-                                                 squared_gram)
+                                                 outside_support, squared_gram)
 
 METHODS = ("gram", "newton", "admm")
 
@@ -80,6 +80,11 @@ def Runner(task, vary: int | None = None, cluster: ClusterSettings = ClusterSett
     if method != "admm" and task.row_rules:
         raise ParameterError(f"The {method} method cannot apply rules row by row ({task.row_rules[0]!r}); "
                              f"leave the method to learnopt (consensus ADMM applies them in each partition).")
+    if method == "admm" and task.loss.argument == "linear":
+        raise ParameterError(f"Consensus ADMM on sharded data cannot take the {task.loss.describe()} loss yet"
+                             f"{' (rules row by row need it: ' + repr(task.row_rules[0]) + ')' if task.row_rules else ''}; "
+                             f"fit it with the newton method (rules on coefficients or on mean predictions), or "
+                             f"load the rows into memory.")
     if method == "gram" and compressed.eligible(task) is not None:
         raise ParameterError(f"The gram method {compressed.eligible(task)}.")
     if method == "newton" and newton.eligible(task) is not None:
@@ -124,7 +129,7 @@ class _Sharded:
             raise DataError("The weights sum to zero over every partition; at least one row needs a "
                             "positive weight.")
         self.W = W
-        self.rows_args = dict(margin=task.loss.argument == "margin", intercept=task.intercept, W=W)
+        self.rows_args = dict(argument=task.loss.argument, intercept=task.intercept, W=W)
         self.common = dict(loss=task.loss, **self.rows_args)
 
     def loss_sum(self, theta) -> float:
@@ -170,6 +175,12 @@ class NewtonRunner(_Sharded, newton.Runner):
 
     def __init__(self, task, blocks: Blocks, report: _Report):
         self._setup(task, blocks, report)
+        if task.loss.argument == "linear":
+            bad, first = blocks.total(outside_support, loss=task.loss)
+            if bad:
+                raise DataError(f"The target {task.target_name!r} has {bad} value(s) the {task.loss.describe()} loss "
+                                f"cannot fit (the first in a partition at its rows {first}): its targets have to be "
+                                f"{task.loss.support}. Drop or correct those rows, or pick a loss for such targets.")
         self.rounds = 0
         newton.Runner.__init__(self, task, None)
 

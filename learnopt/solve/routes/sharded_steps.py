@@ -20,11 +20,23 @@ from learnopt.solve.certificate import Certificate, inf_penalty, no_conjugate, n
 from learnopt.solve.rule_duals import feasibility, requirement_terms
 
 
-def _rows(block, margin: bool, intercept: bool, W: float):
-    """(M, q, a) of one block, a = w / W with W the weight total over every block."""
+def _rows(block, argument: str, intercept: bool, W: float):
+    """(M, q, a) of one block, a = w / W with W the weight total over every block; ``argument``
+    is the loss's (residual, margin, or linear: then the loss holds the targets, see _bound)."""
     X, y, w = block
-    M = Design(X, intercept, y if margin else None)
-    return M, (np.zeros(len(y)) if margin else y), w / W
+    M = Design(X, intercept, y if argument == "margin" else None)
+    return M, (y if argument == "residual" else np.zeros(len(y))), w / W
+
+
+def _bound(block, loss):
+    """The loss on this block's rows (the targets bound when the loss needs them)."""
+    return loss.given(block[1])
+
+
+def outside_support(block, loss):
+    """How many of this block's targets the loss cannot fit, and the first of them (block rows)."""
+    bad = np.flatnonzero(loss.outside_support(block[1]))
+    return bad.size, bad[:5].tolist()
 
 
 def _weight_sum(block):
@@ -49,26 +61,28 @@ def _tsqr_block(block, intercept: bool, W: float):
     return np.linalg.qr(np.hstack(cols) * np.sqrt(w / W)[:, None], mode="r")
 
 
-def _loss_sum(block, theta, loss, margin, intercept, W):
-    M, q, a = _rows(block, margin, intercept, W)
+def _loss_sum(block, theta, loss, argument, intercept, W):
+    loss = _bound(block, loss)
+    M, q, a = _rows(block, argument, intercept, W)
     return float(a @ loss.value(M @ theta - q)) if len(a) else 0.0
 
 
-def _trace(block, margin, intercept, W):
-    M, _, a = _rows(block, margin, intercept, W)
+def _trace(block, argument, intercept, W):
+    M, _, a = _rows(block, argument, intercept, W)
     return newton._weighted_trace(M, a)
 
 
-def _model(block, theta, loss, margin, intercept, W):
+def _model(block, theta, loss, argument, intercept, W):
     """This block's part of (gradient, Hessian) of the mean loss at theta."""
-    M, q, a = _rows(block, margin, intercept, W)
+    loss = _bound(block, loss)
+    M, q, a = _rows(block, argument, intercept, W)
     z = M @ theta - q
     return M.T @ (a * loss.gradient(z)), newton._weighted_gram(M, a * loss.curvature(z))
 
 
-def squared_gram(block, loss, margin, intercept, W):
+def squared_gram(block, loss, argument, intercept, W):
     """This block's part of M' A M (the squared loss's curvature)."""
-    M, _, a = _rows(block, margin, intercept, W)
+    M, _, a = _rows(block, argument, intercept, W)
     return newton._weighted_gram(M, a)
 
 
@@ -86,10 +100,11 @@ def _dual_sums(M, q, a, u, h, loss):
     return (M.T @ (a * u), M.T @ (a * np.abs(u)), newton._weighted_gram(M, a * a * h), conj, float((a * u) @ q))
 
 
-def _cert_start(block, u, theta, loss, margin, intercept, W):
+def _cert_start(block, u, theta, loss, argument, intercept, W):
     """((u, h) kept on the worker, (loss sum, dual sums...)) at theta; u: the block's dual point
     from the route, or None for the loss gradient."""
-    M, q, a = _rows(block, margin, intercept, W)
+    loss = _bound(block, loss)
+    M, q, a = _rows(block, argument, intercept, W)
     z = M @ theta - q
     low, high = loss.dual_domain()
     u = np.clip(loss.gradient(z) if u is None else u, low, high)
@@ -97,9 +112,10 @@ def _cert_start(block, u, theta, loss, margin, intercept, W):
     return (u, h), (float(a @ loss.value(z)) if len(a) else 0.0, *_dual_sums(M, q, a, u, h, loss))
 
 
-def _cert_step(block, state, v, loss, margin, intercept, W):
+def _cert_step(block, state, v, loss, argument, intercept, W):
     """One repair round: u <- clip(u + h a (M v)), and the sums at the new u."""
-    M, q, a = _rows(block, margin, intercept, W)
+    loss = _bound(block, loss)
+    M, q, a = _rows(block, argument, intercept, W)
     u, h = state
     low, high = loss.dual_domain()
     u = np.clip(u + h * a * (M @ v), low, high)
@@ -107,14 +123,15 @@ def _cert_step(block, state, v, loss, margin, intercept, W):
     return (u, h), _dual_sums(M, q, a, u, h, loss)
 
 
-def _cert_scaled(block, state, s, loss, margin, intercept, W):
+def _cert_scaled(block, state, s, loss, argument, intercept, W):
     """a.f*(s u) and (a s u).q for the shrunk dual point."""
-    M, q, a = _rows(block, margin, intercept, W)
+    loss = _bound(block, loss)
+    M, q, a = _rows(block, argument, intercept, W)
     su = s * state[0]
     return (float(a @ loss.conjugate(su)) if len(a) else 0.0), float((a * su) @ q)
 
 
-def _local(block, key, state, dvec, rows, c, loss, margin, intercept, W, settings):
+def _local(block, key, state, dvec, rows, c, loss, argument, intercept, W, settings):
     """One block's ADMM step: argmin sum_i a_i f(m_i x - q_i) + 1/2 |c x - dvec|^2 (c = sqrt(rho),
     dvec = c (z - u)) subject to the block's rules row by row (``rows``: one list of requirements
     per rule); returns (x, u rows, multipliers of those rules). The compiled problem is kept per
@@ -123,7 +140,7 @@ def _local(block, key, state, dvec, rows, c, loss, margin, intercept, W, setting
     entry = cache.get(key)
     flat = [r for group in (rows or []) for r in group]
     if entry is None:
-        M, q, a = _rows(block, margin, intercept, W)
+        M, q, a = _rows(block, argument, intercept, W)
         p = M.shape[1]
         x = cp.Variable(p)
         zr = cp.Variable(len(a))
@@ -213,7 +230,7 @@ def certify_sharded(blocks: Blocks, task, theta, multipliers, common: dict, u_bl
     loss_sum, g0, absg, Q, conj, lin = add_up(blocks.gather(blocks.pick(results, 1)))
     del results
     primal = loss_sum + pen
-    missing = no_conjugate(loss, primal, violation, rel_violation, comp)
+    missing = no_conjugate(loss.given(np.ones(1)), primal, violation, rel_violation, comp)
     if missing is not None:
         return missing
     g_req, const_req = requirement_terms(requirements, multipliers, theta)
