@@ -191,3 +191,44 @@ def test_two_shaped_features():
     assert [r.text for r in fit.task.rules] == ["distance_km is increasing", "w is convex"]
     for r in fit.task.requirements:
         assert r.A.shape[1] == len(fit.task.coefficient_names)
+
+
+def _shape_recipe(tmp_path, shapes: str) -> "Path":
+    _frame(150, seed=5).to_csv(tmp_path / "rows.csv", index=False)
+    path = tmp_path / "r.toml"
+    path.write_text('[data]\npath = "rows.csv"\n\n[task]\nkind = "regression"\ntarget = "y"\nrules = ["z >= 0"]\n\n'
+                    + shapes + '\n[[task.penalties]]\nname = "l2"\nstrength = 0.001\n\n'
+                    '[outputs]\nfit = "out/fit.json"\nreport = "out/r.html"\n')
+    return path
+
+
+def test_a_recipe_with_shapes_runs(tmp_path):
+    from learnopt.interface.jobs import run
+    from learnopt.interface.recipes import read_recipe
+    path = _shape_recipe(tmp_path, '[[task.shapes]]\nfeature = "distance_km"\nshape = "increasing concave"\n'
+                                   'pieces = 5\n')
+    job = run(read_recipe(path))
+    assert job.fit.status == "optimal"
+    twin = lo.regression(_frame(150, seed=5), "y").shape("distance_km", "increasing concave", pieces=5) \
+        .penalize(lo.penalty.l2(0.001)).require("z >= 0").solve()
+    assert np.allclose(job.fit.coef.to_numpy(), twin.coef.to_numpy(), atol=1e-6)
+    back = lo.load_fit(tmp_path / "out" / "fit.json")
+    new = _frame(20, seed=6)
+    assert np.array_equal(back.predict(new).to_numpy(), job.fit.predict(new).to_numpy())
+    page = (tmp_path / "out" / "r.html").read_text()
+    assert "Shaped effect of distance_km" in page and "Imposed: <b>increasing and concave</b>" in page
+
+
+@pytest.mark.parametrize("entry, words", [
+    ('feature = "distance_km"\nshape = "increasng"\n', ["task.shapes", "nearest known: increasing"]),
+    ('feature = "distance_km"\nshape = "convex"\nform = "curves"\n', ["form"]),
+    ('feature = "nowhere"\nshape = "convex"\n', ["task.shapes[0]", "'nowhere'", "not a feature"]),
+])
+def test_recipe_shape_mistakes_are_named(tmp_path, entry, words):
+    from learnopt.interface.jobs import run
+    from learnopt.interface.recipes import read_recipe
+    path = _shape_recipe(tmp_path, "[[task.shapes]]\n" + entry)
+    with pytest.raises(LearnoptError) as got:
+        run(read_recipe(path))
+    for w in words:
+        assert w in str(got.value), (w, str(got.value))
