@@ -75,7 +75,7 @@ class Task(Problem):
         (:mod:`learnopt.rules.shapes`), priced like any rule. Shape features before adding
         penalties and rules. ``fit.shape_table(feature)`` gives the fitted effect.
         """
-        params.check("shape", pieces=(pieces, params.Condition(
+        params.check(f"shape of {feature!r}: shape", pieces=(pieces, params.Condition(
             "a whole number, at least 2", lambda v: isinstance(v, (int, np.integer)) and not isinstance(v, bool)
             and v >= 2)), form=(form, params.OneOf(FORMS)))
         if self.penalties or any(not isinstance(r, Shape) for r in self.rules):
