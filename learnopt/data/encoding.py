@@ -10,7 +10,7 @@ Booleans become 0/1; numbers pass through.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Sequence
 
 import numpy as np
@@ -27,6 +27,7 @@ class Encoding:
     levels: dict[str, tuple[str, ...]]               # categorical column -> kept levels
     reference: dict[str, str]                        # categorical column -> dropped level
     names: tuple[str, ...]                           # coefficient names
+    shapes: dict = field(default_factory=dict)       # shaped numeric column -> its basis (data.shaping)
 
     @property
     def reference_names(self) -> tuple[str, ...]:
@@ -108,12 +109,14 @@ def _levels(col: pd.Series, name: str) -> list[str]:
 
 
 def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
-           levels: dict[str, list] | None = None) -> Encoding:
+           levels: dict[str, list] | None = None, shapes: dict | None = None) -> Encoding:
     """Decide the encoding of ``columns`` of ``frame`` (levels, names).
 
     ``levels``: the distinct values of text columns when ``frame`` holds only the column types
-    (sharded data, where they come from a pass over the partitions).
+    (sharded data, where they come from a pass over the partitions). ``shapes``: numeric
+    columns expanded into a basis (:mod:`learnopt.data.shaping`), named by the basis.
     """
+    shapes = shapes or {}
     seen = levels or {}
     names, levels, reference = [], {}, {}
     claims = {str(c): [f"data column {c!r}"] for c in frame.columns}   # what each name stands for
@@ -132,6 +135,10 @@ def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
             names.extend(level_name(c, v) for v in kept)
             for v in lv:
                 claims.setdefault(level_name(c, v), []).append(f"level {v!r} of column {c!r}")
+        elif c in shapes:
+            names.extend(shapes[c].names)
+            for n in shapes[c].names:
+                claims.setdefault(n, []).append(f"a basis column of the shaped feature {c!r}")
         else:
             names.append(str(c))
     clashes = [f"the name {n!r} would stand for both {' and '.join(who)}" for n, who in claims.items()
@@ -142,7 +149,7 @@ def encode(frame: pd.DataFrame, columns: Sequence[str], intercept: bool,
         if len(clashes) == 1:
             raise DataError(f"{clashes[0][0].upper()}{clashes[0][1:]}: {fix}")
         raise DataError(f"{len(clashes)} names would each stand for two things: {fix}", problems=clashes)
-    return Encoding(tuple(columns), levels, reference, tuple(names))
+    return Encoding(tuple(columns), levels, reference, tuple(names), dict(shapes))
 
 
 def design(encoding: Encoding, frame: pd.DataFrame) -> np.ndarray:
@@ -172,5 +179,6 @@ def design(encoding: Encoding, frame: pd.DataFrame) -> np.ndarray:
             if kind not in ("numeric", "bool"):
                 raise DataError(f"Column {c!r} was numeric in the training data but is {col.dtype} here; "
                                 f"convert it to numbers.")
-            blocks.append(real_values(col.to_numpy(), f"Column {c!r}")[:, None])
+            values = real_values(col.to_numpy(), f"Column {c!r}")
+            blocks.append(encoding.shapes[c].columns(values) if c in encoding.shapes else values[:, None])
     return np.hstack(blocks) if blocks else np.zeros((len(frame), 0))

@@ -18,7 +18,7 @@ from learnopt.core.files import write_atomic
 from learnopt.rules.regions import ball, polygon, segment
 
 CENTRES_ONLY = ("k", "fixed", "areas")               # task keys that only a centres recipe takes
-FITS_ONLY = ("target", "loss", "penalties", "positive", "intercept", "rules_over")
+FITS_ONLY = ("target", "loss", "penalties", "positive", "intercept", "rules_over", "shapes")
 FIT_OUTPUTS = ("coefficients", "predictions", "path", "compare")
 CENTRES_OUTPUTS = ("centres", "assignments")
 

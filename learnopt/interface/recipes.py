@@ -40,6 +40,7 @@ try:
     from pydantic import BaseModel, ConfigDict, Field, ValidationError, create_model, model_validator
 except ImportError as exc:  # pragma: no cover - exercised only without pydantic
     raise MissingDependencyError("Recipes need pydantic: pip install 'learnopt[cli]'.") from exc
+from learnopt.interface.recipe_shapes import ShapePart, apply_shapes   # noqa: E402 - needs pydantic
 
 ACTIONS = ("solve", "compare", "path", "by_group")
 LOSS_NAMES = tuple(dict.fromkeys(name for kind in KINDS for name in for_kind(kind)))
@@ -167,6 +168,7 @@ class TaskPart(_Strict):
     penalties: list[PenaltyPart] = Field(default_factory=list)
     rules: list[str] = Field(default_factory=list)
     rules_over: list[RuleOverPart] = Field(default_factory=list, description="rules on predictions over a box")
+    shapes: list[ShapePart] = Field(default_factory=list, description="shaped effects of numeric features")
     k: int | None = Field(default=None, ge=1, description="centres: how many")
     fixed: list[list[float]] | None = Field(default=None, description="centres: existing centres, pinned")
     areas: list[AreaPart] = Field(default_factory=list, description="centres: regions a centre must stay in")
@@ -391,6 +393,7 @@ def build_task(recipe: Recipe, frame=None):
     else:
         task = classification(frame, t.target, loss, features=t.features, weights=t.weights,
                               intercept=t.intercept, positive=t.positive)
+    task = apply_shapes(task, t.shapes)
     if pens:
         task = task.penalize(*pens)
     if t.rules:

@@ -9,6 +9,7 @@ import pandas as pd
 
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface.provenance import provenance, provenance_html
+from learnopt.interface.report_shapes import shape_parts
 from learnopt.interface.report_sure import group_fit_parts, group_picture, interval_parts, refit_parts
 from learnopt.interface.report_blocks import figure, fmt, page, png, standing, table
 from learnopt.interface.report_pictures import (
@@ -205,6 +206,7 @@ def html(job) -> str:
         parts.append("<h2>Rules</h2><ul>" + "".join(f"<li><code>{_html.escape(r.text)}</code></li>"
                                                     for r in task.rules) + "</ul>")
     parts += _pictures(job)
+    parts += shape_parts(job)
     if job.evaluation is not None:
         parts.append("<h2>Held-out evaluation</h2>" + table(job.evaluation.metrics.to_frame("value")))
         if job.evaluation.confusion is not None:

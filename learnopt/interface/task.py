@@ -20,10 +20,12 @@ from learnopt.core import checks as params
 from learnopt.core.errors import ParameterError
 from learnopt.core.files import read_model
 from learnopt.data.gateway import from_data
+from learnopt.data.shaping import FORMS, shaped_dataset
 from learnopt.problem.formulate import build, one_row
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import as_spec, compile_all
 from learnopt.rules.requirements import RuleSpec
+from learnopt.rules.shapes import Shape, read_words
 from learnopt.scale.partitions import compile_rules
 from learnopt.selection.crossval import cross_validate
 from learnopt.selection.paths import path
@@ -62,6 +64,33 @@ class Task(Problem):
             compiled = compile_all(specs, self.context())
         return replace(self, rules=self.rules + specs, requirements=self.requirements + tuple(compiled),
                        row_rules=self.row_rules + tuple(rows))
+
+    def shape(self, feature: str, shape: str, *, pieces: int = 8, form: str = "lines") -> "Task":
+        """A new task with one numeric feature's effect shaped: ``shape`` is one or two of the words
+        increasing, decreasing, convex, concave (e.g. "increasing concave").
+
+        The feature becomes a basis (:mod:`learnopt.data.shaping`): ``form="lines"`` a
+        piecewise-linear spline (coefficients ``feature.slope``, ``feature.turn1``, ...),
+        ``form="steps"`` a step function (``feature.step1``, ...), with knots at ``pieces``
+        quantiles of the training values; the shape is a rule on those coefficients
+        (:mod:`learnopt.rules.shapes`), priced like any rule. Shape features before adding
+        penalties and rules. ``fit.shape_table(feature)`` gives the fitted effect.
+        """
+        params.check(f"shape of {feature!r}: shape", pieces=(pieces, params.Condition(
+            "a whole number, at least 2", lambda v: isinstance(v, (int, np.integer)) and not isinstance(v, bool)
+            and v >= 2)), form=(form, params.OneOf(FORMS)))
+        if self.penalties or any(not isinstance(r, Shape) for r in self.rules):
+            added = "penalties" if self.penalties else "rules"
+            raise ParameterError(f"shape({feature!r}, {shape!r}) after {added}: shape features first, then penalize "
+                                 f"and require (their names change: {feature!r} becomes a basis), e.g. "
+                                 f"lo.regression(...).shape({feature!r}, {shape!r}).require(...)")
+        if self.sharded:
+            raise ParameterError(f"shape({feature!r}, {shape!r}): shaped effects need the data in memory; this "
+                                 f"task's data is sharded ({self.dataset.label}). Load it into a pandas DataFrame.")
+        words = read_words(feature, shape, form)
+        ds, basis = shaped_dataset(self.dataset, feature, int(pieces), form, self.intercept)
+        return replace(self, dataset=ds, rules=(), requirements=()).require(*self.rules, Shape(feature, words, form,
+                                                                                           basis.names))
 
     # ---- verdict
     def check(self) -> Verdict:

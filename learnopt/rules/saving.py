@@ -18,8 +18,9 @@ from learnopt.rules.domain import Over
 from learnopt.rules.objects import Bounds, TextRule
 from learnopt.rules.regions import Ball, Polygon, Segment
 from learnopt.rules.requirements import RuleSpec
+from learnopt.rules.shapes import Shape
 
-KINDS = {cls.__name__: cls for cls in (TextRule, Bounds, Polygon, Ball, Segment, Over)}
+KINDS = {cls.__name__: cls for cls in (TextRule, Bounds, Polygon, Ball, Segment, Over, Shape)}
 
 
 def _listed(value):

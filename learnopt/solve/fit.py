@@ -16,6 +16,7 @@ import pandas as pd
 
 from scipy.special import expit
 
+from learnopt.core.checks import nearest
 from learnopt.core.errors import DataError
 from learnopt.core.status import CAUTION, Status
 from learnopt.solve.standing import rule_standing, standing_lines
@@ -90,6 +91,23 @@ class Fit:
         if self.task is not None and self.task.intercept:
             table.loc["intercept"] = self.intercept
         return table
+
+    def shape_table(self, feature: str, points: int = 101) -> pd.DataFrame:
+        """The fitted effect of a shaped feature (``task.shape``) on a grid over its training
+        range (``points`` evenly spaced values plus every knot): columns ``feature`` (the value),
+        ``effect`` (the basis coefficients times the basis there; the intercept and the other
+        features left out) and ``knot`` (True at a knot)."""
+        self._need_point()
+        enc = self.task.dataset.encoding
+        shapes = enc.shapes if enc is not None else {}
+        if feature not in shapes:
+            raise DataError(f"shape_table({feature!r}): {feature!r} is not a shaped feature of this fit"
+                            f"{nearest(feature, shapes)}; shaped: {', '.join(shapes) or 'none'} (shape one with "
+                            f"task.shape(feature, \"increasing\")).")
+        b = shapes[feature]
+        x = np.union1d(np.linspace(b.low, b.high, max(2, int(points))), b.knots)
+        effect = b.columns(x) @ self.coef[list(b.names)].to_numpy()
+        return pd.DataFrame({"feature": x, "effect": effect, "knot": np.isin(x, b.knots)})
 
     # ---- predictions
     def _scores(self, data, offset=None) -> np.ndarray:

@@ -27,6 +27,7 @@ from learnopt.core.files import MODEL_FORMAT, json_ready, MODEL_SCHEMA, intact, 
 from learnopt.core.status import Status
 from learnopt.core.version import package_versions
 from learnopt.data.encoding import Encoding
+from learnopt.data.shaping import basis_from_plain
 from learnopt.data.table import Dataset
 from learnopt.problem.problem import Problem
 from learnopt.rules.saving import file_entry, from_plain
@@ -93,7 +94,8 @@ def to_dict(fit, *, run: str | None = None) -> dict:
                if getattr(ds, "offset_source", None) is not None else {}),
             "encoding": None if enc is None else {
                 "columns": list(enc.columns), "levels": json_ready(enc.levels),
-                "reference": json_ready(enc.reference), "names": list(enc.names)},
+                "reference": json_ready(enc.reference), "names": list(enc.names),
+                **({"shapes": {c: b.plain() for c, b in enc.shapes.items()}} if enc.shapes else {})},
         },
         "coef": {name: json_ready(float(v)) for name, v in fit.coef.items()},
         "intercept": json_ready(float(fit.intercept)),
@@ -162,7 +164,7 @@ def read(path, *, task_type=None) -> dict:
     enc = t.get("encoding")
     encoding = None if enc is None else Encoding(
         tuple(enc["columns"]), {k: tuple(v) for k, v in enc["levels"].items()}, dict(enc["reference"]),
-        tuple(enc["names"]))
+        tuple(enc["names"]), {c: basis_from_plain(c, b) for c, b in (enc.get("shapes") or {}).items()})
     notes = ["loaded from a model file: no training data"]
     renamed = encoding.former_names if encoding is not None and version < 2 else {}
     if renamed:
