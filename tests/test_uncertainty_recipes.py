@@ -55,3 +55,10 @@ def test_recipe_mistakes_are_named(tmp_path, section, holdout, outputs, words):
     with pytest.raises(LearnoptError) as err:
         read_recipe(path)
     assert words in str(err.value) + " ".join(getattr(err.value, "problems", []) or [])
+
+
+def test_a_mistyped_group_column_names_the_recipe_key(tmp_path):
+    path = _recipe(tmp_path, "[uncertainty]\nrefits = 5\ndraw_groups = \"regoin\"\n")
+    with pytest.raises(LearnoptError) as err:
+        run(read_recipe(path))
+    assert str(err.value).startswith("uncertainty.draw_groups:") and "nearest known: region" in str(err.value)

@@ -3,6 +3,7 @@ outputs (each atomically, stamped with the run's identifier) and then the run re
 from __future__ import annotations
 
 import json
+from contextlib import contextmanager
 import uuid
 from dataclasses import dataclass, field
 
@@ -124,10 +125,20 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     extra = {"client": s.cluster} if task.sharded else {}
     job.fit = task.solve(s.solver, route=s.route, time_limit=s.time_limit, polish=s.polish, **extra, **opts)
     if held is not None and job.fit.status.has_point:
-        job.evaluation = job.fit.evaluate(held, groups=recipe.do.holdout.groups)
+        with keyed("do.holdout.groups"):
+            job.evaluation = job.fit.evaluate(held, groups=recipe.do.holdout.groups)
     _uncertainty(job, held)
     _outputs(job, frame, report)
     return job
+
+
+@contextmanager
+def keyed(key: str):
+    """A data mistake found while running names the recipe key it came from."""
+    try:
+        yield
+    except DataError as exc:
+        raise DataError(f"{key}: {exc}", problems=getattr(exc, "problems", None)) from None
 
 
 def _uncertainty(job: Job, held) -> None:
@@ -137,8 +148,9 @@ def _uncertainty(job: Job, held) -> None:
     if not fit.status.has_point:
         return
     if u.refits:
-        job.bootstrap = fit.bootstrap(u.refits, seed=u.seed, level=u.level, groups=u.draw_groups,
-                                      progress=None)
+        with keyed("uncertainty.draw_groups"):
+            job.bootstrap = fit.bootstrap(u.refits, seed=u.seed, level=u.level, groups=u.draw_groups,
+                                          progress=None)
     if u.intervals and held is not None:
         if not isinstance(held, pd.DataFrame):
             raise DataError("uncertainty.intervals: the held-out rows are sharded; prediction intervals need them "
