@@ -217,3 +217,31 @@ def test_an_unreachable_cluster_fails_fast(monkeypatch, reliability):
                    f"127.0.0.1:{port}", "check the address")
     assert time.perf_counter() - start < 5, err
     assert json.dumps(str(err))
+
+
+def test_a_target_with_several_labels_names_them_and_the_way_forward():
+    """Several classes in one task are not built yet: the refusal names the target's labels and
+    gives a one-against-the-rest column, and following that advice fits (checked against
+    scikit-learn's LogisticRegression on its bundled iris data, l2 with C = 1/(2 n lam))."""
+    from sklearn.datasets import load_iris
+    from sklearn.linear_model import LogisticRegression
+
+    iris = load_iris(as_frame=True)
+    data = iris.frame.drop(columns="target").rename(columns=lambda c: c.replace(" (cm)", "").replace(" ", "_"))
+    data["species"] = iris.target_names[iris.target]
+    with pytest.raises(lo.DataError) as err:
+        lo.classification(data, target="species")
+    said = str(err.value)
+    assert "'species' has 3 labels ['setosa', 'versicolor', 'virginica']" in said
+    assert "data.assign(is_setosa=data['species'] == 'setosa')" in said and "target='is_setosa'" in said
+    with pytest.raises(lo.DataError, match="has 1 label"):
+        lo.classification(data[data.species == "setosa"], target="species")
+    # the advice, followed (versicolor against the rest is not separable, so the l2 fit is unique)
+    binary = data.assign(is_versicolor=data["species"] == "versicolor").drop(columns="species")
+    lam = 0.01
+    fit = lo.classification(binary, target="is_versicolor", loss="logistic").penalize(lo.penalty.l2(lam)).solve()
+    assert fit.status == "optimal"
+    X = binary.drop(columns="is_versicolor").to_numpy()
+    ref = LogisticRegression(C=1 / (2 * len(X) * lam), tol=1e-12, max_iter=10_000).fit(X, binary["is_versicolor"])
+    np.testing.assert_allclose(fit.coef.to_numpy(), ref.coef_.ravel(), atol=1e-5)
+    np.testing.assert_allclose(fit.intercept, ref.intercept_[0], atol=1e-5)

@@ -161,9 +161,7 @@ def labels_of(values: list, positive, name: str) -> tuple:
                         f"{', '.join(sorted({type(v).__name__ for v in labels}))}); make them one type, e.g. "
                         f"all text with .astype(str).")
     if len(labels) != 2:
-        shown = labels[:6]
-        raise DataError(f"The target {name} has {len(labels)} label(s) {shown}{'...' if len(labels) > 6 else ''}; "
-                        f"a binary loss needs exactly two. Merge labels into two classes or pick two.")
+        raise DataError(_not_two(labels, name))
     if positive is None:
         pos = labels[-1]
     elif positive in labels:
@@ -172,6 +170,21 @@ def labels_of(values: list, positive, name: str) -> tuple:
         raise DataError(f"positive={positive!r} is not one of the target labels {labels}.")
     neg = labels[0] if pos == labels[1] else labels[1]
     return neg, pos
+
+
+def _not_two(labels: list, name: str) -> str:
+    """Why a target without exactly two labels cannot be classified, and the way forward."""
+    shown = f"{labels[:6]}{'...' if len(labels) > 6 else ''}"
+    if len(labels) < 2:
+        return (f"The target {name} has {len(labels)} label {shown}; a classification needs rows of two classes. "
+                f"Check the rows selected (a filter may have left one class only).")
+    first = labels[0]
+    column = name.strip("'\"") if name != "array" else "target"
+    flag = re.sub(r"\W+", "_", f"is_{first}").strip("_")
+    return (f"The target {name} has {len(labels)} labels {shown}; learnopt's classification losses fit two "
+            f"classes (several classes in one task are not available yet). Fit one class against the rest "
+            f"with a two-label column, e.g. data.assign({flag}=data[{column!r}] == {first!r}) and "
+            f"target={flag!r} (one task per class), or merge the labels into two classes.")
 
 
 def open_memory(data, target, *, kind: str = "regression", features: Sequence[str] | None = None,
