@@ -41,7 +41,7 @@ def test_negative_and_zero_weights(df):
 
 
 def test_labels(df):
-    with pytest.raises(lo.DataError, match="exactly two"):
+    with pytest.raises(lo.DataError, match="has 3 labels .*fit two classes.*is_0=data..label.. == 0"):
         lo.classification(df.assign(label=np.arange(30) % 3), target="label", features=["x"])
     with pytest.raises(lo.DataError, match="positive='c'"):
         lo.classification(df, target="label", features=["x"], positive="c")
