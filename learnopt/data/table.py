@@ -10,6 +10,7 @@ column and the fix.
 """
 from __future__ import annotations
 
+import ast
 import csv
 import gzip
 import os
@@ -179,7 +180,7 @@ def _not_two(labels: list, name: str) -> str:
         return (f"The target {name} has {len(labels)} label {shown}; a classification needs rows of two classes. "
                 f"Check the rows selected (a filter may have left one class only).")
     first = labels[0]
-    column = name.strip("'\"") if name != "array" else "target"
+    column = ast.literal_eval(name) if name != "array" else "target"   # name is the column's repr
     flag = re.sub(r"\W+", "_", f"is_{first}").strip("_")
     return (f"The target {name} has {len(labels)} labels {shown}; learnopt's classification losses fit two "
             f"classes (several classes in one task are not available yet). Fit one class against the rest "
