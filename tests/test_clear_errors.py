@@ -220,19 +220,21 @@ def test_an_unreachable_cluster_fails_fast(monkeypatch, reliability):
 
 
 def test_a_target_with_several_labels_names_them_and_the_way_forward():
-    """Several classes in one task are not built yet: the refusal names the target's labels and
-    gives a one-against-the-rest column, and following that advice fits (checked against
-    scikit-learn's LogisticRegression on its bundled iris data, l2 with C = 1/(2 n lam))."""
+    """Several classes are fitted with the logistic and hinge losses; another loss is refused with
+    the target's labels and a one-against-the-rest column, and following that advice fits
+    (checked against scikit-learn's LogisticRegression on its bundled iris data, l2 with
+    C = 1/(2 n lam))."""
     from sklearn.datasets import load_iris
     from sklearn.linear_model import LogisticRegression
 
     iris = load_iris(as_frame=True)
     data = iris.frame.drop(columns="target").rename(columns=lambda c: c.replace(" (cm)", "").replace(" ", "_"))
     data["species"] = iris.target_names[iris.target]
-    with pytest.raises(lo.DataError) as err:
-        lo.classification(data, target="species")
+    with pytest.raises(lo.ParameterError) as err:
+        lo.classification(data, target="species", loss="squared_hinge")
     said = str(err.value)
-    assert "'species' has 3 labels ['setosa', 'versicolor', 'virginica']" in said
+    assert "'species' of 3 labels ['setosa', 'versicolor', 'virginica']" in said
+    assert "loss='logistic'" in said and "loss='hinge'" in said
     assert "data.assign(is_setosa=data['species'] == 'setosa')" in said and "target='is_setosa'" in said
     with pytest.raises(lo.DataError, match="has 1 label"):
         lo.classification(data[data.species == "setosa"], target="species")

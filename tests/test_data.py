@@ -41,8 +41,8 @@ def test_negative_and_zero_weights(df):
 
 
 def test_labels(df):
-    with pytest.raises(lo.DataError, match="has 3 labels .*fit two classes.*is_0=data..label.. == 0"):
-        lo.classification(df.assign(label=np.arange(30) % 3), target="label", features=["x"])
+    with pytest.raises(lo.ParameterError, match="3 labels .*loss='logistic'.*is_0=data..label.. == 0"):
+        lo.classification(df.assign(label=np.arange(30) % 3), target="label", features=["x"], loss="squared_hinge")
     with pytest.raises(lo.DataError, match="positive='c'"):
         lo.classification(df, target="label", features=["x"], positive="c")
     t = lo.classification(df, target="label", features=["x"])
@@ -123,8 +123,9 @@ def test_gateway_battery_automatic_handling():
     assert lo.regression(_BASE, "y", weights=np.full(5, 1e-300)).solve().status == "optimal"
     with pytest.raises(lo.DataError, match="sums to zero"):
         lo.regression(_BASE, "y", weights=np.zeros(5))
-    with pytest.raises(lo.DataError, match="3 label"):
-        lo.classification(_BASE.assign(y=[1, 2, 3, 1, 2]), "y")
+    with pytest.raises(lo.ParameterError, match="3 labels"):
+        lo.classification(_BASE.assign(y=[1, 2, 3, 1, 2]), "y", loss="squared_hinge")
+    assert type(lo.classification(_BASE.assign(y=[1, 2, 3, 1, 2]), "y")).__name__ == "ClassesTask"
 
 
 def test_check_names_identifier_and_proportional_columns_and_solve_says_it_interpolates():

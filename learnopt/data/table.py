@@ -40,7 +40,7 @@ class Dataset:
     names: tuple[str, ...]
     frame: pd.DataFrame | None
     encoding: Encoding | None
-    labels: tuple[Any, Any] | None = None          # (negative, positive) for classification
+    labels: tuple | None = None          # (negative, positive) for classification; every label for several classes
     notes: list[str] = field(default_factory=list)
     offset: np.ndarray | None = None               # added to each row's linear predictor
     offset_source: tuple | None = None             # (kind, column): see learnopt.data.offsets
@@ -146,13 +146,16 @@ def _target(values: pd.Series | np.ndarray, kind: str, positive, name: str):
     s = pd.Series(values)
     if s.isna().any():
         raise DataError(f"The target {name} has {int(s.isna().sum())} missing label(s); drop those rows.")
+    if kind == "classes":                  # several classes: y holds each row's class number
+        labels = sorted_labels(s.tolist(), name)
+        return s.map({v: float(i) for i, v in enumerate(labels)}).to_numpy(float), labels
     neg, pos = labels_of(s.tolist(), positive, name)
     y = np.where(s.to_numpy() == pos, 1.0, -1.0)
     return y, (neg, pos)
 
 
-def labels_of(values: list, positive, name: str) -> tuple:
-    """(negative, positive) labels of a binary target from its values (or distinct values)."""
+def sorted_labels(values: list, name: str) -> tuple:
+    """The distinct labels of a target, sorted; refused when missing or when two print alike."""
     if pd.Series(values, dtype=object).isna().any():
         raise DataError(f"The target {name} has missing label(s); drop those rows.")
     labels = sorted(set(values), key=lambda v: (str(type(v)), v))
@@ -161,6 +164,12 @@ def labels_of(values: list, positive, name: str) -> tuple:
         raise DataError(f"The target {name} holds labels that print alike but differ in type ({', '.join(alike)}: "
                         f"{', '.join(sorted({type(v).__name__ for v in labels}))}); make them one type, e.g. "
                         f"all text with .astype(str).")
+    return tuple(labels)
+
+
+def labels_of(values: list, positive, name: str) -> tuple:
+    """(negative, positive) labels of a binary target from its values (or distinct values)."""
+    labels = list(sorted_labels(values, name))
     if len(labels) != 2:
         raise DataError(_not_two(labels, name))
     if positive is None:
@@ -174,18 +183,22 @@ def labels_of(values: list, positive, name: str) -> tuple:
 
 
 def _not_two(labels: list, name: str) -> str:
-    """Why a target without exactly two labels cannot be classified, and the way forward."""
+    """Why a target without exactly two labels cannot be fitted as two classes, and the way forward."""
     shown = f"{labels[:6]}{'...' if len(labels) > 6 else ''}"
     if len(labels) < 2:
         return (f"The target {name} has {len(labels)} label {shown}; a classification needs rows of two classes. "
                 f"Check the rows selected (a filter may have left one class only).")
+    return (f"The target {name} has {len(labels)} labels {shown}; this task fits two classes. Several classes are "
+            f"fitted with loss='logistic' or loss='hinge' on data in memory; else " + one_against_rest(labels, name))
+
+
+def one_against_rest(labels: list, name: str) -> str:
+    """The advice to fit one class against the rest with a two-label column."""
     first = labels[0]
     column = ast.literal_eval(name) if name != "array" else "target"   # name is the column's repr
     flag = re.sub(r"\W+", "_", f"is_{first}").strip("_")
-    return (f"The target {name} has {len(labels)} labels {shown}; learnopt's classification losses fit two "
-            f"classes (several classes in one task are not available yet). Fit one class against the rest "
-            f"with a two-label column, e.g. data.assign({flag}=data[{column!r}] == {first!r}) and "
-            f"target={flag!r} (one task per class), or merge the labels into two classes.")
+    return (f"fit one class against the rest with a two-label column, e.g. data.assign({flag}=data[{column!r}] == "
+            f"{first!r}) and target={flag!r} (one task per class), or merge the labels into two classes.")
 
 
 def open_memory(data, target, *, kind: str = "regression", features: Sequence[str] | None = None,

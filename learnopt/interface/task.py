@@ -21,6 +21,7 @@ from learnopt.core.errors import ParameterError
 from learnopt.core.files import read_model
 from learnopt.data.gateway import from_data
 from learnopt.data.shaping import FORMS, shaped_dataset
+from learnopt.interface.classes_task import ClassesTask, label_count, several_classes
 from learnopt.problem.formulate import build, one_row
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import as_spec, compile_all
@@ -306,12 +307,30 @@ def regression(data, target, loss: _losses.Loss | str = "squared", *, features: 
 
 
 def classification(data, target, loss: _losses.Loss | str = "logistic", *, positive=None,
-                   features: Sequence[str] | None = None, weights=None, intercept: bool = True) -> Task:
-    """Build a binary classification task; labels are mapped to -1/+1.
+                   features: Sequence[str] | None = None, weights=None, intercept: bool = True,
+                   reference=None) -> Task | ClassesTask:
+    """Build a classification task.
 
-    ``positive`` is the label mapped to +1 (default: the label that sorts last). Margin losses:
-    hinge, squared_hinge, logistic (default); squared regresses the -1/+1 labels.
+    Two labels: a binary task, labels mapped to -1/+1; ``positive`` is the label mapped to +1
+    (default: the label that sorts last). Margin losses: hinge, squared_hinge, logistic
+    (default); squared regresses the -1/+1 labels.
+
+    Three or more labels (data in memory): a :class:`~learnopt.interface.classes_task.ClassesTask`
+    with one coefficient per feature and class; ``logistic`` fits the multinomial loss (softmax
+    cross-entropy), ``hinge`` the multiclass hinge of Crammer and Singer. Coefficients no penalty
+    acts on sum to zero over the classes, or ``reference=label`` fixes that class's at 0.
     """
+    data, count = label_count(data, target)
+    if count is not None and count > 2:
+        if positive is not None:
+            raise ParameterError(f"positive={positive!r}: the target has {count} labels, so no single one is "
+                                 f"positive; drop positive=, or give reference= to fix one class's coefficients at 0.",
+                                 parameters=("positive",))
+        return several_classes(data, target, loss, features=features, weights=weights, intercept=intercept,
+                               reference=reference)
+    if reference is not None:
+        raise ParameterError(f"reference={reference!r}: a reference class applies to a target of three or more "
+                             f"labels; for two labels give positive= instead.", parameters=("reference",))
     return _build("classification", data, target, loss, features, weights, intercept, positive)
 
 

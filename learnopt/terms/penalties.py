@@ -8,6 +8,8 @@ l2(strength)                           strength * sum_j c_j w_j^2            (no
 elastic_net(strength, mix)             strength * sum_j c_j (mix |w_j| + (1 - mix) w_j^2)
 group(strength, groups)                strength * sum_g c_g sqrt(|g|) ||w_g||_2
 total_variation(strength, names)       strength * sum_k c_k |w_{k+1} - w_k| over the named order
+shared(strength, features)             strength * sum_j c_j sqrt(K) ||w_j over the K classes||_2 (several
+                                       classes; with one coefficient per feature: strength * sum c_j |w_j|)
 custom(fn, name=...)                   fn(w), any DCP-convex cvxpy expression
 =====================================  ==================================================
 
@@ -36,11 +38,12 @@ from learnopt.terms.penalty_base import (CustomPenalty, Factors, Penalty, freeze
 from learnopt.terms.registry import EXAMPLE_NAMES, PenaltySpec
 from learnopt.terms.separable import Separable, separable_conjugate, separable_shrink
 from learnopt.terms.structured import Group, TotalVariation
+from learnopt.terms.across import Shared, shared
 
-__all__ = ["Penalty", "l1", "l2", "elastic_net", "group", "total_variation", "custom", "PENALTIES",
+__all__ = ["Penalty", "l1", "l2", "elastic_net", "group", "total_variation", "shared", "custom", "PENALTIES",
            "PenaltySpec",
            # the classes (model files name them; isinstance checks use them) and their helpers
-           "Separable", "Group", "TotalVariation", "CustomPenalty", "separable_conjugate", "separable_shrink",
+           "Separable", "Group", "TotalVariation", "Shared", "CustomPenalty", "separable_conjugate", "separable_shrink",
            "Factors", "Weights", "DataError", "ParameterError"]
 
 Weights = Factors   # the old name of the type

@@ -1,0 +1,141 @@
+"""Solving a task with several classes: the whole program to a registry solver (the next capable
+solver when one fails or its point is not certified), then learnopt's own certificate.
+
+The program is solved over centred and scaled columns (:func:`learnopt.problem.classes.formulate`)
+and its point mapped back; the certificate is computed on the original data.
+"""
+from __future__ import annotations
+
+import time
+
+import numpy as np
+import pandas as pd
+
+from learnopt.core.status import Status
+from learnopt.problem.classes import ClassesProblem, formulate
+from learnopt.rules.requirements import Requirement
+from learnopt.solve.certificate import Certificate
+from learnopt.solve.classes_certificate import certify_classes
+from learnopt.solve.classes_fit import ClassesFit
+from learnopt.solve.routes.base import SOLVER_FAULTS, read_multipliers, run
+from learnopt.solve.solvers import plan
+from learnopt.solve.timings import Attempt, Timings
+
+BINDS = 1e-6        # a rule binds when its slack is within this (relative to its numbers)
+
+
+def _identity_rows(problem: ClassesProblem) -> list[Requirement]:
+    E = problem.identification()
+    if not E:
+        return []
+    return [Requirement("coefficients sum to zero over the classes", "==", np.vstack(E), np.zeros(len(E)))]
+
+
+def _start(model, problem) -> np.ndarray | None:
+    """The multiclass hinge's dual point from the solver: q_ik = (multiplier of row i, class k) / a_i."""
+    if model.margins is None or model.margins.dual_value is None:
+        return None
+    D = np.clip(np.asarray(model.margins.dual_value, float), 0.0, None)
+    sums = D.sum(axis=1, keepdims=True)
+    Y = np.zeros_like(D)
+    Y[np.arange(len(D)), problem.dataset.y.astype(int)] = 1.0
+    return np.where(sums > 0, D / np.where(sums > 0, sums, 1.0), Y)
+
+
+def solve_classes(problem: ClassesProblem, *, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
+                  feas_tol: float = 1e-6, time_limit: float | None = None, fallback: bool = True,
+                  solver_options: dict | None = None, verbose: bool = False) -> ClassesFit:
+    t_start = time.perf_counter()
+    model = formulate(problem)
+    ident = _identity_rows(problem)
+    chain = plan(problem.problem_class(), solver, fallback=fallback)
+    attempts, best, infeasible = [], None, False
+    for spec in chain:
+        t0 = time.perf_counter()
+        try:
+            status, compile_s, solve_s, _ = run(model.problem, spec, {**spec.settings(tol, time_limit),
+                                                                       **(solver_options or {})}, verbose)
+        except SOLVER_FAULTS as exc:
+            attempts.append(Attempt(spec.name, f"error: {str(exc).splitlines()[0][:200]}",
+                                    seconds=time.perf_counter() - t0))
+            continue
+        if status in ("infeasible", "infeasible_inaccurate"):
+            infeasible = True
+            attempts.append(Attempt(spec.name, status, seconds=time.perf_counter() - t0))
+            continue
+        if model.scaled.value is None:
+            attempts.append(Attempt(spec.name, f"{status}: no point", seconds=time.perf_counter() - t0))
+            continue
+        theta = model.to_theta @ model.scaled.value
+        mults = read_multipliers(model.constraints)
+        t_cert = time.perf_counter()
+        cert = certify_classes(problem, theta, _start(model, problem), mults + [np.zeros(r.rows) for r in ident],
+                               requirements=list(problem.requirements) + ident)
+        certify_s = time.perf_counter() - t_cert
+        ok = cert.passes(gap_tol, feas_tol)
+        attempts.append(Attempt(spec.name, "certified" if ok else f"{status}, not certified", cert.primal, cert.gap,
+                                time.perf_counter() - t0))
+        timings = Timings(build=model.build_seconds, compile=compile_s, solve=solve_s, certify=certify_s)
+        if best is None or cert.gap < best[1].gap:
+            best = (theta, cert, spec.name, mults, timings)
+        if ok:
+            break
+    total = time.perf_counter() - t_start
+    return _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total)
+
+
+def _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total) -> ClassesFit:
+    labels, names = list(problem.labels), list(problem.features)
+    how = "sum to zero" if problem.reference is None else f"reference class {problem.reference!r}"
+    common = dict(identification=how, route="direct", attempts=tuple(attempts), task=problem)
+    if best is None:
+        if infeasible:
+            status, msg = Status.INFEASIBLE, ("the rules cannot all hold together; loosen or drop one of: "
+                                              + "; ".join(r.text for r in problem.rules))
+        else:
+            status, msg = Status.FAILED, ("no solver returned a usable point: "
+                                          + "; ".join(f"{a.solver}: {a.outcome}" for a in attempts))
+        nan = pd.DataFrame(np.nan, index=names, columns=labels)
+        return ClassesFit(status=status, message=msg, objective=np.nan, gap=np.nan, rel_gap=np.nan,
+                          violation=np.nan, coef=nan, intercept=pd.Series(np.nan, index=labels),
+                          prices=pd.Series(dtype=float), binding=pd.Series(dtype=bool),
+                          timings=Timings(total=total), solver=None, **common)
+    theta, cert, solver, mults, timings = best
+    status, msg = _verdict(cert, gap_tol, feas_tol)
+    W, b = problem.split(theta)
+    coef = pd.DataFrame(0.0, index=names, columns=labels)
+    intercept = pd.Series(0.0, index=labels)
+    for k, label in enumerate(problem.carried):
+        coef[label] = W[:, k]
+        intercept[label] = b[k]
+    prices, binding = _prices(problem, theta, mults)
+    return ClassesFit(status=status, message=msg, objective=cert.primal, gap=cert.gap, rel_gap=cert.rel_gap,
+                      violation=cert.violation, coef=coef, intercept=intercept, prices=prices, binding=binding,
+                      timings=Timings(build=timings.build, compile=timings.compile, solve=timings.solve,
+                                      certify=timings.certify, total=total),
+                      solver=solver, certificate=cert, **common)
+
+
+def _verdict(cert: Certificate, gap_tol, feas_tol):
+    if cert.passes(gap_tol, feas_tol):
+        return Status.OPTIMAL, (f"certified: relative gap {cert.rel_gap:.2g} <= {gap_tol:g}, "
+                                f"worst relative violation {cert.rel_violation:.2g} <= {feas_tol:g}")
+    why = []
+    if not np.isfinite(cert.gap) or cert.rel_gap > gap_tol:
+        why.append(f"relative gap {cert.rel_gap:.3g} > {gap_tol:g}" + (f" ({cert.note})" if cert.note else ""))
+    if cert.rel_violation > feas_tol:
+        why.append(f"a rule is violated by {cert.rel_violation:.3g} (relative) > {feas_tol:g}")
+    return Status.UNVERIFIED, ("the certificate does not confirm optimality: " + "; ".join(why)
+                               + ". Try a tighter tol or another solver.")
+
+
+def _prices(problem, theta, mults):
+    """Per rule as the user wrote it: the sum of its rows' multipliers, and whether a row binds."""
+    prices, binding = {}, {}
+    for req, m in zip(problem.requirements, mults):
+        key = req.source
+        value = float(np.sum(m)) if req.sense == "==" else float(np.sum(np.maximum(m, 0.0)))
+        binds = bool(np.min(req.slack(theta), initial=np.inf) <= BINDS * req.scale()) or req.sense == "=="
+        prices[key] = prices.get(key, 0.0) + value
+        binding[key] = binding.get(key, False) or binds
+    return pd.Series(prices, dtype=float), pd.Series(binding, dtype=bool)
