@@ -99,13 +99,14 @@ class ClassesTask(ClassesProblem):
                            "bug, please report it with the task.")
         return Verdict(not reasons, CLASS_LABEL[self.problem_class()], pieces, reasons, list(self.dataset.notes))
 
-    def solve(self, solver: str | None = None, *, tol: float = 1e-9, gap_tol: float = 1e-7, feas_tol: float = 1e-6,
-              time_limit: float | None = None, fallback: bool = True, solver_options: dict | None = None,
-              verbose: bool = False) -> ClassesFit:
+    def solve(self, solver: str | None = None, *, route: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
+              feas_tol: float = 1e-6, time_limit: float | None = None, fallback: bool = True,
+              solver_options: dict | None = None, verbose: bool = False) -> ClassesFit:
         """Solve and certify; a :class:`~learnopt.solve.classes_fit.ClassesFit` (parameters as
-        :meth:`learnopt.Task.solve`)."""
-        return solve_classes(self, solver=solver, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol, time_limit=time_limit,
-                             fallback=fallback, solver_options=solver_options, verbose=verbose)
+        :meth:`learnopt.Task.solve`). ``route``: "newton" (multinomial loss, l2 penalties, no rules:
+        the default there) or "direct" (the whole program to a solver); ``fit.route`` says which."""
+        return solve_classes(self, solver=solver, route=route, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol,
+                             time_limit=time_limit, fallback=fallback, solver_options=solver_options, verbose=verbose)
 
     def __repr__(self) -> str:
         return (f"ClassesTask({len(self.labels)} classes, loss={self.loss.describe()}, {self.dataset.n} rows x "

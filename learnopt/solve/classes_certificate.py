@@ -101,9 +101,11 @@ def _repair(Q, lay: _Layout, g_of, T, t, rounds: int = 6):
         Hr = H[rows]
         ar = lay.a[rows]
         S = np.empty((T.size, T.size))
-        for u in range(T.size):
-            weights = ar[:, None] * Hr[:, ki[u], :][:, ki]   # |rows| x |T|
-            S[u] = (Xj[:, fi[u]][:, None] * weights * Xj[:, fi]).sum(axis=0)
+        by_class = {k: np.flatnonzero(ki == k) for k in np.unique(ki)}
+        for k, iu in by_class.items():                 # one weighted Gram per pair of classes
+            left = Xj[:, fi[iu]]
+            for l, iv in by_class.items():
+                S[np.ix_(iu, iv)] = (left * (ar * Hr[:, k, l])[:, None]).T @ Xj[:, fi[iv]]
         lam, *_ = np.linalg.lstsq(S, -want, rcond=None)
         V = np.zeros((rows.size, lay.K))
         np.add.at(V.T, ki, (Xj[:, fi] * lam).T)

@@ -11,12 +11,15 @@ import time
 import numpy as np
 import pandas as pd
 
+from learnopt.core import checks as params
+from learnopt.core.errors import ParameterError
 from learnopt.core.status import Status
 from learnopt.problem.classes import ClassesProblem, formulate
 from learnopt.rules.requirements import Requirement
 from learnopt.solve.certificate import Certificate
 from learnopt.solve.classes_certificate import certify_classes
 from learnopt.solve.classes_fit import ClassesFit
+from learnopt.solve.classes_newton import newton, why_not
 from learnopt.solve.routes.base import SOLVER_FAULTS, read_multipliers, run
 from learnopt.solve.solvers import plan
 from learnopt.solve.timings import Attempt, Timings
@@ -42,14 +45,39 @@ def _start(model, problem) -> np.ndarray | None:
     return np.where(sums > 0, D / np.where(sums > 0, sums, 1.0), Y)
 
 
-def solve_classes(problem: ClassesProblem, *, solver: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
-                  feas_tol: float = 1e-6, time_limit: float | None = None, fallback: bool = True,
-                  solver_options: dict | None = None, verbose: bool = False) -> ClassesFit:
+ROUTES = ("direct", "newton")
+
+
+def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: str | None = None, tol: float = 1e-9,
+                  gap_tol: float = 1e-7, feas_tol: float = 1e-6, time_limit: float | None = None,
+                  fallback: bool = True, solver_options: dict | None = None, verbose: bool = False) -> ClassesFit:
+    """Route "newton" (multinomial loss, l2-type penalties, no rules; the default there unless a
+    solver is named) or "direct" (the whole program to a solver); a newton point the certificate
+    does not confirm is handed on to the direct route."""
     t_start = time.perf_counter()
-    model = formulate(problem)
+    params.check("solve", route=(route, params.OneOf(ROUTES + (None,))))
+    reason = why_not(problem)
+    if route == "newton" and reason:
+        raise ParameterError(f"solve(route='newton'): {reason}; leave route out or give route='direct'.",
+                             parameters=("route",))
     ident = _identity_rows(problem)
-    chain = plan(problem.problem_class(), solver, fallback=fallback)
     attempts, best, infeasible = [], None, False
+    enough = 0.01 * gap_tol
+    if route == "newton" or (route is None and reason is None and solver is None):
+        theta, steps, seconds = newton(problem, time_limit=time_limit)
+        t_cert = time.perf_counter()
+        cert = certify_classes(problem, theta, None, [np.zeros(r.rows) for r in ident], requirements=ident,
+                               enough=enough)
+        certify_s = time.perf_counter() - t_cert
+        ok = cert.passes(gap_tol, feas_tol)
+        attempts.append(Attempt("newton", f"{steps} steps, " + ("certified" if ok else "not certified"),
+                                cert.primal, cert.gap, seconds + certify_s))
+        best = (theta, cert, "numpy", [], Timings(solve=seconds, certify=certify_s))
+        if ok or not fallback:
+            return _assemble(problem, best, attempts, False, gap_tol, feas_tol, time.perf_counter() - t_start,
+                             route="newton")
+    model = formulate(problem)
+    chain = plan(problem.problem_class(), solver, fallback=fallback)
     for spec in chain:
         t0 = time.perf_counter()
         try:
@@ -70,24 +98,27 @@ def solve_classes(problem: ClassesProblem, *, solver: str | None = None, tol: fl
         mults = read_multipliers(model.constraints)
         t_cert = time.perf_counter()
         cert = certify_classes(problem, theta, _start(model, problem), mults + [np.zeros(r.rows) for r in ident],
-                               requirements=list(problem.requirements) + ident)
+                               requirements=list(problem.requirements) + ident, enough=enough)
         certify_s = time.perf_counter() - t_cert
         ok = cert.passes(gap_tol, feas_tol)
         attempts.append(Attempt(spec.name, "certified" if ok else f"{status}, not certified", cert.primal, cert.gap,
                                 time.perf_counter() - t0))
         timings = Timings(build=model.build_seconds, compile=compile_s, solve=solve_s, certify=certify_s)
+        if best is not None and best[2] == "numpy" and cert.gap >= best[1].gap:
+            continue
         if best is None or cert.gap < best[1].gap:
             best = (theta, cert, spec.name, mults, timings)
         if ok:
             break
     total = time.perf_counter() - t_start
-    return _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total)
+    route = "newton" if best is not None and best[2] == "numpy" else "direct"
+    return _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total, route=route)
 
 
-def _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total) -> ClassesFit:
+def _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total, route="direct") -> ClassesFit:
     labels, names = list(problem.labels), list(problem.features)
     how = "sum to zero" if problem.reference is None else f"reference class {problem.reference!r}"
-    common = dict(identification=how, route="direct", attempts=tuple(attempts), task=problem)
+    common = dict(identification=how, route=route, attempts=tuple(attempts), task=problem)
     if best is None:
         if infeasible:
             status, msg = Status.INFEASIBLE, ("the rules cannot all hold together; loosen or drop one of: "
