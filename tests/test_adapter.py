@@ -75,5 +75,27 @@ def test_adapter_errors_are_clear():
         lo.estimator("ranking")
     with pytest.raises(lo.LearnoptError, match="infeasible"):
         lo.estimator("regression", rules=["x0 >= 1", "x0 <= 0"]).fit(X, y)
-    with pytest.raises(ValueError, match="Only binary classification is supported"):
-        lo.estimator("classification").fit(X, np.arange(20) % 3)
+    with pytest.raises(lo.ParameterError, match="loss='squared_hinge' with the target array of 3 labels"):
+        lo.estimator("classification", "squared_hinge").fit(X, np.arange(20) % 3)
+    with pytest.raises(ValueError, match="continuous"):
+        lo.estimator("classification").fit(X, np.linspace(0, 1, 20))
+
+
+def test_several_classes_match_scikit_learn_logistic_regression_on_wine():
+    """reference: scikit-learn LogisticRegression (multinomial, lbfgs) after the same
+    StandardScaler, C = 1/(2 n lam); coef_ (classes x features), probabilities and labels agree."""
+    from sklearn.datasets import load_wine
+    from sklearn.linear_model import LogisticRegression
+
+    X, y = load_wine(return_X_y=True)
+    names = np.array(["barolo", "grignolino", "barbera"])[y]
+    lam = 0.01
+    ours = make_pipeline(StandardScaler(), lo.estimator("classification", "logistic", l2=lam)).fit(X, names)
+    ref = make_pipeline(StandardScaler(), LogisticRegression(C=1 / (2 * len(X) * lam), tol=1e-12,
+                                                             max_iter=100_000)).fit(X, names)
+    assert list(ours[-1].classes_) == list(ref[-1].classes_)
+    assert ours[-1].coef_.shape == (3, 13) and ours[-1].fit_.status == "optimal"
+    np.testing.assert_allclose(ours[-1].coef_, ref[-1].coef_, atol=1e-5)
+    np.testing.assert_allclose(ours.predict_proba(X), ref.predict_proba(X), atol=1e-6)
+    assert (ours.predict(X) == ref.predict(X)).all()
+    assert cross_val_score(lo.estimator("classification", "hinge", l2=0.01), X / X.std(axis=0), y, cv=3).min() > 0.85

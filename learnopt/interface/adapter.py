@@ -11,10 +11,12 @@ coefficients refer to the scaled features.
 from __future__ import annotations
 
 import numpy as np
+from scipy.special import expit, softmax
 
 from learnopt.core import checks as params
 from learnopt.core.errors import LearnoptError, MissingDependencyError
 from learnopt.interface.task import classification, regression
+from learnopt.solve.classes_fit import ClassesFit
 from learnopt.terms import penalties as pen
 
 try:
@@ -64,13 +66,19 @@ class _Base(BaseEstimator):
         if not fit.status.has_point:
             raise LearnoptError(f"The fit ended {fit.status!r}: {fit.message}")
         self.fit_ = fit
-        self.coef_ = fit.coef.to_numpy().copy()
-        self.intercept_ = float(fit.intercept)
+        if isinstance(fit, ClassesFit):          # several classes: one row per class, as scikit-learn
+            self.coef_ = fit.coef.to_numpy().T.copy()
+            self.intercept_ = fit.intercept.to_numpy().copy()
+        else:
+            self.coef_ = fit.coef.to_numpy().copy()
+            self.intercept_ = float(fit.intercept)
         return self
 
     def _score_rows(self, X):
         check_is_fitted(self, "fit_")
         X = validate_data(self, X, accept_sparse=("csr", "csc"), dtype=np.float64, reset=False)
+        if np.ndim(self.coef_) == 2:
+            return np.asarray(X @ self.coef_.T) + self.intercept_
         return np.asarray(X @ self.coef_).ravel() + self.intercept_
 
     def __sklearn_tags__(self):
@@ -93,9 +101,11 @@ class Regressor(RegressorMixin, _Base):
 
 
 class Classifier(ClassifierMixin, _Base):
-    """A learnopt binary classification task as a scikit-learn classifier (see :func:`estimator`).
+    """A learnopt classification task as a scikit-learn classifier (see :func:`estimator`).
 
-    ``classes_[1]`` is the positive class (+1); ``decision_function`` > 0 predicts it.
+    Two classes: ``classes_[1]`` is the positive class (+1); ``decision_function`` > 0 predicts
+    it. Three or more: the multinomial loss (logistic) or the multiclass hinge (hinge), with
+    ``coef_`` of shape (classes, features) and scores per class (sum-to-zero identification).
     """
 
     _kind = "classification"
@@ -109,36 +119,44 @@ class Classifier(ClassifierMixin, _Base):
         X, y = validate_data(self, X, y, accept_sparse=("csr", "csc"), dtype=np.float64)
         check_classification_targets(y)
         kind = type_of_target(y, input_name="y", raise_unknown=True)
-        if kind != "binary":
-            raise ValueError(f"Only binary classification is supported. The type of the target is {kind}; "
-                             f"fit one model per class pair or per class.")
+        if kind not in ("binary", "multiclass"):
+            raise ValueError(f"learnopt classifies a target of one label per row; the type of the target is {kind}.")
         self.classes_ = np.unique(y)
-        if len(self.classes_) != 2:
-            raise ValueError(f"learnopt classifies two classes; the target has 1 class "
+        if len(self.classes_) < 2:
+            raise ValueError(f"learnopt classifies two or more classes; the target has 1 class "
                              f"({self.classes_.tolist()}).")
+        if len(self.classes_) > 2:                # several classes: class numbers in classes_ order
+            return self._solve(self._task(X, np.searchsorted(self.classes_, y), sample_weight))
         signed = np.where(y == self.classes_[1], 1, 0)
         return self._solve(self._task(X, signed, sample_weight))
 
     def decision_function(self, X):
+        """Scores: one per row (two classes: > 0 predicts classes_[1]) or one per row and class."""
         return self._score_rows(X)
 
     def predict(self, X):
         check_is_fitted(self, "fit_")
-        return self.classes_[(self.decision_function(X) > 0).astype(int)]
+        scores = self.decision_function(X)
+        if scores.ndim == 2:
+            return self.classes_[scores.argmax(axis=1)]
+        return self.classes_[(scores > 0).astype(int)]
 
     def _is_logistic(self):
         return self.loss == "logistic" or getattr(self.loss, "name", None) == "logistic"
 
     @available_if(_is_logistic)
     def predict_proba(self, X):
-        """[P(classes_[0]), P(classes_[1])] per row; only for loss='logistic'."""
-        from scipy.special import expit
-        p = expit(self.decision_function(X))
+        """Class probabilities per row, in classes_ order; only for loss='logistic' (two classes:
+        the logistic function of the score; several: the softmax of the scores)."""
+        scores = self.decision_function(X)
+        if scores.ndim == 2:
+            return softmax(scores, axis=1)
+        p = expit(scores)
         return np.column_stack([1.0 - p, p])
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()
-        tags.classifier_tags.multi_class = False
+        tags.classifier_tags.multi_class = True
         return tags
 
 
@@ -163,7 +181,7 @@ def estimator(kind: str = "regression", loss=None, *, l1: float = 0.0, l2: float
 
     Parameters
     ----------
-    kind : "regression" or "classification" (two classes).
+    kind : "regression" or "classification" (two classes, or several with the logistic or hinge loss).
     loss : a loss name or object (default: squared for regression, hinge for classification).
     l1, l2 : strengths of l1 / l2 penalties on every coefficient (grid-searchable:
         ``set_params(l1=0.1)``, or ``model__l1`` inside a Pipeline).
