@@ -28,6 +28,7 @@ from learnopt.interface.demo import write_demo
 from learnopt.interface.output_set import ANYWHERE, examine, plan
 from learnopt.interface.recipes import read_recipe
 from learnopt.interface.report_sure import SHOWN_GROUPS
+from learnopt.solve.classes_fit import ClassesFit
 from learnopt.solve.fitfile import to_dict
 from learnopt.solve.standing import gauge
 from learnopt.solve.solvers import REGISTRY as SOLVERS
@@ -156,10 +157,27 @@ def _show_centres(job, as_json: bool) -> None:
     con.print(PLACEMENT_CAUTION, markup=False)
 
 
+def _show_classes(job, as_json: bool) -> None:
+    fit = job.fit
+    if as_json:
+        out = {"fit": fit.to_dict(run=job.run_id), "written": job.written, "run": job.run_id, "record": job.record}
+        if job.evaluation is not None:
+            out["evaluation"] = job.evaluation.to_dict()
+        click.echo(json.dumps(out, default=str))
+        return
+    con = _console()
+    con.print(fit.summary(), markup=False)
+    if job.evaluation is not None:
+        con.print(_frame_table(job.evaluation.to_frame("value"), "held-out evaluation"))
+    _show_written(con, job)
+
+
 def _show(job, as_json: bool) -> None:
     if job.centres:
         return _show_centres(job, as_json)
     fit = job.fit
+    if isinstance(fit, ClassesFit):
+        return _show_classes(job, as_json)
     if as_json:
         out = {"fit": to_dict(fit, run=job.run_id), "written": job.written, "run": job.run_id, "record": job.record}
         if job.compare is not None:

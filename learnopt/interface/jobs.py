@@ -17,6 +17,7 @@ from learnopt.interface.report import html
 from learnopt.interface.output_set import Planned, plan, record
 from learnopt.interface.placing import csv_chunks, write_centres
 from learnopt.interface.recipes import Recipe, _frame, build_task, read_from
+from learnopt.interface.classes_task import ClassesTask
 
 
 @dataclass
@@ -114,6 +115,8 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
         return job
     opts = dict(tol=s.tol, gap_tol=s.gap_tol, feas_tol=s.feas_tol)
     action = action or recipe.do.action
+    if isinstance(task, ClassesTask):
+        return _run_classes(job, frame, held, action, report, opts)
     if action == "compare":
         job.compare = task.compare(list(solvers or recipe.do.solvers), **opts)
     if action == "by_group":
@@ -129,6 +132,41 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
             job.evaluation = job.fit.evaluate(held, groups=recipe.do.holdout.groups)
     _uncertainty(job, held)
     _outputs(job, frame, report)
+    return job
+
+
+def _run_classes(job: Job, frame, held, action: str, report: str | None, opts: dict) -> Job:
+    """A task with several classes: solve, check on the held-out rows, write the outputs."""
+    recipe, s = job.recipe, job.recipe.solve
+    u, out = recipe.uncertainty, recipe.outputs
+    missing = [what for what, asked in (
+        (f"do.action = {action!r} (only \"solve\")", action != "solve"),
+        ("do.holdout.groups", recipe.do.holdout is not None and recipe.do.holdout.groups is not None),
+        ("uncertainty.refits / uncertainty.intervals", bool(u.refits or u.intervals)),
+        ("outputs.fit (a model file)", bool(out.fit)),
+        (f"solve.route = {s.route!r} (only \"newton\" or \"direct\")", s.route not in (None, "newton", "direct")),
+    ) if asked]
+    if missing:
+        raise DataError(f"The target {recipe.task.target!r} has {len(job.task.labels)} classes; a task with several "
+                        f"classes does not take {'; '.join(missing)} yet. Remove "
+                        f"{'it' if len(missing) == 1 else 'them'} from the recipe.", problems=missing)
+    job.fit = job.task.solve(s.solver, route=s.route, time_limit=s.time_limit, **opts)
+    if held is not None and job.fit.status.has_point:
+        job.evaluation = job.fit.evaluate(held)
+    if out.coefficients:
+        path = recipe.resolve(out.coefficients)
+        write_atomic(path, job.fit.coefficients().to_csv(index_label="name"))
+        job.written.append(path)
+    if out.predictions and job.fit.status.has_point:
+        path = recipe.resolve(out.predictions)
+        pred = pd.DataFrame({"prediction": job.fit.predict(frame)})
+        if job.task.loss.probabilities:
+            chances = job.fit.probability(frame)
+            for label in chances.columns:
+                pred[f"probability {label}"] = chances[label].to_numpy()
+        write_atomic(path, pred.to_csv(index_label="row"))
+        job.written.append(path)
+    _report(job, report)
     return job
 
 

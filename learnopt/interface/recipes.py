@@ -164,6 +164,8 @@ class TaskPart(_Strict):
     exposure: str | None = Field(default=None, description="regression: a column whose log is the offset")
     intercept: bool = True
     positive: str | int | float | bool | None = None
+    reference: str | int | float | bool | None = Field(default=None, description="several classes: the class whose "
+                                                                               "coefficients are 0")
     loss: LossPart | None = None          # none: the Python default (squared / logistic)
     penalties: list[PenaltyPart] = Field(default_factory=list)
     rules: list[str] = Field(default_factory=list)
@@ -392,7 +394,7 @@ def build_task(recipe: Recipe, frame=None):
                         f"a regression task (kind = \"regression\"); remove the key from this {t.kind} task.")
     else:
         task = classification(frame, t.target, loss, features=t.features, weights=t.weights,
-                              intercept=t.intercept, positive=t.positive)
+                              intercept=t.intercept, positive=t.positive, reference=t.reference)
     task = apply_shapes(task, t.shapes)
     if pens:
         task = task.penalize(*pens)

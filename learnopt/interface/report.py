@@ -10,12 +10,14 @@ import pandas as pd
 from learnopt.core.status import CAUTION, PLACEMENT_CAUTION
 from learnopt.interface.provenance import provenance, provenance_html
 from learnopt.interface.report_shapes import shape_parts
+from learnopt.interface.report_classes import classes_html
 from learnopt.interface.report_sure import group_fit_parts, group_picture, interval_parts, refit_parts
 from learnopt.interface.report_blocks import figure, fmt, page, png, standing, table
 from learnopt.interface.report_pictures import (
     argument_counts, coverage, draw_coefficients, draw_coverage, draw_histogram, draw_means, draw_path,
     draw_predicted_actual, has_point, mean_rules, path_strength, predicted_actual, simple_bounds)
 from learnopt.rules.regions import Ball, Polygon, Segment
+from learnopt.solve.classes_fit import ClassesFit
 
 COMPARE_COLUMNS = ("status", "objective", "gap", "violation", "steps", "total_s", "max_coef_diff")
 
@@ -186,6 +188,8 @@ def _compare(frame: pd.DataFrame) -> str:
 def html(job) -> str:
     if job.centres:
         return centres_html(job)
+    if isinstance(job.fit, ClassesFit):
+        return classes_html(job)
     fit, task, recipe = job.fit, job.task, job.recipe
     title = recipe.title or "learnopt fit"
     verdict = "certified optimal" if fit.status == "optimal" else str(fit.status)

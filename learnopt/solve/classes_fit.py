@@ -92,7 +92,7 @@ class ClassesFit:
         return np.asarray(self.labels, dtype=object)[scores.argmax(axis=1)]
 
     def evaluate(self, data, target=None) -> pd.Series:
-        """Rows, accuracy, the mean loss and (multinomial) the mean log loss on new rows.
+        """Rows, accuracy and the mean loss on new rows (the log loss for the multinomial loss).
 
         ``target``: the label column's name (default the task's target) or one label per row."""
         truth = _truth(self, data, target)
@@ -102,10 +102,11 @@ class ClassesFit:
             raise DataError(f"evaluate(): the new rows hold labels the fit does not know ({', '.join(unknown)}); "
                             f"its classes are {list(self.labels)}.")
         y = np.array([self.labels.index(v) for v in truth])
-        out = {"rows": float(len(y)), "accuracy": float(np.mean(scores.argmax(axis=1) == y)),
-               "mean_loss": float(np.mean(self.task.loss.value(scores, y)))}
+        out = {"rows": float(len(y)), "accuracy": float(np.mean(scores.argmax(axis=1) == y))}
         if self.task.loss.probabilities:
             out["log_loss"] = float(np.mean(logsumexp(scores, axis=1) - scores[np.arange(len(y)), y]))
+        else:
+            out["mean_loss"] = float(np.mean(self.task.loss.value(scores, y)))
         return pd.Series(out)
 
     # ---- display
@@ -130,6 +131,18 @@ class ClassesFit:
             lines.append(pd.DataFrame({"price": self.prices, "binds": self.binding}).to_string())
         lines.append(CAUTION)
         return "\n".join(lines)
+
+    def to_dict(self, *, run: str | None = None) -> dict:
+        """The fit as plain data (JSON): evidence, coefficients by class, the rules' prices."""
+        return {"kind": "classes", "run": run, "classes": [str(v) for v in self.labels],
+                "evidence": {"status": str(self.status), "message": self.message, "objective": self.objective,
+                             "gap": self.gap, "rel_gap": self.rel_gap, "violation": self.violation,
+                             "solver": self.solver, "route": self.route, "identification": self.identification,
+                             "timings": self.timings.as_dict()},
+                "coefficients": {str(k): {n: float(v) for n, v in col.items()}
+                                 for k, col in self.coefficients().items()},
+                "rules": {rule: {"price": float(self.prices[rule]), "binds": bool(self.binding[rule])}
+                          for rule in self.prices.index}}
 
     def __repr__(self) -> str:
         return (f"ClassesFit(status={self.status.value!r}, objective={self.objective:.8g}, gap={self.gap:.3g}, "

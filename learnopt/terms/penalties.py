@@ -108,4 +108,5 @@ PENALTIES: dict[str, PenaltySpec] = {s.name: s for s in (
     PenaltySpec("group", group, (group(0.5, [[_A, _B], [_C]]), group(0.5, {"g": [_B, _C, _D]}, factors=[2.0]))),
     PenaltySpec("total_variation", total_variation, (total_variation(0.6, [_A, _B, _C, _D]),
                                                      total_variation(0.6, [_D, _A, _B], factors=[1.0, 0.0]))),
+    PenaltySpec("shared", shared, (shared(0.4), shared(0.4, [_A, _C], factors={_C: 2.0}))),
 )}

@@ -9,6 +9,8 @@ bike_stops.csv  Lanternfield bike couriers: drop points (km east/north of the di
                 weekly refills needed (learnopt.demo.make_bike_stops)
 energy.csv      Marlow Street offices: daily electricity use (cooling, heating is on gas) by
                 outdoor temperature band
+services.csv    Tollbridge Parcel Co.: which service (standard, express, freight) each parcel was
+                booked on, by weight, distance and sender type
 Each file is written atomically (a temporary file renamed into place).
 """
 from pathlib import Path
@@ -56,6 +58,21 @@ def energy(n: int = 730, seed: int = 3) -> pd.DataFrame:
                          "weekday": weekday.astype(int), "kwh": kwh.round(1)})
 
 
+def services(n: int = 900, seed: int = 8) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    weight = rng.gamma(2.0, 4.0, n)
+    distance = rng.uniform(2, 320, n)
+    sender = rng.choice(["business", "household"], n, p=[0.4, 0.6])
+    business = sender == "business"
+    score = np.column_stack([np.zeros(n),                                     # standard
+                             0.012 * distance - 1.5 + 0.8 * business,         # express
+                             0.30 * weight - 3.5 + 0.004 * distance])         # freight
+    chance = np.exp(score) / np.exp(score).sum(axis=1, keepdims=True)
+    booked = (chance.cumsum(axis=1) > rng.random((n, 1))).argmax(axis=1)
+    return pd.DataFrame({"weight_kg": weight.round(2), "distance_km": distance.round(1), "sender": sender,
+                         "service": np.array(["standard", "express", "freight"])[booked]})
+
+
 def write(frame: pd.DataFrame, name: str) -> Path:
     out = HERE / name
     tmp = out.with_suffix(".csv.tmp")
@@ -66,5 +83,6 @@ def write(frame: pd.DataFrame, name: str) -> Path:
 
 if __name__ == "__main__":
     for frame, name in ((make_data(), "deliveries.csv"), (blend(), "blend.csv"), (quality(), "quality.csv"),
-                        (energy(), "energy.csv"), (make_bike_stops(), "bike_stops.csv")):
+                        (energy(), "energy.csv"), (make_bike_stops(), "bike_stops.csv"),
+                        (services(), "services.csv")):
         print(f"wrote {write(frame, name)}")
