@@ -28,6 +28,12 @@ def why_not(problem) -> str | None:
     """Why the newton route cannot take this task (None: it can)."""
     if not isinstance(problem.loss, Multinomial):
         return f"the {problem.loss.describe()} loss is not smooth"
+    return None
+
+
+def plain(problem) -> str | None:
+    """Why Newton's steps need a small program each (rules, penalties other than l2), or None
+    when they are plain linear solves."""
     if problem.requirements:
         return "the task has rules"
     combined = _combined_separable(problem.flat_penalties(), problem.flat) if problem.penalties else None
@@ -69,7 +75,7 @@ def newton(problem, *, time_limit: float | None = None, start=None) -> tuple[np.
         R = (P - Y)[:, cols] * a[:, None]
         g_w = np.asarray(X.T @ R).T.ravel() + 2.0 * quad * theta[: d * c]
         g = np.concatenate([g_w, R.sum(axis=0)]) if problem.intercept else g_w
-        H = _hessian(Xh, a, P[:, cols], problem.intercept, quad, d, c)
+        H = hessian(Xh, a, P[:, cols], problem.intercept, quad, d, c)
         step = -np.linalg.lstsq(H, g, rcond=1e-13)[0]
         step = _project(step, groups)
         decrement = -float(g @ step)
@@ -119,7 +125,7 @@ def design(X, intercept: bool) -> np.ndarray:
 CHUNK = 8192      # rows per block of the Hessian's one matrix product
 
 
-def _hessian(Xh, a, P, intercept: bool, quad, d: int, c: int) -> np.ndarray:
+def hessian(Xh, a, P, intercept: bool, quad, d: int, c: int) -> np.ndarray:
     """The Hessian in the flat layout (class after class, then intercepts): the Grams of every
     pair of classes from one matrix product per block of rows."""
     pairs = [(k, l) for k in range(c) for l in range(k, c)]

@@ -19,7 +19,8 @@ from learnopt.rules.requirements import Requirement
 from learnopt.solve.certificate import Certificate
 from learnopt.solve.classes_certificate import certify_classes
 from learnopt.solve.classes_fit import ClassesFit
-from learnopt.solve.classes_newton import newton, why_not
+from learnopt.solve.classes_newton import newton, plain, why_not
+from learnopt.solve.classes_steps import stepped
 from learnopt.solve.routes.base import SOLVER_FAULTS, read_multipliers, run
 from learnopt.solve.solvers import plan
 from learnopt.solve.timings import Attempt, Timings
@@ -64,18 +65,23 @@ def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: 
     attempts, best, infeasible = [], None, False
     enough = 0.01 * gap_tol
     if route == "newton" or (route is None and reason is None and solver is None):
-        theta, steps, seconds = newton(problem, time_limit=time_limit)
+        if plain(problem) is None:
+            (theta, steps, seconds), mults, name = newton(problem, time_limit=time_limit), [], "numpy"
+        else:
+            theta, steps, seconds, mults = stepped(problem, time_limit=time_limit)
+            name = "clarabel"
         t_cert = time.perf_counter()
-        cert = certify_classes(problem, theta, None, [np.zeros(r.rows) for r in ident], requirements=ident,
-                               enough=enough)
+        cert = certify_classes(problem, theta, None, list(mults) + [np.zeros(r.rows) for r in ident],
+                               requirements=list(problem.requirements) + ident, enough=enough)
         certify_s = time.perf_counter() - t_cert
         ok = cert.passes(gap_tol, feas_tol)
-        attempts.append(Attempt("newton", f"{steps} steps, " + ("certified" if ok else "not certified"),
+        attempts.append(Attempt(f"newton ({name})", f"{steps} steps, " + ("certified" if ok else "not certified"),
                                 cert.primal, cert.gap, seconds + certify_s))
-        best = (theta, cert, "numpy", [], Timings(solve=seconds, certify=certify_s))
+        best = (theta, cert, name, list(mults), Timings(solve=seconds, certify=certify_s))
         if ok or not fallback:
             return _assemble(problem, best, attempts, False, gap_tol, feas_tol, time.perf_counter() - t_start,
                              route="newton")
+    newton_point = best is not None
     model = formulate(problem)
     chain = plan(problem.problem_class(), solver, fallback=fallback)
     for spec in chain:
@@ -104,14 +110,14 @@ def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: 
         attempts.append(Attempt(spec.name, "certified" if ok else f"{status}, not certified", cert.primal, cert.gap,
                                 time.perf_counter() - t0))
         timings = Timings(build=model.build_seconds, compile=compile_s, solve=solve_s, certify=certify_s)
-        if best is not None and best[2] == "numpy" and cert.gap >= best[1].gap:
+        if best is not None and newton_point and cert.gap >= best[1].gap:
             continue
         if best is None or cert.gap < best[1].gap:
-            best = (theta, cert, spec.name, mults, timings)
+            best, newton_point = (theta, cert, spec.name, mults, timings), False
         if ok:
             break
     total = time.perf_counter() - t_start
-    route = "newton" if best is not None and best[2] == "numpy" else "direct"
+    route = "newton" if newton_point else "direct"
     return _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total, route=route)
 
 
