@@ -5,7 +5,9 @@
 
 Data: invented, seeded; classes drawn from a multinomial logit with random coefficients.
 Cases: l2 multinomial (learnopt newton route) against LogisticRegression (lbfgs, tol 1e-8) at
-C = 1/(2 n lam); l2 multiclass hinge without intercept (direct route) against
+C = 1/(2 n lam); l1 multinomial against LogisticRegression(penalty="l1", solver="saga") at
+C = 1/(n lam) (its intercepts shifted to sum to zero, which leaves its objective); l2 with two
+class rules (no peer); l2 multiclass hinge without intercept (direct route) against
 LinearSVC(multi_class="crammer_singer", fit_intercept=False, tol 1e-6). Reported: seconds,
 ratio learnopt / peer, learnopt's certified gap and the peer's objective minus learnopt's
 (both in learnopt's convention, at each one's own coefficients).
@@ -56,6 +58,16 @@ def main(argv: list[str]) -> None:
     peer_s, peer = _timed(lambda: LogisticRegression(C=1 / (2 * n * lam), tol=1e-8, max_iter=10_000).fit(X, y), repeat)
     theirs = certify_classes(task, np.concatenate([peer.coef_.ravel(), peer.intercept_])).primal
     rows.append(("l2 multinomial", fit, ours_s, "LogisticRegression (lbfgs)", peer_s, theirs))
+    task = lo.classification(frame, "y").penalize(lo.penalty.l1(lam))
+    ours_s, fit = _timed(task.solve, repeat)
+    peer_s, peer = _timed(lambda: LogisticRegression(penalty="l1", solver="saga", C=1 / (n * lam), tol=1e-6,
+                                                     max_iter=10_000).fit(X, y), repeat)
+    theirs = certify_classes(task, np.concatenate([peer.coef_.ravel(), peer.intercept_ - peer.intercept_.mean()])).primal
+    rows.append(("l1 multinomial", fit, ours_s, "LogisticRegression (saga, tol 1e-6)", peer_s, theirs))
+    task = lo.classification(frame, "y").penalize(lo.penalty.l2(lam)).require("x0 >= 0.2 for class 'c1'", "x3 <= 0")
+    ours_s, fit = _timed(task.solve, repeat)
+    rows.append(("l2 multinomial + 2 rules", fit, ours_s, "none (the whole program in Clarabel: ~100 s)", np.nan,
+                 np.nan))
     task = lo.classification(frame, "y", loss="hinge", intercept=False).penalize(lo.penalty.l2(lam))
     ours_s, fit = _timed(task.solve, repeat)
     peer_s, peer = _timed(lambda: LinearSVC(multi_class="crammer_singer", fit_intercept=False, C=1 / (2 * n * lam),
