@@ -331,3 +331,28 @@ def test_newton_steps_with_rules_and_penalties_agree_with_the_direct_route(make)
     assert abs(stepped.objective - direct.objective) <= 1e-8 * max(1.0, abs(direct.objective))
     for rule in direct.prices.index:
         assert stepped.prices[rule] == pytest.approx(direct.prices[rule], rel=1e-3, abs=1e-6)
+
+
+def test_a_model_file_predicts_what_the_fit_did(tmp_path):
+    """save / lo.load_fit: the same probabilities and labels (floats written in round-trip form),
+    the evidence kept; a file edited by hand loads as unverified (common practice: a digest)."""
+    import json
+
+    data = _iris().assign(batch=lambda f: np.where(f.index % 2, "odd", "even"))
+    fit = lo.classification(data, "species", reference="setosa").penalize(lo.penalty.l1(0.01)) \
+        .require("sepal_width >= 0 for class 'virginica'").solve()
+    fit.save(tmp_path / "m.json")
+    back = lo.load_fit(tmp_path / "m.json")
+    assert type(back).__name__ == "ClassesFit" and back.status == "optimal"
+    assert back.identification == fit.identification and back.task.reference == "setosa"
+    np.testing.assert_array_equal(back.probability(data).to_numpy(), fit.probability(data).to_numpy())
+    assert (back.predict(data) == fit.predict(data)).all()
+    assert [r.text for r in back.task.rules] == ["sepal_width >= 0 for class 'virginica'"]
+    saved = json.loads((tmp_path / "m.json").read_text())
+    saved["coef"]["1"][0] = 5.0
+    (tmp_path / "edited.json").write_text(json.dumps(saved))
+    assert lo.load_fit(tmp_path / "edited.json").status == "unverified"
+    del saved["coef"]
+    (tmp_path / "broken.json").write_text(json.dumps(saved))
+    with pytest.raises(lo.DataError, match="not a whole fit with several classes"):
+        lo.load_fit(tmp_path / "broken.json")

@@ -138,6 +138,7 @@ def test_a_recipe_with_several_classes_runs_and_reports(tmp_path, copied):
     pred = pd.read_csv(copied / "out" / "services-predictions.csv")
     assert set(pred["prediction"]) <= {"standard", "express", "freight"}
     np.testing.assert_allclose(pred.filter(like="probability").sum(axis=1), 1.0, atol=1e-12)
+    assert lo.load_fit(copied / "out" / "services-fit.json").status == "optimal"
     coef = pd.read_csv(copied / "out" / "services-coefficients.csv", index_col="name")
     assert list(coef.columns) == ["express", "freight", "standard"] and (coef["standard"] == 0).all()
     report = (copied / "out" / "services-report.html").read_text()
@@ -223,7 +224,8 @@ def test_recipe_names_and_keys_come_from_the_registries(tmp_path):
             example = lo.loss.LOSSES[name].examples[-1]
             keys = {k: getattr(example, k) for k in lo.loss.LOSSES[name].parameters}
             assert LossPart(name=name, **keys).build() == example
-    assert set(PenaltyPart.model_fields) == {"name", "strength", "factors", "mix", "groups", "order"}
+    assert set(PenaltyPart.model_fields) == {"name", "strength", "factors", "mix", "groups", "order", "features"}
+    assert PenaltyPart(name="shared", strength=0.5, features=["a", "b"]).build() == lo.penalty.shared(0.5, ["a", "b"])
     assert PenaltyPart(name="total_variation", strength=0.5, order=["a", "b", "c"], factors=[1, 0]).build() \
         == lo.penalty.total_variation(0.5, ["a", "b", "c"], factors=[1.0, 0.0])
     path = tmp_path / "bad.toml"

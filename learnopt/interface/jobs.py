@@ -143,7 +143,6 @@ def _run_classes(job: Job, frame, held, action: str, report: str | None, opts: d
         (f"do.action = {action!r} (only \"solve\")", action != "solve"),
         ("do.holdout.groups", recipe.do.holdout is not None and recipe.do.holdout.groups is not None),
         ("uncertainty.refits / uncertainty.intervals", bool(u.refits or u.intervals)),
-        ("outputs.fit (a model file)", bool(out.fit)),
         (f"solve.route = {s.route!r} (only \"newton\" or \"direct\")", s.route not in (None, "newton", "direct")),
     ) if asked]
     if missing:
@@ -153,6 +152,10 @@ def _run_classes(job: Job, frame, held, action: str, report: str | None, opts: d
     job.fit = job.task.solve(s.solver, route=s.route, time_limit=s.time_limit, **opts)
     if held is not None and job.fit.status.has_point:
         job.evaluation = job.fit.evaluate(held)
+    if out.fit:
+        path = recipe.resolve(out.fit)
+        job.fit.save(path, run=job.run_id)
+        job.written.append(path)
     if out.coefficients:
         path = recipe.resolve(out.coefficients)
         write_atomic(path, job.fit.coefficients().to_csv(index_label="name"))

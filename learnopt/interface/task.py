@@ -32,6 +32,7 @@ from learnopt.selection.crossval import cross_validate
 from learnopt.selection.paths import path
 from learnopt.scale.cluster import ClusterSettings
 from learnopt.solve.by_group import GroupFits, fit_by
+from learnopt.solve.classes_fit import ClassesFit
 from learnopt.solve.fit import Fit
 from learnopt.solve.loop import compare
 from learnopt.solve.screening import solve_screened
@@ -334,11 +335,13 @@ def classification(data, target, loss: _losses.Loss | str = "logistic", *, posit
     return _build("classification", data, target, loss, features, weights, intercept, positive)
 
 
-def load_fit(path) -> Fit | CentresFit:
+def load_fit(path) -> Fit | ClassesFit | CentresFit:
     """Read a fit saved with ``fit.save(path)``: a regression or classification :class:`Fit`
-    (it predicts exactly as the saved one did) or a :class:`CentresFit` (it assigns new points to
-    the saved centres). Its ``task`` describes the problem (no training data)."""
+    (it predicts exactly as the saved one did), a fit with several classes, or a
+    :class:`CentresFit` (it assigns new points to the saved centres). Its ``task`` describes the problem (no training data)."""
     saved = read_model(path)
     if saved["task"]["kind"] == "centres":
         return from_saved(saved, os.fspath(path))
+    if saved["task"]["kind"] == "classes":
+        return ClassesFit.load(path, task_type=ClassesTask)
     return Fit.load(path, task_type=Task)

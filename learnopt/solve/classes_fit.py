@@ -18,6 +18,7 @@ from scipy.special import logsumexp, softmax
 from learnopt.core.errors import DataError, ParameterError
 from learnopt.core.status import CAUTION, Status
 from learnopt.data.table import new_design, sorted_labels
+from learnopt.solve import classes_file
 from learnopt.solve.certificate import Certificate
 from learnopt.solve.timings import Attempt, Timings
 
@@ -131,6 +132,15 @@ class ClassesFit:
             lines.append(pd.DataFrame({"price": self.prices, "binds": self.binding}).to_string())
         lines.append(CAUTION)
         return "\n".join(lines)
+
+    def save(self, path, *, run: str | None = None) -> None:
+        """Write the fit as a model file (JSON, atomically); ``lo.load_fit(path)`` reads it back."""
+        classes_file.save(self, path, run=run)
+
+    @classmethod
+    def load(cls, path, *, task_type=None) -> "ClassesFit":
+        """Read a fit written by :meth:`save` (its task describes the problem; no training data)."""
+        return cls(**classes_file.read(path, **({"task_type": task_type} if task_type is not None else {})))
 
     def to_dict(self, *, run: str | None = None) -> dict:
         """The fit as plain data (JSON): evidence, coefficients by class, the rules' prices."""

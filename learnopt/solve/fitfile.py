@@ -69,6 +69,20 @@ def _rebuild(entry: dict, module, base):
     return cls(**{k: _tupled(v) for k, v in entry.get("fields", {}).items()})
 
 
+def encoding_entry(enc) -> dict | None:
+    """A DataFrame encoding as plain data (None without one)."""
+    return None if enc is None else {
+        "columns": list(enc.columns), "levels": json_ready(enc.levels), "reference": json_ready(enc.reference),
+        "names": list(enc.names), **({"shapes": {c: b.plain() for c, b in enc.shapes.items()}} if enc.shapes else {})}
+
+
+def encoding_from(entry: dict | None):
+    """The encoding :func:`encoding_entry` wrote."""
+    return None if entry is None else Encoding(
+        tuple(entry["columns"]), {k: tuple(v) for k, v in entry["levels"].items()}, dict(entry["reference"]),
+        tuple(entry["names"]), {c: basis_from_plain(c, b) for c, b in (entry.get("shapes") or {}).items()})
+
+
 def _versions(solver: str | None) -> dict:
     wanted = {pkg: pkg for pkg in ("learnopt", "cvxpy", "numpy", "scipy")}
     spec = REGISTRY.get(solver) if solver and solver != "numpy" else None
@@ -92,10 +106,7 @@ def to_dict(fit, *, run: str | None = None) -> dict:
             "labels": json_ready(list(ds.labels)) if ds.labels is not None else None,
             **({"offset": {"kind": ds.offset_source[0], "column": ds.offset_source[1]}}
                if getattr(ds, "offset_source", None) is not None else {}),
-            "encoding": None if enc is None else {
-                "columns": list(enc.columns), "levels": json_ready(enc.levels),
-                "reference": json_ready(enc.reference), "names": list(enc.names),
-                **({"shapes": {c: b.plain() for c, b in enc.shapes.items()}} if enc.shapes else {})},
+            "encoding": encoding_entry(enc),
         },
         "coef": {name: json_ready(float(v)) for name, v in fit.coef.items()},
         "intercept": json_ready(float(fit.intercept)),
@@ -161,10 +172,7 @@ def read(path, *, task_type=None) -> dict:
     sealed = intact(saved)                 # judged on the file as written, before any translation
     version = saved["schema_version"]
     t = saved["task"]
-    enc = t.get("encoding")
-    encoding = None if enc is None else Encoding(
-        tuple(enc["columns"]), {k: tuple(v) for k, v in enc["levels"].items()}, dict(enc["reference"]),
-        tuple(enc["names"]), {c: basis_from_plain(c, b) for c, b in (enc.get("shapes") or {}).items()})
+    encoding = encoding_from(t.get("encoding"))
     notes = ["loaded from a model file: no training data"]
     renamed = encoding.former_names if encoding is not None and version < 2 else {}
     if renamed:
