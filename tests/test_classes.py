@@ -124,10 +124,13 @@ def _crammer_singer(X, y, K, lam, intercept=True, rule=None):
 
 
 @pytest.mark.parametrize("lam", [1e-3, 0.05])
-def test_multiclass_hinge_equals_an_independent_formulation(lam):
+@pytest.mark.parametrize("route", ["newton", "direct"])
+def test_multiclass_hinge_equals_an_independent_formulation(lam, route):
+    """The newton route smooths the hinge (mu * multinomial((z + [k != y]) / mu), mu falling) and
+    certifies on the hinge itself; the direct route hands the margin program to a solver."""
     data = _iris()
-    fit = lo.classification(data, "species", loss="hinge").penalize(lo.penalty.l2(lam)).solve()
-    assert fit.status == "optimal"
+    fit = lo.classification(data, "species", loss="hinge").penalize(lo.penalty.l2(lam)).solve(route=route)
+    assert fit.status == "optimal" and fit.route == route
     X = data.drop(columns="species").to_numpy()
     y = np.array([fit.labels.index(v) for v in data["species"]])
     value, W, b = _crammer_singer(X, y, 3, lam)
@@ -148,7 +151,7 @@ def test_multiclass_hinge_without_intercept_equals_liblinear():
     svc = LinearSVC(multi_class="crammer_singer", fit_intercept=False, C=1 / (2 * len(X) * lam), tol=1e-10,
                     max_iter=1_000_000).fit(X, data["species"])
     theirs = certify_classes(fit.task, svc.coef_.ravel()).primal
-    assert fit.objective <= theirs + 1e-10
+    assert theirs >= fit.objective - fit.gap          # weak duality: no point beats the certified bound
     assert theirs - fit.objective < 1e-4
 
 
@@ -311,7 +314,7 @@ def test_the_newton_route_and_the_direct_route_agree():
     assert abs(newton.coef.loc["sepal_width"].sum()) < 1e-12        # unpenalised: sums to zero
     ref = lo.classification(data, "species", reference="setosa").penalize(lo.penalty.l2(0.01)).solve()
     assert ref.route == "newton" and ref.status == "optimal"
-    with pytest.raises(lo.ParameterError, match="route='newton'\\): the multiclass_hinge loss is not smooth"):
+    with pytest.raises(lo.ParameterError, match="route='newton'\\): the multiclass hinge goes by smoothing.*no penalty"):
         lo.classification(data, "species", loss="hinge").solve(route="newton")
 
 

@@ -19,7 +19,8 @@ from learnopt.rules.requirements import Requirement
 from learnopt.solve.certificate import Certificate
 from learnopt.solve.classes_certificate import certify_classes
 from learnopt.solve.classes_fit import ClassesFit
-from learnopt.solve.classes_newton import newton, plain, why_not
+from learnopt.solve.classes_newton import newton, plain, smoothed_hinge, why_not
+from learnopt.terms.class_losses import MulticlassHinge
 from learnopt.solve.classes_steps import stepped
 from learnopt.solve.routes.base import SOLVER_FAULTS, read_multipliers, run
 from learnopt.solve.solvers import plan
@@ -65,13 +66,20 @@ def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: 
     attempts, best, infeasible = [], None, False
     enough = 0.01 * gap_tol
     if route == "newton" or (route is None and reason is None and solver is None):
-        if plain(problem) is None:
+        start = None
+        if isinstance(problem.loss, MulticlassHinge):
+            def certified(th, Q):           # the first reading only: the smoothed point is stationary
+                return certify_classes(problem, th, Q, [np.zeros(r.rows) for r in ident], requirements=ident,
+                                       enough=1.0).rel_gap <= 0.1 * gap_tol
+            theta, start, steps, seconds, _ = smoothed_hinge(problem, certified, time_limit=time_limit)
+            mults, name = [], "numpy"
+        elif plain(problem) is None:
             (theta, steps, seconds), mults, name = newton(problem, time_limit=time_limit), [], "numpy"
         else:
             theta, steps, seconds, mults = stepped(problem, time_limit=time_limit)
             name = "clarabel"
         t_cert = time.perf_counter()
-        cert = certify_classes(problem, theta, None, list(mults) + [np.zeros(r.rows) for r in ident],
+        cert = certify_classes(problem, theta, start, list(mults) + [np.zeros(r.rows) for r in ident],
                                requirements=list(problem.requirements) + ident, enough=enough)
         certify_s = time.perf_counter() - t_cert
         ok = cert.passes(gap_tol, feas_tol)
