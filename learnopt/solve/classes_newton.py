@@ -108,7 +108,7 @@ def newton(problem, *, time_limit: float | None = None, start=None, mu: float = 
 
 def smoothed_hinge(problem, certified, *, time_limit: float | None = None, start=None):
     """The multiclass hinge by smoothing: Newton's method on mu * multinomial((z + [k != y]) / mu)
-    for mu = 1, 1/4, 1/16, ... each started from the last, until ``certified(theta, Q)`` (the
+    for mu = 1, 1/10, 1/100, ... each started from the last, until ``certified(theta, Q)`` (the
     certificate on the hinge itself, Q = the smoothed loss's softmax, a dual point) says stop.
     The smoothed loss is within mu log K of the hinge, so the gap falls with mu (Y. Nesterov,
     Smooth minimization of non-smooth functions, Math. Program. 103, 2005; from memory).
@@ -124,7 +124,7 @@ def smoothed_hinge(problem, certified, *, time_limit: float | None = None, start
         Q = softmax((problem.scores(ds.X, theta) + shift) / mu, axis=1)
         if certified(theta, Q) or (time_limit is not None and time.perf_counter() - t0 > time_limit):
             break
-        mu /= 4.0
+        mu /= 10.0
     return theta, Q, steps, time.perf_counter() - t0, mu
 
 
