@@ -2,6 +2,8 @@
 outside references named beside each test (scikit-learn's LogisticRegression and LinearSVC on
 its bundled iris and wine data, Stata's multinomial logit values for statsmodels' bundled anes96
 data as kept in statsmodels' own test results, and independent cvxpy formulations)."""
+import re
+
 import cvxpy as cp
 import numpy as np
 import pandas as pd
@@ -359,3 +361,49 @@ def test_a_model_file_predicts_what_the_fit_did(tmp_path):
     (tmp_path / "broken.json").write_text(json.dumps(saved))
     with pytest.raises(lo.DataError, match="not a whole fit with several classes"):
         lo.load_fit(tmp_path / "broken.json")
+
+
+def test_rules_that_cannot_hold_together_are_infeasible_on_every_route():
+    """The newton steps' small programs find no point; a solver confirms none exists (common
+    practice: infeasibility is the solver's certificate, not a guess)."""
+    data = _iris()
+    task = lo.classification(data, "species").penalize(lo.penalty.l2(0.01)) \
+        .require("sepal_width >= 1 for class 'setosa'", "sepal_width <= 0 for class 'setosa'")
+    for route in (None, "direct"):
+        fit = task.solve(route=route)
+        assert fit.status == "infeasible" and "sepal_width >= 1 for class 'setosa'" in fit.message
+    # under sum to zero, a bound above 0 on every class of an unpenalised feature cannot hold
+    pinned = lo.classification(data, "species").require("sepal_width >= 1")
+    assert pinned.solve().status == "infeasible"
+    assert any("applies to every class" in note for note in pinned.check().data)
+
+
+def test_what_several_classes_do_not_take_yet_is_refused_by_name():
+    data = _iris()
+    task = lo.classification(data, "species").penalize(lo.penalty.l2(0.01))
+    for call, name in ((lambda: task.path(), "path()"), (lambda: task.cross_validate(), "cross_validate()"),
+                       (lambda: task.compare(), "compare()"), (lambda: task.fit_by("species"), "fit_by()"),
+                       (lambda: task.solve().bootstrap(10), "bootstrap()")):
+        with pytest.raises(lo.ParameterError, match=re.escape(name)):
+            call()
+    with pytest.raises(lo.ParameterError, match="tol has to be between 0 and 1"):
+        task.solve(tol=-1)
+    with pytest.raises(lo.ParameterError, match="solver_options"):
+        task.solve(solver="clarabel", solver_options={"bogus": 1})
+    with pytest.raises(lo.DataError, match=r"shared: unknown features \['petals'\]"):
+        lo.classification(data, "species").penalize(lo.penalty.shared(0.1, ["petals"]))
+    two = data[data.species != "setosa"]
+    with pytest.raises(lo.ParameterError, match="a rule for one class needs a target of three or more labels"):
+        lo.classification(two, "species").require("sepal_width >= 0 for class 'virginica'")
+    with pytest.raises(lo.ParameterError, match="for_class='virginica'"):
+        lo.classification(two, "species").require("sepal_width >= 0", for_class="virginica")
+
+
+def test_the_adapter_reads_a_class_rule_by_label():
+    """Integer labels 2, 5, 7: "for class 2" is the label 2, not the third class."""
+    X, y = load_wine(return_X_y=True)
+    X = (X - X.mean(axis=0)) / X.std(axis=0)
+    labels = np.array([2, 5, 7])[y]
+    model = lo.estimator("classification", "logistic", l2=0.01, rules=["x0 <= -0.1 for class 7"]).fit(X, labels)
+    assert list(model.classes_) == [2, 5, 7]
+    assert model.coef_[2, 0] == pytest.approx(-0.1, abs=1e-7) and model.coef_[0, 0] > 0

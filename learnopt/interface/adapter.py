@@ -125,8 +125,11 @@ class Classifier(ClassifierMixin, _Base):
         if len(self.classes_) < 2:
             raise ValueError(f"learnopt classifies two or more classes; the target has 1 class "
                              f"({self.classes_.tolist()}).")
-        if len(self.classes_) > 2:                # several classes: class numbers in classes_ order
-            return self._solve(self._task(X, np.searchsorted(self.classes_, y), sample_weight))
+        if len(self.classes_) > 2:                # several classes: the labels themselves (rules name them)
+            self._solve(self._task(X, y, sample_weight))
+            order = [list(self.fit_.labels).index(v) for v in self.classes_]
+            self.coef_, self.intercept_ = self.coef_[order], self.intercept_[order]
+            return self
         signed = np.where(y == self.classes_[1], 1, 0)
         return self._solve(self._task(X, signed, sample_weight))
 

@@ -37,6 +37,11 @@ from learnopt.terms.penalties import Penalty
 _SCOPE = re.compile(r"^(?P<rule>.*\S)\s+for\s+class\s+(?P<label>'[^']*'|\"[^\"]*\"|\S+)\s*$", re.S)
 
 
+def class_scope(text: str):
+    """The match of a trailing "for class <label>" in rule text, or None."""
+    return _SCOPE.match(text)
+
+
 class ClassesTask(ClassesProblem):
     """A task with several classes (build it with :func:`learnopt.classification`)."""
 
@@ -93,11 +98,22 @@ class ClassesTask(ClassesProblem):
         pieces += [(f"penalty {p.describe()}", f"convex, on every class; needs {p.cone} cone") for p in self.penalties]
         pieces += [(f"rule «{r.text}»", f"linear {'equality' if r.sense == '==' else 'inequality'}"
                     if r.sense != "norm" else "norm bounded above: a convex set") for r in self.requirements]
+        notes = list(self.dataset.notes)
+        free = {n for n, f in zip(self.features, self.free_features()) if f} | ({"intercept"} if self.intercept else set())
+        if self.reference is None:
+            for rule in self.rules:
+                words = set(re.findall(r"[A-Za-z_][\w.]*", rule.spec.text))
+                touched = [n for n in free if n in words]
+                if rule.label is None and touched:
+                    notes.append(f"rule «{rule.text}» applies to every class, and {', '.join(sorted(touched))} "
+                                 f"sum{'s' if len(touched) == 1 else ''} to zero over the classes (no penalty acts "
+                                 f"there): a bound on every class pins it near 0; scope the rule with "
+                                 f"\"for class ...\" or give reference= if that is not meant.")
         reasons = []
         if not formulate(self).problem.is_dcp():
             reasons.append("learnopt's own verdict says convex but cvxpy's DCP check disagrees; this is a learnopt "
                            "bug, please report it with the task.")
-        return Verdict(not reasons, CLASS_LABEL[self.problem_class()], pieces, reasons, list(self.dataset.notes))
+        return Verdict(not reasons, CLASS_LABEL[self.problem_class()], pieces, reasons, notes)
 
     def solve(self, solver: str | None = None, *, route: str | None = None, tol: float = 1e-9, gap_tol: float = 1e-7,
               feas_tol: float = 1e-6, time_limit: float | None = None, fallback: bool = True,
@@ -107,6 +123,30 @@ class ClassesTask(ClassesProblem):
         the default there) or "direct" (the whole program to a solver); ``fit.route`` says which."""
         return solve_classes(self, solver=solver, route=route, tol=tol, gap_tol=gap_tol, feas_tol=feas_tol,
                              time_limit=time_limit, fallback=fallback, solver_options=solver_options, verbose=verbose)
+
+    def _not_yet(self, what: str):
+        raise ParameterError(f"{what}: a task with several classes does not take this yet; fit one class against "
+                             f"the rest (a two-label target) for it, or use task.solve() here.", parameters=(what,))
+
+    def path(self, *args, **kwargs):
+        """Not available for several classes yet (refused with the reason)."""
+        self._not_yet("path()")
+
+    def cross_validate(self, *args, **kwargs):
+        """Not available for several classes yet (refused with the reason)."""
+        self._not_yet("cross_validate()")
+
+    def compare(self, *args, **kwargs):
+        """Not available for several classes yet (refused with the reason)."""
+        self._not_yet("compare()")
+
+    def fit_by(self, *args, **kwargs):
+        """Not available for several classes yet (refused with the reason)."""
+        self._not_yet("fit_by()")
+
+    def shape(self, *args, **kwargs):
+        """Not available for several classes yet (refused with the reason)."""
+        self._not_yet("shape()")
 
     def __repr__(self) -> str:
         return (f"ClassesTask({len(self.labels)} classes, loss={self.loss.describe()}, {self.dataset.n} rows x "

@@ -83,6 +83,8 @@ def training_task(recipe: Recipe):
     frame = _frame(recipe)
     train, held = _split(recipe, frame)
     task = build_task(recipe, train)
+    if isinstance(task, ClassesTask):
+        classes_refusals(recipe, task)
     if held is None:
         return task, None
     hold = recipe.do.holdout
@@ -135,10 +137,10 @@ def run(recipe: Recipe, *, action: str | None = None, solvers=None, grid=None, n
     return job
 
 
-def _run_classes(job: Job, frame, held, action: str, report: str | None, opts: dict) -> Job:
-    """A task with several classes: solve, check on the held-out rows, write the outputs."""
-    recipe, s = job.recipe, job.recipe.solve
-    u, out = recipe.uncertainty, recipe.outputs
+def classes_refusals(recipe: Recipe, task, action: str | None = None) -> None:
+    """Refuse, before anything is solved, what a task with several classes does not take yet."""
+    s, u = recipe.solve, recipe.uncertainty
+    action = action or recipe.do.action
     missing = [what for what, asked in (
         (f"do.action = {action!r} (only \"solve\")", action != "solve"),
         ("do.holdout.groups", recipe.do.holdout is not None and recipe.do.holdout.groups is not None),
@@ -146,9 +148,15 @@ def _run_classes(job: Job, frame, held, action: str, report: str | None, opts: d
         (f"solve.route = {s.route!r} (only \"newton\" or \"direct\")", s.route not in (None, "newton", "direct")),
     ) if asked]
     if missing:
-        raise DataError(f"The target {recipe.task.target!r} has {len(job.task.labels)} classes; a task with several "
+        raise DataError(f"The target {recipe.task.target!r} has {len(task.labels)} classes; a task with several "
                         f"classes does not take {'; '.join(missing)} yet. Remove "
                         f"{'it' if len(missing) == 1 else 'them'} from the recipe.", problems=missing)
+
+
+def _run_classes(job: Job, frame, held, action: str, report: str | None, opts: dict) -> Job:
+    """A task with several classes: solve, check on the held-out rows, write the outputs."""
+    recipe, s, out = job.recipe, job.recipe.solve, job.recipe.outputs
+    classes_refusals(recipe, job.task, action)
     job.fit = job.task.solve(s.solver, route=s.route, time_limit=s.time_limit, **opts)
     if held is not None and job.fit.status.has_point:
         job.evaluation = job.fit.evaluate(held)

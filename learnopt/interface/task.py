@@ -21,7 +21,7 @@ from learnopt.core.errors import ParameterError
 from learnopt.core.files import read_model
 from learnopt.data.gateway import from_data
 from learnopt.data.shaping import FORMS, shaped_dataset
-from learnopt.interface.classes_task import ClassesTask, label_count, several_classes
+from learnopt.interface.classes_task import ClassesTask, class_scope, label_count, several_classes
 from learnopt.problem.formulate import build, one_row
 from learnopt.problem.problem import Problem
 from learnopt.rules.objects import as_spec, compile_all
@@ -50,14 +50,21 @@ class Task(Problem):
     """
 
     # ---- building
-    def require(self, *rules: str | RuleSpec) -> "Task":
+    def require(self, *rules: str | RuleSpec, for_class=None) -> "Task":
         """A new task with these requirements added (rule text or rule objects).
 
         Raises NotConvexError for a rule that is not convex and DataError for unknown names,
-        listing every problem at once.
+        listing every problem at once. ``for_class`` (and "... for class X") belong to targets
+        of three or more labels.
         """
         if len(rules) == 1 and isinstance(rules[0], (list, tuple)):
             rules = tuple(rules[0])
+        scoped = [r for r in rules if isinstance(r, str) and class_scope(r)]
+        if for_class is not None or scoped:
+            what = f"for_class={for_class!r}" if for_class is not None else f"rule {scoped[0]!r}"
+            raise ParameterError(f"{what}: a rule for one class needs a target of three or more labels; this "
+                                 f"{self.kind} task has {'two classes' if self.kind == 'classification' else 'one target'}"
+                                 f". Drop the class from the rule.", parameters=("for_class",))
         specs = tuple(as_spec(r) for r in rules)
         rows: list[str] = []
         if self.sharded:

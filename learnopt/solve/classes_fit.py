@@ -110,6 +110,16 @@ class ClassesFit:
             out["mean_loss"] = float(np.mean(self.task.loss.value(scores, y)))
         return pd.Series(out)
 
+    def bootstrap(self, *args, **kwargs):
+        """Not available for several classes yet (refused with the reason)."""
+        raise ParameterError("bootstrap(): refits of a fit with several classes are not available yet.",
+                             parameters=("bootstrap",))
+
+    def intervals(self, *args, **kwargs):
+        """Prediction intervals belong to regression fits (refused with the reason)."""
+        raise ParameterError("intervals(): prediction intervals are for regression fits; a fit with several "
+                             "classes gives class probabilities (probability()).", parameters=("intervals",))
+
     # ---- display
     def coefficients(self) -> pd.DataFrame:
         """Coefficients by feature (rows) and class (columns), the intercepts as a last row."""

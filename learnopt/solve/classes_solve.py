@@ -1,8 +1,12 @@
-"""Solving a task with several classes: the whole program to a registry solver (the next capable
-solver when one fails or its point is not certified), then learnopt's own certificate.
+"""Solving a task with several classes, then learnopt's own certificate.
 
-The program is solved over centred and scaled columns (:func:`learnopt.problem.classes.formulate`)
-and its point mapped back; the certificate is computed on the original data.
+Routes: "newton" (the multinomial loss always; the multiclass hinge with l2 penalties and no
+rules, by smoothing; see :mod:`learnopt.solve.classes_newton` and
+:mod:`learnopt.solve.classes_steps`) and "direct": the whole program to a registry solver (the
+next capable solver when one fails or its point is not certified), solved over centred and
+scaled columns (:func:`learnopt.problem.classes.formulate`) and mapped back. A newton point the
+certificate does not confirm is handed on to the direct route; the certificate is computed on
+the original data.
 """
 from __future__ import annotations
 
@@ -53,11 +57,14 @@ ROUTES = ("direct", "newton")
 def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: str | None = None, tol: float = 1e-9,
                   gap_tol: float = 1e-7, feas_tol: float = 1e-6, time_limit: float | None = None,
                   fallback: bool = True, solver_options: dict | None = None, verbose: bool = False) -> ClassesFit:
-    """Route "newton" (multinomial loss, l2-type penalties, no rules; the default there unless a
-    solver is named) or "direct" (the whole program to a solver); a newton point the certificate
-    does not confirm is handed on to the direct route."""
+    """Route "newton" (the default for the multinomial loss, and for the multiclass hinge with l2
+    penalties and no rules, unless a solver is named) or "direct" (the whole program to a solver);
+    a newton point the certificate does not confirm is handed on to the direct route."""
     t_start = time.perf_counter()
-    params.check("solve", route=(route, params.OneOf(ROUTES + (None,))))
+    params.check("solve", route=(route, params.OneOf(ROUTES + (None,))), tol=(tol, params.OPEN_UNIT),
+                 gap_tol=(gap_tol, params.OPEN_UNIT), feas_tol=(feas_tol, params.OPEN_UNIT))
+    if time_limit is not None:
+        params.check("solve", time_limit=(time_limit, params.POSITIVE))
     reason = why_not(problem)
     if route == "newton" and reason:
         raise ParameterError(f"solve(route='newton'): {reason}; leave route out or give route='direct'.",
@@ -97,6 +104,12 @@ def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: 
         try:
             status, compile_s, solve_s, _ = run(model.problem, spec, {**spec.settings(tol, time_limit),
                                                                        **(solver_options or {})}, verbose)
+        except TypeError as exc:       # an option of the wrong type; without options it is a fault of ours
+            if not solver_options:
+                raise
+            raise params.refusal("solve", "solver_options", solver_options,
+                                 f"options {spec.name} accepts, each of the type it expects "
+                                 f"({str(exc).splitlines()[0][:200]})") from None
         except SOLVER_FAULTS as exc:
             attempts.append(Attempt(spec.name, f"error: {str(exc).splitlines()[0][:200]}",
                                     seconds=time.perf_counter() - t0))
@@ -125,6 +138,8 @@ def solve_classes(problem: ClassesProblem, *, solver: str | None = None, route: 
         if ok:
             break
     total = time.perf_counter() - t_start
+    if infeasible and newton_point and not best[1].passes(gap_tol, feas_tol):
+        best = None                   # the newton steps found no point the rules allow; a solver says none exists
     route = "newton" if newton_point else "direct"
     return _assemble(problem, best, attempts, infeasible, gap_tol, feas_tol, total, route=route)
 

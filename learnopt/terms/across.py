@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from typing import ClassVar, Sequence
 
 from learnopt.core import checks as params
-from learnopt.core.errors import ParameterError
+from learnopt.core.errors import DataError, ParameterError
 from learnopt.terms.penalty_base import Penalty, factor_array, freeze_factors, name_list
 from learnopt.terms.separable import Separable
 from learnopt.terms.structured import Group
@@ -58,6 +58,9 @@ class Shared(Penalty):
     def across(self, names, labels) -> Group:
         """The group lasso over the flat vector: one group per feature, its coefficient in every class."""
         covered = self.covered(names)
+        unknown = [f for f in covered if f not in names]
+        if unknown:
+            raise DataError(f"shared: unknown features {unknown}; the features are {list(names)}.")
         c = factor_array(self.factors, covered, "shared")
         return Group(self.strength, tuple(tuple(flat_name(label, f) for label in labels) for f in covered), tuple(c))
 
