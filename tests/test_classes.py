@@ -399,6 +399,12 @@ def test_what_several_classes_do_not_take_yet_is_refused_by_name():
         lo.classification(two, "species").require("sepal_width >= 0", for_class="virginica")
 
 
+def test_a_class_rule_names_a_numeric_label_as_written():
+    frame = pd.DataFrame({"a": np.random.default_rng(0).normal(size=90), "y": np.array([1.0, 2.0, 3.0])[np.arange(90) % 3]})
+    fit = lo.classification(frame, "y").penalize(lo.penalty.l2(0.1)).require("a >= 0.5 for class 2").solve()
+    assert fit.status == "optimal" and fit.coef.loc["a", 2.0] == pytest.approx(0.5, abs=1e-7)
+
+
 def test_the_adapter_reads_a_class_rule_by_label():
     """Integer labels 2, 5, 7: "for class 2" is the label 2, not the third class."""
     X, y = load_wine(return_X_y=True)

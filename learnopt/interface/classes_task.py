@@ -37,6 +37,14 @@ from learnopt.terms.penalties import Penalty
 _SCOPE = re.compile(r"^(?P<rule>.*\S)\s+for\s+class\s+(?P<label>'[^']*'|\"[^\"]*\"|\S+)\s*$", re.S)
 
 
+def _same_number(label, given) -> bool:
+    """Does rule text such as "2" name the numeric label 2.0 (or "2.0" the label 2)?"""
+    try:
+        return not isinstance(label, (bool, np.bool_)) and float(label) == float(given)
+    except (TypeError, ValueError):
+        return False
+
+
 def class_scope(text: str):
     """The match of a trailing "for class <label>" in rule text, or None."""
     return _SCOPE.match(text)
@@ -80,7 +88,7 @@ class ClassesTask(ClassesProblem):
 
     def _label(self, given, where: str):
         for label in self.labels:
-            if label == given or str(label) == str(given):
+            if label == given or str(label) == str(given) or _same_number(label, given):
                 if self.reference is not None and label == self.reference:
                     raise ParameterError(f"{where}: class {label!r} is the reference class; its coefficients are "
                                          f"0 by definition. Put the rule on another class, or fit without "
